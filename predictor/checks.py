@@ -1,0 +1,114 @@
+"""The data check step as one call: QC, drilling bias, declustering, figures and a JSON record.
+
+This is what ``predictor qc`` runs; a notebook user calls :func:`check_data` the same way.
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import xarray as xr
+
+from . import plots
+from .declustering import (
+    Declustering,
+    cell_declustering,
+    declustered_statistics,
+    nearest_node_weights,
+)
+from .errors import PredictorWarning
+from .grid import read_grid, sample_at
+from .io.jsonfile import write_json
+from .io.tables import read_wells
+from .qc import QCReport, numeric_properties, run_qc
+
+
+@dataclass
+class DataCheck:
+    wells: pd.DataFrame
+    grid: xr.Dataset
+    qc: QCReport
+    declustering: Declustering
+    nearest_node: np.ndarray
+    statistics: dict
+
+    def to_dict(self) -> dict:
+        out = self.qc.to_dict()
+        out["declustering"] = self.declustering.summary()
+        out["declustering"]["weights"] = dict(zip(self.wells["well_id"], self.declustering.weights, strict=True))
+        out["nearest_node_weights"] = dict(zip(self.wells["well_id"], self.nearest_node, strict=True))
+        out["statistics"] = self.statistics
+        return out
+
+
+def decluster(wells: pd.DataFrame, grid: xr.Dataset, variable: str | None = None) -> tuple[Declustering, np.ndarray]:
+    """Cell declustering on ``variable`` (porosity by default) and nearest-node weights on the grid."""
+    numeric = numeric_properties(wells)
+    variable = variable or ("porosity" if "porosity" in wells else (numeric[0] if numeric else None))
+    values = wells[variable].to_numpy(dtype=float) if variable else np.ones(len(wells))
+    cell = cell_declustering(wells["x"], wells["y"], values, variable=variable)
+    xx, yy = np.meshgrid(grid.x.to_numpy(), grid.y.to_numpy())
+    valid = np.all([np.isfinite(grid[v].to_numpy()) for v in grid.data_vars], axis=0)
+    nearest = nearest_node_weights(wells["x"], wells["y"], xx, yy, valid)
+    return cell, nearest
+
+
+def check_data(wells: pd.DataFrame, grid: xr.Dataset, tolerance: float = 1.0) -> DataCheck:
+    """Run every check and compute the declustering weights (no files written)."""
+    qc = run_qc(wells, grid, tolerance)
+    cell, nearest = decluster(wells, grid)
+    categorical = ["facies"] if "facies" in wells else []
+    stats = declustered_statistics(wells, cell.weights, numeric_properties(wells), categorical)
+    return DataCheck(wells, grid, qc, cell, nearest, stats)
+
+
+def write_check(check: DataCheck, json_path: str | Path | None = None, figures: str | Path | None = None) -> list[Path]:
+    """Write the JSON record and the QC figures; returns the paths written."""
+    written = []
+    if json_path:
+        written.append(write_json(check.to_dict(), json_path))
+    if figures:
+        folder = Path(figures)
+        folder.mkdir(parents=True, exist_ok=True)
+        wells, grid = check.wells, check.grid
+        attribute = next(iter(grid.data_vars))
+        props = [c for c in ("facies", "porosity", "permeability") if c in wells] or numeric_properties(wells)[:3]
+        written.append(plots.location_maps(wells, grid, attribute, props, folder / "wells_on_map.png"))
+        for var, bias in check.qc.bias.items():
+            at_wells = _at_wells(wells, grid, var)
+            written.append(plots.bias_figure(at_wells, grid[var].to_numpy().ravel(), var, bias["verdict"],
+                                             folder / f"bias_{var}.png"))
+        numeric = [c for c in ("porosity", "permeability") if c in wells] + [attribute]
+        if "facies" in wells:
+            table = wells.assign(**{attribute: _at_wells(wells, grid, attribute)})
+            written.append(plots.facies_distributions(table, numeric, folder / "facies_distributions.png"))
+        written.append(plots.declustering_figure(check.declustering, folder / "declustering_curve.png"))
+        if check.declustering.variable:
+            var = check.declustering.variable
+            written.append(plots.weighted_histograms(wells[var], check.declustering.weights, var,
+                                                     folder / f"declustered_{var}.png"))
+    return written
+
+
+def _at_wells(wells: pd.DataFrame, grid: xr.Dataset, var: str) -> np.ndarray:
+    """Attribute at every well (NaN for wells off the grid)."""
+    out = np.full(len(wells), np.nan)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", PredictorWarning)
+        sampled, kept = sample_at(grid[[var]], wells["x"], wells["y"], drop_outside=True)
+    out[kept] = sampled[var].to_numpy()
+    return out
+
+
+def check_files(wells_path, grid_path, json_path=None, figures=None, porosity_percent: bool = False,
+                x: str | None = None, y: str | None = None, tolerance: float = 1.0) -> DataCheck:
+    """Read the files, run :func:`check_data` and write the outputs."""
+    wells = read_wells(wells_path, x=x, y=y, porosity_percent=porosity_percent)
+    grid = read_grid(grid_path)
+    check = check_data(wells, grid, tolerance)
+    write_check(check, json_path, figures)
+    return check

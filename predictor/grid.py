@@ -1,0 +1,214 @@
+"""The grid model: an ``xarray.Dataset`` with dims ``("y", "x")``, attributes as data variables.
+
+Also lattice detection for long tables and sampling of grid values at well locations, so
+that training sees exactly the values the map will see.
+"""
+
+from __future__ import annotations
+
+import warnings
+from pathlib import Path
+from typing import Literal
+
+import numpy as np
+import pandas as pd
+import xarray as xr
+
+from .errors import InputError, PredictorWarning, list_rows
+from .io.tables import X_NAMES, Y_NAMES, find_column, numeric_column, read_table
+
+SampleMethod = Literal["bilinear", "nearest"]
+
+
+def _typical_step(values: np.ndarray, others: np.ndarray) -> float:
+    """Most common spacing between neighbouring nodes along one axis, row by row."""
+    order = np.lexsort((values, others))
+    v, o = values[order], others[order]
+    steps = np.diff(v)[(np.diff(o) == 0) & (np.diff(v) > 0)]
+    if steps.size == 0:
+        steps = np.diff(np.unique(values))
+    rounded = np.round(steps, 6)
+    uniq, counts = np.unique(rounded, return_counts=True)
+    return float(uniq[np.argmax(counts)])
+
+
+def _lattice_axis(values: np.ndarray, others: np.ndarray, source: str, column: str) -> np.ndarray:
+    """Regular axis (ascending) on which all ``values`` lie; error naming rows that do not."""
+    unique = np.unique(values)
+    if unique.size == 1:
+        raise InputError(f"{source}: column {column!r} has a single value; a map needs at least 2 nodes along x and y")
+    step = _typical_step(values, others)
+    span = unique[-1] - unique[0]
+    n = int(round(span / step)) + 1
+    if n > 200_000:
+        raise InputError(f"{source}: column {column!r} spacing {step:g} gives {n} nodes; the values are not on a lattice")
+    k = (values - unique[0]) / step
+    off = np.abs(k - np.round(k)) > 1e-3
+    if off.any():
+        rows = np.flatnonzero(off)
+        raise InputError(
+            f"{source}: grid not on a regular lattice: column {column!r} at {list_rows([f'line {i + 2}' for i in rows])} "
+            f"is off the spacing {step:g} from origin {unique[0]:g}; resample the attribute onto a regular grid "
+            "(rotated lattices: give NetCDF with x/y coordinates)"
+        )
+    return unique[0] + step * np.arange(n)
+
+
+def grid_from_table(frame: pd.DataFrame, x: str | None = None, y: str | None = None) -> xr.Dataset:
+    """Build a grid from a long table (one row per node; x, y and one column per attribute)."""
+    source = frame.attrs.get("source", "table")
+    xc = find_column(frame, x, X_NAMES, "the x coordinate (easting)")
+    yc = find_column(frame, y, Y_NAMES, "the y coordinate (northing)")
+    xs = numeric_column(frame, xc, allow_missing=False)
+    ys = numeric_column(frame, yc, allow_missing=False)
+    for col, v in ((xc, xs), (yc, ys)):
+        bad = np.flatnonzero(~np.isfinite(v))
+        if bad.size:
+            raise InputError(f"{source}: column {col!r} is infinite at {list_rows([f'line {i + 2}' for i in bad])}")
+    attributes = [c for c in frame.columns if c not in (xc, yc)]
+    if not attributes:
+        raise InputError(f"{source}: no attribute columns besides {xc!r} and {yc!r}; add at least one (e.g. impedance)")
+    xaxis = _lattice_axis(xs, ys, source, xc)
+    yaxis = _lattice_axis(ys, xs, source, yc)
+    ix = np.round((xs - xaxis[0]) / (xaxis[1] - xaxis[0])).astype(int)
+    iy = np.round((ys - yaxis[0]) / (yaxis[1] - yaxis[0])).astype(int)
+    flat = iy * xaxis.size + ix
+    dup = pd.Series(flat).duplicated(keep="first").to_numpy()
+    if dup.any():
+        raise InputError(
+            f"{source}: {dup.sum()} nodes appear twice, at {list_rows([f'line {i + 2}' for i in np.flatnonzero(dup)])}; "
+            "keep one row per (x, y)"
+        )
+    data = {}
+    for col in attributes:
+        values = numeric_column(frame, col)
+        cube = np.full(yaxis.size * xaxis.size, np.nan)
+        cube[flat] = values
+        data[col] = (("y", "x"), cube.reshape(yaxis.size, xaxis.size))
+    ds = xr.Dataset(data, coords={"x": xaxis, "y": yaxis})
+    ds.attrs.update(source=str(source), columns_taken=f"x={xc}, y={yc}")
+    return check_grid(ds, source)
+
+
+def check_grid(ds: xr.Dataset, source: str = "grid") -> xr.Dataset:
+    """Normalise a grid: dims (y, x), ascending coordinates, float attributes; clear errors otherwise."""
+    if not ds.data_vars:
+        raise InputError(f"{source}: no attribute variables on the grid")
+    for name in ("x", "y"):
+        if name not in ds.dims:
+            raise InputError(f"{source}: no {name!r} dimension; dims are {tuple(ds.dims)}")
+    ds = ds.transpose("y", "x", ...)
+    for name in ("x", "y"):
+        coord = ds[name].to_numpy()
+        if coord.size < 2:
+            raise InputError(f"{source}: a map needs at least 2 nodes along {name}")
+        step = np.diff(coord)
+        if np.all(step < 0):
+            ds = ds.isel({name: slice(None, None, -1)})
+            step = -step[::-1]
+        if not (np.all(step > 0) and np.allclose(step, step[0], rtol=1e-6)):
+            raise InputError(f"{source}: coordinate {name!r} is not evenly spaced; resample onto a regular grid")
+    for var in list(ds.data_vars):
+        if ds[var].dims != ("y", "x"):
+            ds = ds.drop_vars(var)
+            continue
+        ds[var] = ds[var].astype(float)
+    if not ds.data_vars:
+        raise InputError(f"{source}: no 2-D attribute on (y, x)")
+    ds.attrs.setdefault("source", str(source))
+    return ds
+
+
+def read_grid(path: str | Path, x: str | None = None, y: str | None = None) -> xr.Dataset:
+    """Read a grid from a CSV/Parquet long table or a NetCDF file (chosen by extension)."""
+    path = Path(path)
+    if path.suffix.lower() in (".nc", ".nc4", ".netcdf", ".cdf"):
+        from .io.netcdf import read_netcdf_grid
+
+        return read_netcdf_grid(path)
+    return grid_from_table(read_table(path), x=x, y=y)
+
+
+def spacing(ds: xr.Dataset) -> tuple[float, float]:
+    """Node spacing (dx, dy) in coordinate units."""
+    return float(ds.x[1] - ds.x[0]), float(ds.y[1] - ds.y[0])
+
+
+def node_table(ds: xr.Dataset) -> pd.DataFrame:
+    """The grid as a long table: one row per node, columns x, y and each variable (row-major, y outer)."""
+    xx, yy = np.meshgrid(ds.x.to_numpy(), ds.y.to_numpy())
+    table = {"x": xx.ravel(), "y": yy.ravel()}
+    for var in ds.data_vars:
+        table[var] = ds[var].to_numpy().ravel()
+    return pd.DataFrame(table)
+
+
+def sample_at(ds: xr.Dataset, x: np.ndarray, y: np.ndarray, labels=None,
+              method: SampleMethod = "bilinear", drop_outside: bool = False) -> tuple[pd.DataFrame, np.ndarray]:
+    """Sample every grid variable at points (x, y).
+
+    Bilinear interpolation uses the valid nodes among the four around a point (weights
+    renormalised), so a well next to a gap still gets a value; ``nearest`` takes the nearest
+    node.  A point outside the grid, or whose nearest node is NaN, is an error naming it;
+    with ``drop_outside`` it is dropped with a warning instead.
+
+    Returns
+    -------
+    values : DataFrame of shape (n_kept, n_variables)
+    kept : boolean array of shape (n_points,)
+    """
+    x = np.asarray(x, dtype=float)
+    y = np.asarray(y, dtype=float)
+    labels = np.arange(x.size) if labels is None else np.asarray(labels)
+    dx, dy = spacing(ds)
+    fx = (x - float(ds.x[0])) / dx
+    fy = (y - float(ds.y[0])) / dy
+    nx, ny = ds.sizes["x"], ds.sizes["y"]
+    half = 0.5  # a point within half a cell of the outer nodes still belongs to the map
+    outside = (fx < -half) | (fx > nx - 1 + half) | (fy < -half) | (fy > ny - 1 + half)
+    fx = np.clip(fx, 0, nx - 1)
+    fy = np.clip(fy, 0, ny - 1)
+    inear, jnear = np.round(fy).astype(int), np.round(fx).astype(int)
+    arrays = {var: ds[var].to_numpy() for var in ds.data_vars}
+    gap = np.zeros(x.size, bool)
+    for arr in arrays.values():
+        gap |= np.isnan(arr[inear, jnear])
+    gap &= ~outside
+    problems = []
+    if outside.any():
+        problems.append(f"outside the grid: {list_rows(labels[outside])}")
+    if gap.any():
+        problems.append(f"on a node with no attribute value (NaN): {list_rows(labels[gap])}")
+    kept = ~(outside | gap)
+    if problems:
+        message = "; ".join(problems)
+        if not drop_outside:
+            raise InputError(
+                f"wells {message} (grid {ds.attrs.get('source', '')}); fix the coordinates, or pass "
+                "--drop-outside (drop_outside=True) to leave them out"
+            )
+        warnings.warn(f"left out wells {message}", PredictorWarning, stacklevel=2)
+    out = {}
+    for var, arr in arrays.items():
+        if method == "nearest":
+            vals = arr[inear, jnear]
+        else:
+            vals = _bilinear(arr, fx, fy)
+        out[var] = vals[kept]
+    return pd.DataFrame(out), kept
+
+
+def _bilinear(arr: np.ndarray, fx: np.ndarray, fy: np.ndarray) -> np.ndarray:
+    ny, nx = arr.shape
+    j0 = np.clip(np.floor(fx).astype(int), 0, max(nx - 2, 0))
+    i0 = np.clip(np.floor(fy).astype(int), 0, max(ny - 2, 0))
+    tx, ty = fx - j0, fy - i0
+    total = np.zeros(fx.size)
+    weight = np.zeros(fx.size)
+    for di, dj, w in ((0, 0, (1 - tx) * (1 - ty)), (0, 1, tx * (1 - ty)), (1, 0, (1 - tx) * ty), (1, 1, tx * ty)):
+        v = arr[i0 + di, j0 + dj]
+        ok = ~np.isnan(v)
+        total += np.where(ok, v * w, 0.0)
+        weight += np.where(ok, w, 0.0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(weight > 0, total / weight, np.nan)

@@ -1,0 +1,1 @@
+"""Readers and writers, one module per file format."""

@@ -1,0 +1,56 @@
+"""NetCDF grids read and written with xarray (h5netcdf engine), following CF conventions on write."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import xarray as xr
+
+from ..errors import InputError
+
+X_COORDS = ("x", "easting", "east", "projection_x_coordinate")
+Y_COORDS = ("y", "northing", "north", "projection_y_coordinate")
+
+
+def read_netcdf_grid(path: Path) -> xr.Dataset:
+    """Open a NetCDF file holding 2-D variables on x/y coordinates and normalise it to a grid."""
+    from ..grid import check_grid
+
+    if not path.exists():
+        raise InputError(f"{path}: file not found; check the path")
+    try:
+        with xr.open_dataset(path) as handle:
+            ds = handle.load()
+    except Exception as err:  # netCDF/HDF5 libraries raise many types on a damaged file
+        raise InputError(
+            f"{path}: not a readable NetCDF file ({err.__class__.__name__}: {str(err)[:120]}); "
+            "the file may be truncated or of another format"
+        ) from None
+    rename = {}
+    for target, names in (("x", X_COORDS), ("y", Y_COORDS)):
+        found = [d for d in ds.dims if str(d).lower() in names]
+        if not found:
+            raise InputError(f"{path}: no {target!r} dimension (looked for {', '.join(names)}); dims are {tuple(ds.dims)}")
+        if found[0] != target:
+            rename[found[0]] = target
+    ds = ds.rename(rename)
+    ds.attrs["source"] = str(path)
+    return check_grid(ds, str(path))
+
+
+def write_netcdf(ds: xr.Dataset, target: str | Path, overwrite: bool = True, crs_wkt: str | None = None) -> Path:
+    """Write a grid as CF-1.8 NetCDF-4, atomically (temporary name, then rename)."""
+    from .atomic import atomic_file
+
+    out = ds.copy()
+    out.attrs = {k: (str(v) if not isinstance(v, int | float | str) else v) for k, v in out.attrs.items()}
+    out.attrs["Conventions"] = "CF-1.8"
+    out["x"].attrs.update(standard_name="projection_x_coordinate", units="m", long_name="easting")
+    out["y"].attrs.update(standard_name="projection_y_coordinate", units="m", long_name="northing")
+    if crs_wkt:
+        out["crs"] = xr.DataArray(0, attrs={"crs_wkt": crs_wkt, "spatial_ref": crs_wkt})
+        for var in ds.data_vars:
+            out[var].attrs["grid_mapping"] = "crs"
+    with atomic_file(target, overwrite=overwrite) as tmp:
+        out.to_netcdf(tmp, engine="h5netcdf")
+    return Path(target)

@@ -1,0 +1,152 @@
+"""Figures (PNG) for QC, declustering, maps and cross-validation.
+
+Every figure is written atomically and closed, so loops over many figures stay flat in memory.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import matplotlib
+
+matplotlib.use("Agg")
+import matplotlib.pyplot as plt  # noqa: E402
+import matplotlib.ticker  # noqa: E402
+import numpy as np  # noqa: E402
+import pandas as pd  # noqa: E402
+import xarray as xr  # noqa: E402
+
+from .io.atomic import atomic_file  # noqa: E402
+
+FACIES_COLOURS = ["#6b4f3a", "#c9a55c", "#f2e394", "#7fa7c9", "#a3c586", "#d98c8c"]
+
+
+def save(fig, path: str | Path) -> Path:
+    path = Path(path)
+    with atomic_file(path) as tmp:
+        fig.savefig(tmp, format="png", dpi=100, bbox_inches="tight", metadata={"Software": None})
+    plt.close(fig)
+    return path
+
+
+def _extent(grid: xr.Dataset) -> list[float]:
+    dx = float(grid.x[1] - grid.x[0])
+    dy = float(grid.y[1] - grid.y[0])
+    return [float(grid.x[0]) - dx / 2, float(grid.x[-1]) + dx / 2, float(grid.y[0]) - dy / 2, float(grid.y[-1]) + dy / 2]
+
+
+def _background(ax, grid: xr.Dataset, var: str, cmap="Greys", **kw):
+    im = ax.imshow(grid[var].to_numpy(), origin="lower", extent=_extent(grid), cmap=cmap, **kw)
+    ax.set_aspect("equal")
+    ax.set_xlabel("x (m)")
+    ax.set_ylabel("y (m)")
+    ax.ticklabel_format(useOffset=False, style="plain")
+    ax.tick_params(labelsize=7)
+    ax.xaxis.set_major_locator(matplotlib.ticker.MaxNLocator(4))
+    return im
+
+
+KNOWN_FACIES = {"sand": "#f2d95c", "sandstone": "#f2d95c", "silt": "#b8a27a", "siltstone": "#b8a27a",
+                "shale": "#5b4a3c", "mudstone": "#5b4a3c", "carbonate": "#7fa7c9", "limestone": "#7fa7c9"}
+
+
+def _category_colours(labels) -> dict:
+    classes = sorted(set(map(str, labels)))
+    return {c: KNOWN_FACIES.get(c.lower(), FACIES_COLOURS[i % len(FACIES_COLOURS)]) for i, c in enumerate(classes)}
+
+
+def location_maps(wells: pd.DataFrame, grid: xr.Dataset, attribute: str, properties: list[str], path) -> Path:
+    """One panel per well property, wells coloured by it over the attribute map."""
+    n = max(len(properties), 1)
+    fig, axes = plt.subplots(1, n, figsize=(5.0 * n, 4.4), squeeze=False, layout="constrained")
+    for i, (ax, prop) in enumerate(zip(axes[0], properties, strict=False)):
+        im = _background(ax, grid, attribute)
+        if i == 0:
+            fig.colorbar(im, ax=ax, shrink=0.7, label=f"{attribute} (background)", location="left")
+        if prop == "facies" or not pd.api.types.is_numeric_dtype(wells[prop]):
+            colours = _category_colours(wells[prop].dropna())
+            for label, c in colours.items():
+                sel = wells[prop].astype(str) == label
+                ax.scatter(wells.x[sel], wells.y[sel], c=c, edgecolor="k", s=36, label=label)
+            ax.legend(fontsize=7, loc="upper right", title=prop)
+        else:
+            values = wells[prop].to_numpy(dtype=float)
+            if prop == "permeability":
+                values = np.log10(np.where(values > 0, values, np.nan))
+                prop = "log10 permeability (mD)"
+            sc = ax.scatter(wells.x, wells.y, c=values, cmap="viridis", edgecolor="k", s=36)
+            fig.colorbar(sc, ax=ax, shrink=0.7, label=prop, location="bottom")
+        ax.set_title(f"wells: {prop}", fontsize=10)
+    return save(fig, path)
+
+
+def bias_figure(at_wells, over_map, attribute: str, verdict: str, path) -> Path:
+    """Histograms and empirical CDFs of the attribute at the wells and over the map."""
+    a = np.asarray(at_wells, float)
+    b = np.asarray(over_map, float)
+    a, b = a[np.isfinite(a)], b[np.isfinite(b)]
+    fig, (h, c) = plt.subplots(1, 2, figsize=(10, 3.8))
+    bins = np.linspace(min(a.min(), b.min()), max(a.max(), b.max()), 40)
+    h.hist(b, bins=bins, density=True, alpha=0.5, color="grey", label=f"map ({b.size} nodes)")
+    h.hist(a, bins=bins, density=True, alpha=0.6, color="tab:red", label=f"wells ({a.size})")
+    h.set_xlabel(attribute)
+    h.set_ylabel("density")
+    h.legend(fontsize=8)
+    for values, colour, name in ((b, "grey", "map"), (a, "tab:red", "wells")):
+        s = np.sort(values)
+        c.step(s, np.arange(1, s.size + 1) / s.size, color=colour, label=name, where="post")
+    c.set_xlabel(attribute)
+    c.set_ylabel("cumulative share")
+    c.legend(fontsize=8)
+    fig.suptitle("\n".join(_wrap(verdict, 120)), fontsize=8)
+    return save(fig, path)
+
+
+def _wrap(text: str, width: int) -> list[str]:
+    import textwrap
+
+    return textwrap.wrap(text, width)
+
+
+def facies_distributions(wells: pd.DataFrame, columns: list[str], path) -> Path:
+    """Box plots of each numeric property per facies."""
+    classes = sorted(wells["facies"].dropna().astype(str).unique())
+    fig, axes = plt.subplots(1, len(columns), figsize=(4.2 * len(columns), 3.8), squeeze=False)
+    for ax, col in zip(axes[0], columns, strict=False):
+        data = []
+        for cl in classes:
+            v = wells.loc[wells["facies"].astype(str) == cl, col].to_numpy(dtype=float)
+            if col == "permeability":
+                v = np.log10(v[v > 0])
+            data.append(v[np.isfinite(v)])
+        ax.boxplot(data, tick_labels=classes, whis=1.5)
+        ax.set_title("log10 permeability (mD)" if col == "permeability" else col, fontsize=10)
+        ax.set_xlabel("facies")
+    return save(fig, path)
+
+
+def declustering_figure(decl, path) -> Path:
+    """Declustered mean against cell size, the chosen size marked, beside the naive mean."""
+    fig, ax = plt.subplots(figsize=(5.5, 3.8))
+    ax.plot(decl.sizes, decl.curve, "o-", ms=3, label="declustered mean")
+    ax.axhline(decl.naive_mean, color="grey", ls="--", label="naive mean")
+    ax.axvline(decl.cell_size, color="tab:red", ls=":", label=f"chosen {decl.cell_size:.0f} m ({decl.direction})")
+    ax.set_xlabel("cell size (m)")
+    ax.set_ylabel(f"mean {decl.variable or ''}")
+    ax.legend(fontsize=8)
+    return save(fig, path)
+
+
+def weighted_histograms(values, weights, name: str, path, truth=None) -> Path:
+    """Naive and declustered histograms of a property, with the map truth when known."""
+    v = np.asarray(values, float)
+    ok = np.isfinite(v)
+    fig, ax = plt.subplots(figsize=(5.5, 3.8))
+    bins = np.linspace(np.nanmin(v), np.nanmax(v), 25)
+    ax.hist(v[ok], bins=bins, density=True, alpha=0.45, label="naive (wells)")
+    ax.hist(v[ok], bins=bins, weights=np.asarray(weights)[ok], density=True, alpha=0.45, label="declustered")
+    if truth is not None:
+        ax.hist(np.asarray(truth).ravel(), bins=bins, density=True, histtype="step", color="k", label="map truth")
+    ax.set_xlabel(name)
+    ax.legend(fontsize=8)
+    return save(fig, path)

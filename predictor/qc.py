@@ -1,0 +1,276 @@
+"""Checks a careful modeller runs before any modelling.
+
+Summary statistics per column and per facies, non-physical values, duplicated wells,
+Tukey fences per facies (flagged, never dropped) and the drilling-bias test: the seismic
+attribute at the wells against the attribute over the whole map.
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import asdict, dataclass, field
+from typing import Literal
+
+import numpy as np
+import pandas as pd
+import xarray as xr
+from scipy import stats as sps
+from scipy.spatial import cKDTree
+
+from .errors import InputError, PredictorWarning, list_rows
+from .grid import sample_at
+
+Severity = Literal["error", "warning", "note"]
+POSITIVE_HINTS = ("imped", "velocity", "vp", "vs", "density", "rho")
+
+
+@dataclass
+class Finding:
+    """One QC result a user should read."""
+
+    severity: Severity
+    check: str
+    column: str | None
+    message: str
+    wells: list[str] = field(default_factory=list)
+
+    def line(self) -> str:
+        return f"[{self.severity}] {self.check}: {self.message}"
+
+
+def numeric_properties(wells: pd.DataFrame) -> list[str]:
+    """Numeric well columns other than coordinates."""
+    skip = {"well_id", "x", "y", "z", "facies"}
+    return [c for c in wells.columns if c not in skip and pd.api.types.is_numeric_dtype(wells[c])]
+
+
+def summarise(wells: pd.DataFrame, columns: list[str], facies: str | None = "facies") -> dict:
+    """Count, missing, min, max, mean, std and quartiles per column, overall and per facies."""
+
+    def one(frame: pd.DataFrame) -> dict:
+        out = {}
+        for col in columns:
+            v = frame[col].to_numpy(dtype=float)
+            ok = v[np.isfinite(v)]
+            q = np.percentile(ok, [25, 50, 75]) if ok.size else [np.nan] * 3
+            out[col] = {
+                "count": int(ok.size),
+                "missing": int(v.size - ok.size),
+                "min": float(ok.min()) if ok.size else None,
+                "q25": float(q[0]) if ok.size else None,
+                "median": float(q[1]) if ok.size else None,
+                "q75": float(q[2]) if ok.size else None,
+                "max": float(ok.max()) if ok.size else None,
+                "mean": float(ok.mean()) if ok.size else None,
+                "std": float(ok.std(ddof=1)) if ok.size > 1 else None,
+            }
+        return out
+
+    result = {"all": one(wells)}
+    if facies and facies in wells:
+        for label, frame in wells.groupby(wells[facies].astype(str)):
+            result[f"facies={label}"] = one(frame)
+    return result
+
+
+def tukey_fences(values, k: float = 1.5) -> tuple[float, float]:
+    """Lower and upper Tukey fences Q1 - k IQR and Q3 + k IQR (quartiles by linear interpolation)."""
+    v = np.asarray(values, dtype=float)
+    v = v[np.isfinite(v)]
+    q1, q3 = np.percentile(v, [25, 75])
+    iqr = q3 - q1
+    return float(q1 - k * iqr), float(q3 + k * iqr)
+
+
+def physical_findings(wells: pd.DataFrame, source: str = "wells") -> list[Finding]:
+    """Values that cannot be physical, named with their wells."""
+    found = []
+    ids = wells["well_id"].astype(str).to_numpy()
+
+    def flag(mask, column, message, severity: Severity = "error"):
+        if np.any(mask):
+            found.append(Finding(severity, "non-physical", column, f"{source}: column {column!r} {message} at "
+                                 f"{list_rows(ids[mask])}", list(ids[mask])))
+
+    if "porosity" in wells:
+        phi = wells["porosity"].to_numpy(dtype=float)
+        flag(phi < 0, "porosity", "is negative (porosity is a fraction in [0, 1])")
+        flag(phi > 1, "porosity", "is above 1 (porosity is a fraction in [0, 1])")
+        flag(np.isinf(phi), "porosity", "is infinite")
+    if "permeability" in wells:
+        k = wells["permeability"].to_numpy(dtype=float)
+        flag(k <= 0, "permeability", "is zero or negative (permeability in mD must be > 0; "
+             "log10 of it is modelled)")
+        flag(np.isinf(k), "permeability", "is infinite")
+        finite = k[np.isfinite(k) & (k > 0)]
+        if finite.size and np.median(finite) < 1e-9:
+            found.append(Finding("error", "units", "permeability",
+                                 f"{source}: permeability median {np.median(finite):.3g} looks like m2, "
+                                 "not mD; convert (1 mD = 9.869e-16 m2)"))
+    for col in numeric_properties(wells):
+        if col in ("porosity", "permeability"):
+            continue
+        v = wells[col].to_numpy(dtype=float)
+        if any(h in col.lower() for h in POSITIVE_HINTS):
+            flag(v <= 0, col, "is zero or negative where it must be positive")
+    return found
+
+
+def grid_findings(grid: xr.Dataset) -> list[Finding]:
+    """Attributes that must be positive but are not; units hints for impedance."""
+    found = []
+    for var in grid.data_vars:
+        v = grid[var].to_numpy()
+        finite = v[np.isfinite(v)]
+        source = grid.attrs.get("source", "grid")
+        if finite.size == 0:
+            found.append(Finding("error", "empty attribute", var, f"{source}: attribute {var!r} has no values"))
+            continue
+        if any(h in var.lower() for h in POSITIVE_HINTS) and (finite <= 0).any():
+            found.append(Finding("error", "non-physical", var,
+                                 f"{source}: attribute {var!r} has {(finite <= 0).sum()} nodes <= 0 where it must be positive"))
+        if "imped" in var.lower():
+            med = float(np.median(finite))
+            if 1e6 <= med <= 3e7:
+                unit = "kg/(m2 s) (SI)"
+            elif 1e3 <= med <= 3e4:
+                unit = "m/s x g/cm3 (or ft/s x g/cm3)"
+            else:
+                unit = None
+            msg = (f"attribute {var!r} median {med:.4g} suggests units of {unit}" if unit else
+                   f"attribute {var!r} median {med:.4g} is unusual for impedance; check the units")
+            found.append(Finding("note" if unit else "warning", "units", var, msg))
+        if np.nanstd(finite) == 0:
+            found.append(Finding("error", "constant attribute", var,
+                                 f"{source}: attribute {var!r} is constant; it cannot inform a model"))
+    return found
+
+
+def duplicate_findings(wells: pd.DataFrame, tolerance: float = 1.0) -> list[Finding]:
+    """Wells with the same id, or closer than ``tolerance`` metres to another well."""
+    found = []
+    ids = wells["well_id"].astype(str)
+    dup = ids[ids.duplicated(keep=False)]
+    if len(dup):
+        found.append(Finding("warning", "duplicates", "well_id",
+                             f"well ids used more than once: {list_rows(sorted(set(dup)))}", sorted(set(dup))))
+    pts = wells[["x", "y"]].to_numpy(dtype=float)
+    pairs = sorted(cKDTree(pts).query_pairs(r=tolerance)) if len(pts) > 1 else []
+    if pairs:
+        names = [f"{ids.iloc[i]}={ids.iloc[j]}" for i, j in pairs]
+        found.append(Finding("warning", "duplicates", "x,y",
+                             f"wells within {tolerance:g} m of each other: {list_rows(names)}; "
+                             "merge them or check the coordinates", names))
+    return found
+
+
+def outlier_findings(wells: pd.DataFrame, columns: list[str], facies: str | None = "facies",
+                     k: float = 1.5) -> list[Finding]:
+    """Values outside the Tukey fences of their own facies (flagged, not removed)."""
+    found = []
+    groups = (wells.groupby(wells[facies].astype(str)) if facies and facies in wells
+              else [("all", wells)])
+    for label, frame in groups:
+        for col in columns:
+            v = frame[col].to_numpy(dtype=float)
+            if np.isfinite(v).sum() < 4:
+                continue
+            if col == "permeability":  # log-normal-like: fence the logarithm (common practice)
+                v = np.log10(np.where(v > 0, v, np.nan))
+            lo, hi = tukey_fences(v, k)
+            out = (v < lo) | (v > hi)
+            if out.any():
+                names = list(frame["well_id"].astype(str).to_numpy()[out])
+                scale = " (log10)" if col == "permeability" else ""
+                found.append(Finding("warning", "outliers", col,
+                                     f"{col}{scale} outside the Tukey fences [{lo:.4g}, {hi:.4g}] of facies "
+                                     f"{label}: {list_rows(names)}; review, they are kept", names))
+    return found
+
+
+def pooled_t_from_moments(n1, mean1, sd1, n2, mean2, sd2) -> tuple[float, float, float]:
+    """Two-sample t statistic with pooled variance, its degrees of freedom and two-sided p-value."""
+    dof = n1 + n2 - 2
+    sp2 = ((n1 - 1) * sd1**2 + (n2 - 1) * sd2**2) / dof
+    t = (mean1 - mean2) / np.sqrt(sp2 * (1.0 / n1 + 1.0 / n2))
+    p = 2.0 * sps.t.sf(abs(t), dof)
+    return float(t), float(dof), float(p)
+
+
+def bias_test(at_wells, over_map, attribute: str = "attribute", alpha: float = 0.05) -> dict:
+    """Compare an attribute at the wells with its values over the whole map.
+
+    Pooled-variance two-sample t-test, two-sample Kolmogorov-Smirnov test (scipy), effect
+    size (Cohen's d with the pooled sd) and a verdict in plain words.
+    """
+    a = np.asarray(at_wells, dtype=float)
+    b = np.asarray(over_map, dtype=float)
+    a, b = a[np.isfinite(a)], b[np.isfinite(b)]
+    if a.size < 3:
+        raise InputError(f"the bias test needs at least 3 wells with a value of {attribute!r}; got {a.size}")
+    t, dof, p_t = pooled_t_from_moments(a.size, a.mean(), a.std(ddof=1), b.size, b.mean(), b.std(ddof=1))
+    ks = sps.ks_2samp(a, b)
+    sp = np.sqrt(((a.size - 1) * a.var(ddof=1) + (b.size - 1) * b.var(ddof=1)) / dof)
+    d = float((a.mean() - b.mean()) / sp) if sp > 0 else 0.0
+    biased = (p_t < alpha or ks.pvalue < alpha) and abs(d) >= 0.2
+    side = "lower" if d < 0 else "higher"
+    if biased:
+        verdict = (f"The wells sample {side} {attribute} than the map (well mean {a.mean():.4g} vs map mean "
+                   f"{b.mean():.4g}; effect size d = {d:+.2f}; t-test p = {p_t:.2g}; KS p = {ks.pvalue:.2g}): "
+                   "drilling was preferential, so raw well statistics are biased; use declustering weights.")
+    else:
+        verdict = (f"No clear difference between {attribute} at the wells and over the map (d = {d:+.2f}; "
+                   f"t-test p = {p_t:.2g}; KS p = {ks.pvalue:.2g}); the wells look representative of this attribute.")
+    return {
+        "attribute": attribute, "n_wells": int(a.size), "n_map": int(b.size),
+        "mean_wells": float(a.mean()), "mean_map": float(b.mean()),
+        "sd_wells": float(a.std(ddof=1)), "sd_map": float(b.std(ddof=1)),
+        "t": t, "dof": dof, "p_t": p_t, "ks_d": float(ks.statistic), "p_ks": float(ks.pvalue),
+        "effect_size_d": d, "biased": bool(biased), "verdict": verdict,
+    }
+
+
+@dataclass
+class QCReport:
+    findings: list[Finding]
+    summary: dict
+    bias: dict
+    columns_taken: dict
+
+    @property
+    def errors(self) -> list[Finding]:
+        return [f for f in self.findings if f.severity == "error"]
+
+    def to_dict(self) -> dict:
+        return {"findings": [asdict(f) for f in self.findings], "summary": self.summary,
+                "bias": self.bias, "columns_taken": self.columns_taken}
+
+    def lines(self) -> list[str]:
+        out = [f"columns taken: {self.columns_taken}"]
+        out += [f.line() for f in self.findings]
+        out += [f"drilling bias ({name}): {b['verdict']}" for name, b in self.bias.items()]
+        return out
+
+
+def run_qc(wells: pd.DataFrame, grid: xr.Dataset, tolerance: float = 1.0) -> QCReport:
+    """All checks on a wells table and its seismic grid."""
+    source = wells.attrs.get("source", "wells")
+    columns = numeric_properties(wells)
+    findings = physical_findings(wells, source) + grid_findings(grid) + duplicate_findings(wells, tolerance)
+    findings += outlier_findings(wells, columns)
+    if "facies" in wells:
+        counts = wells["facies"].dropna().astype(str).value_counts()
+        if len(counts) == 1:
+            findings.append(Finding("warning", "facies", "facies",
+                                    f"only one facies ({counts.index[0]}) in {source}; a facies model needs two or more"))
+        rare = counts[counts < 3]
+        if len(rare) and len(counts) > 1:
+            findings.append(Finding("warning", "facies", "facies",
+                                    f"facies with fewer than 3 wells: {', '.join(f'{k} ({v})' for k, v in rare.items())}; "
+                                    "spatial CV cannot score them reliably"))
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", PredictorWarning)
+        sampled, _ = sample_at(grid, wells["x"], wells["y"], wells["well_id"], drop_outside=True)
+    findings += [Finding("warning", "wells vs grid", None, str(w.message)) for w in caught]
+    bias = {var: bias_test(sampled[var], grid[var].to_numpy().ravel(), var) for var in grid.data_vars}
+    return QCReport(findings, summarise(wells, columns), bias, wells.attrs.get("columns_taken", {}))

@@ -1,0 +1,189 @@
+"""Synthetic fields with exhaustive truth, for the demo and for accuracy experiments.
+
+The scenario is invented: the *Tarnwick* field, a fluvial channel sandstone reservoir in the
+(equally invented) Oster Basin.  Sand bodies (sinuous channels with silty margins, or lobes)
+sit in shale; porosity varies by facies with spatial correlation; acoustic impedance comes
+from the Raymer-Hunt-Gardner velocity and a mass-balance density, blurred and noisy like an
+inverted seismic map, with a regional trend that has nothing to do with porosity;
+permeability is log-normal and follows porosity; wells are drilled preferentially in the
+high-porosity rock, plus a few on a sparse regular pattern.
+"""
+
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass
+from typing import Literal
+
+import numpy as np
+import pandas as pd
+import xarray as xr
+from scipy.ndimage import gaussian_filter
+
+from .rockphysics import mass_balance_density, raymer_velocity
+
+FACIES = ("shale", "silt", "sand")  # codes 0, 1, 2
+# per facies: mean porosity, porosity sd, matrix velocity (m/s), grain density (g/cm3)
+ROCK = {
+    "shale": (0.07, 0.02, 4800.0, 2.70),
+    "silt": (0.16, 0.025, 5300.0, 2.67),
+    "sand": (0.25, 0.03, 5850.0, 2.65),
+}
+V_BRINE, RHO_BRINE = 1550.0, 1.03
+
+
+@dataclass
+class FieldSpec:
+    """Geometry and drilling of a synthetic field; every random step follows ``seed``."""
+
+    seed: int = 7
+    nx: int = 120
+    ny: int = 100
+    spacing: float = 25.0
+    x0: float = 512_000.0
+    y0: float = 7_204_000.0
+    geometry: Literal["channels", "lobes"] = "channels"
+    n_bodies: int = 4
+    body_width: float = 260.0
+    azimuth: float = 20.0  # degrees from the x axis, main direction of the sand bodies
+    correlation_length: float = 300.0  # porosity texture within facies (m)
+    n_preferential: int = 40
+    drilling_strength: float = 1.5  # 0: random drilling; larger: wells crowd the best rock
+    regular_pattern: tuple[int, int] = (5, 4)
+    seismic_blur: float = 1.5  # Gaussian blur of the inverted impedance, in cells
+    seismic_noise: float = 0.03  # relative noise of the impedance
+    trend: float = 0.06  # relative regional impedance change across the map, unrelated to porosity
+
+
+def _random_field(rng, shape, length_cells):
+    field = gaussian_filter(rng.standard_normal(shape), sigma=max(length_cells / 2.0, 0.5), mode="wrap")
+    return (field - field.mean()) / field.std()
+
+
+def _facies(spec: FieldSpec, rng, xx, yy) -> np.ndarray:
+    theta = np.deg2rad(spec.azimuth)
+    u = (xx - xx.mean()) * np.cos(theta) + (yy - yy.mean()) * np.sin(theta)
+    v = -(xx - xx.mean()) * np.sin(theta) + (yy - yy.mean()) * np.cos(theta)
+    codes = np.zeros(xx.shape, dtype=np.int8)
+    span = max(np.ptp(u), np.ptp(v))
+    for _ in range(spec.n_bodies):
+        width = spec.body_width * rng.uniform(0.7, 1.3)
+        if spec.geometry == "channels":
+            centre = rng.uniform(-0.45, 0.45) * np.ptp(v)
+            amplitude = rng.uniform(0.05, 0.12) * span
+            wavelength = rng.uniform(0.4, 0.8) * span
+            phase = rng.uniform(0, 2 * np.pi)
+            distance = np.abs(v - centre - amplitude * np.sin(2 * np.pi * u / wavelength + phase))
+        else:
+            cu, cv = rng.uniform(-0.4, 0.4) * np.ptp(u), rng.uniform(-0.4, 0.4) * np.ptp(v)
+            distance = np.hypot((u - cu) / 2.5, v - cv)
+        codes = np.where(distance < width, np.maximum(codes, 1), codes)
+        codes = np.where(distance < width / 2, 2, codes)
+    return codes
+
+
+def make_field(spec: FieldSpec | None = None) -> tuple[xr.Dataset, xr.Dataset, pd.DataFrame]:
+    """Build one field.
+
+    Returns
+    -------
+    seismic : Dataset (y, x) with the observed ``impedance`` only
+    truth : Dataset (y, x) with ``facies`` (codes, CF flag meanings), ``porosity``,
+        ``permeability`` (mD) and the noise-free ``impedance_true``
+    wells : DataFrame with well_id, x, y, facies (labels), porosity, permeability
+    """
+    spec = spec or FieldSpec()
+    rng = np.random.default_rng(spec.seed)
+    xs = spec.x0 + spec.spacing * np.arange(spec.nx)
+    ys = spec.y0 + spec.spacing * np.arange(spec.ny)
+    xx, yy = np.meshgrid(xs, ys)
+    codes = _facies(spec, rng, xx, yy)
+    texture = _random_field(rng, xx.shape, spec.correlation_length / spec.spacing)
+    porosity = np.zeros(xx.shape)
+    v_matrix = np.zeros(xx.shape)
+    rho_matrix = np.zeros(xx.shape)
+    for code, name in enumerate(FACIES):
+        mean, sd, vm, rm = ROCK[name]
+        here = codes == code
+        porosity[here] = mean + sd * texture[here]
+        v_matrix[here], rho_matrix[here] = vm, rm
+    porosity = np.clip(porosity, 0.01, 0.35)
+    velocity = raymer_velocity(porosity, v_matrix, V_BRINE)
+    density = mass_balance_density(porosity, rho_matrix, RHO_BRINE)
+    impedance_true = velocity * density
+    # an inverted seismic map: band-limited, noisy, with a regional trend unrelated to the rock
+    blurred = gaussian_filter(impedance_true, sigma=spec.seismic_blur, mode="nearest")
+    noise = gaussian_filter(rng.standard_normal(xx.shape), sigma=1.0)
+    noise = noise / noise.std() * spec.seismic_noise * impedance_true.mean()
+    ramp = spec.trend * impedance_true.mean() * ((xx - xs.mean()) / np.ptp(xs) + 0.5 * (yy - ys.mean()) / np.ptp(ys))
+    impedance = blurred + noise + ramp
+    log_perm = -1.3 + 13.0 * porosity - 0.4 * (codes == 0) + 0.25 * _random_field(rng, xx.shape, 2.0)
+    permeability = 10.0 ** log_perm
+
+    wells = _drill(spec, rng, xs, ys, porosity)
+    iy = np.round((wells["y"].to_numpy() - spec.y0) / spec.spacing).astype(int)
+    ix = np.round((wells["x"].to_numpy() - spec.x0) / spec.spacing).astype(int)
+    wells["facies"] = [FACIES[c] for c in codes[iy, ix]]
+    # core-plug scale measurements scatter a little around the cell value
+    wells["porosity"] = np.round(np.clip(porosity[iy, ix] + rng.normal(0, 0.005, iy.size), 0.005, 0.4), 4)
+    wells["permeability"] = np.round(permeability[iy, ix] * 10 ** rng.normal(0, 0.05, iy.size), 3)
+
+    coords = {"x": xs, "y": ys}
+    attrs = {"field": "Tarnwick (synthetic)", "generator": "predictor.synthetic.make_field",
+             "spec": str(asdict(spec))}
+    seismic = xr.Dataset({"impedance": (("y", "x"), np.round(impedance, 2))}, coords=coords, attrs=attrs)
+    seismic["impedance"].attrs.update(units="m/s*g/cm3", long_name="acoustic impedance (inverted)")
+    truth = xr.Dataset(
+        {
+            "facies": (("y", "x"), codes.astype(np.int8)),
+            "porosity": (("y", "x"), porosity),
+            "permeability": (("y", "x"), permeability),
+            "impedance_true": (("y", "x"), impedance_true),
+        },
+        coords=coords,
+        attrs=attrs,
+    )
+    truth["facies"].attrs.update(flag_values=np.arange(len(FACIES), dtype=np.int8), flag_meanings=" ".join(FACIES))
+    truth["porosity"].attrs.update(units="1")
+    truth["permeability"].attrs.update(units="mD")
+    return seismic, truth, wells
+
+
+def _drill(spec: FieldSpec, rng, xs, ys, porosity) -> pd.DataFrame:
+    """Preferential wells where (smoothed) porosity is high, plus a sparse regular pattern."""
+    smooth = gaussian_filter(porosity, sigma=3)
+    score = (smooth - smooth.mean()) / smooth.std()
+    prob = np.exp(spec.drilling_strength * score).ravel()
+    prob /= prob.sum()
+    picks = rng.choice(prob.size, size=spec.n_preferential, replace=False, p=prob)
+    iy, ix = np.unravel_index(picks, porosity.shape)
+    px = xs[ix] + rng.uniform(-0.4, 0.4, ix.size) * spec.spacing
+    py = ys[iy] + rng.uniform(-0.4, 0.4, iy.size) * spec.spacing
+    nrx, nry = spec.regular_pattern
+    gx = np.linspace(xs[0], xs[-1], nrx + 2)[1:-1]
+    gy = np.linspace(ys[0], ys[-1], nry + 2)[1:-1]
+    rx, ry = (a.ravel() for a in np.meshgrid(gx, gy))
+    x = np.concatenate([px, rx])
+    y = np.concatenate([py, ry])
+    ids = [f"TW-{i + 1:02d}" for i in range(x.size)]
+    return pd.DataFrame({"well_id": ids, "x": np.round(x, 1), "y": np.round(y, 1)})
+
+
+def demo_files(folder, spec: FieldSpec | None = None) -> dict[str, str]:
+    """Write the demo files into ``folder``: wells.csv, seismic.csv, seismic.nc, truth.nc."""
+    from pathlib import Path
+
+    from .grid import node_table
+    from .io.atomic import atomic_file
+    from .io.netcdf import write_netcdf
+
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    seismic, truth, wells = make_field(spec)
+    paths = {name: folder / name for name in ("wells.csv", "seismic.csv", "seismic.nc", "truth.nc")}
+    with atomic_file(paths["wells.csv"]) as tmp:
+        wells.to_csv(tmp, index=False, lineterminator="\n")
+    with atomic_file(paths["seismic.csv"]) as tmp:
+        node_table(seismic).to_csv(tmp, index=False, lineterminator="\n", float_format="%.2f")
+    write_netcdf(seismic, paths["seismic.nc"])
+    write_netcdf(truth, paths["truth.nc"])
+    return {k: str(v) for k, v in paths.items()}

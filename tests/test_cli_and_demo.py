@@ -1,0 +1,66 @@
+"""The command line and the bundled demo field."""
+
+import json
+import subprocess
+import sys
+
+import numpy as np
+import pandas as pd
+import xarray as xr
+from conftest import DEMO, write
+
+from predictor.cli import main
+from predictor.synthetic import FieldSpec, demo_files
+
+
+def test_bundled_demo_files_match_the_generator(tmp_path):
+    demo_files(tmp_path, FieldSpec())
+    for name in ("wells.csv", "seismic.csv"):
+        assert (tmp_path / name).read_bytes() == (DEMO / name).read_bytes(), name
+    for name in ("seismic.nc", "truth.nc"):
+        xr.testing.assert_identical(xr.load_dataset(tmp_path / name), xr.load_dataset(DEMO / name))
+
+
+def test_qc_command_prints_bias_verdict(tmp_path, capsys, demo_paths):
+    code = main(["qc", "--wells", str(demo_paths["wells"]), "--grid", str(demo_paths["grid"]),
+                 "--json", str(tmp_path / "qc.json"), "--figures", str(tmp_path / "fig")])
+    out = capsys.readouterr().out
+    assert code == 0
+    assert "The wells sample lower impedance than the map" in out
+    record = json.loads((tmp_path / "qc.json").read_text())
+    assert record["declustering"]["direction"] == "minimum"
+    weights = np.array(list(record["declustering"]["weights"].values()))
+    assert abs(weights.sum() - len(weights)) < 1e-9
+    assert {p.name for p in (tmp_path / "fig").iterdir()} >= {"wells_on_map.png", "bias_impedance.png",
+                                                              "declustering_curve.png", "facies_distributions.png"}
+
+
+def test_qc_with_nonphysical_values_exits_2(tmp_path, capsys, demo_paths):
+    wells = pd.read_csv(demo_paths["wells"])
+    wells.loc[3, "permeability"] = -5
+    path = tmp_path / "w.csv"
+    wells.to_csv(path, index=False)
+    code = main(["qc", "--wells", str(path), "--grid", str(demo_paths["grid"])])
+    captured = capsys.readouterr()
+    assert code == 2
+    assert "'permeability' is zero or negative" in captured.out and "TW-04" in captured.out
+    assert "QC found 1 error" in captured.err
+
+
+def test_bad_input_is_one_line_exit_2(tmp_path):
+    bad = write(tmp_path / "w.csv", "x,y,porosity\n1,2,25\n3,4,30\n")
+    proc = subprocess.run([sys.executable, "-m", "predictor.cli", "qc", "--wells", str(bad),
+                           "--grid", str(DEMO / "seismic.csv"), "--json", str(tmp_path / "qc.json")],
+                          capture_output=True, text=True)
+    assert proc.returncode == 2
+    assert proc.stderr.count("\n") == 1 and "Traceback" not in proc.stderr
+    assert "--porosity-percent" in proc.stderr
+    assert not (tmp_path / "qc.json").exists()
+    assert not list(tmp_path.glob(".*part"))
+
+
+def test_demo_runs_and_declusters(tmp_path, capsys):
+    assert main(["demo", "--out", str(tmp_path / "out")]) == 0
+    out = capsys.readouterr().out
+    assert "declustered" in out and (tmp_path / "out" / "qc.json").exists()
+    assert main(["demo", "--out", str(tmp_path / "out")]) == 2  # refuses to overwrite

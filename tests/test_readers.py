@@ -1,0 +1,156 @@
+"""Readers: accepted variations and clear errors on bad input."""
+
+import numpy as np
+import pandas as pd
+import pytest
+import xarray as xr
+from conftest import write
+from scipy.interpolate import RegularGridInterpolator
+
+from predictor.errors import InputError, PredictorWarning
+from predictor.grid import grid_from_table, read_grid, sample_at
+from predictor.io.netcdf import write_netcdf
+from predictor.io.tables import read_table, read_wells
+
+WELLS = "well,X,Y,facies,porosity,permeability\nA,10,20,sand,0.25,100\nB,30,40,shale,0.08,0.5\nC,50,10,sand,0.22,80\n"
+
+
+@pytest.mark.parametrize("encoding,newline,delimiter", [
+    ("utf-8", "\n", ","), ("utf-8-sig", "\r\n", ","), ("utf-8", "\n", ";"), ("utf-8-sig", "\n", ";")])
+def test_wells_variations_read_alike(tmp_path, encoding, newline, delimiter):
+    text = WELLS.replace(",", delimiter)
+    wells = read_wells(write(tmp_path / "w.csv", text, encoding, newline))
+    assert list(wells.well_id) == ["A", "B", "C"]
+    assert wells.x.tolist() == [10, 30, 50]
+    assert wells.porosity.tolist() == [0.25, 0.08, 0.22]
+    assert wells.attrs["columns_taken"] == {"x": "X", "y": "Y"}
+
+
+def test_easting_northing_and_extra_columns(tmp_path):
+    text = "Easting,Northing,facies,porosity,comment\n1,2,1,0.1,ok\n3,4,2,0.2,fine\n"
+    wells = read_wells(write(tmp_path / "w.csv", text))
+    assert wells.attrs["columns_taken"] == {"x": "Easting", "y": "Northing"}
+    assert wells.facies.tolist() == [1, 2]  # integer codes kept as given
+    assert wells.comment.tolist() == ["ok", "fine"]
+
+
+def test_named_columns(tmp_path):
+    text = "E_utm,N_utm,porosity\n1,2,0.1\n3,4,0.2\n"
+    wells = read_wells(write(tmp_path / "w.csv", text), x="e_utm", y="N_UTM")
+    assert wells.y.tolist() == [2, 4]
+
+
+def test_parquet(tmp_path):
+    frame = pd.DataFrame({"x": [1.0, 2.0], "y": [3.0, 4.0], "porosity": [0.1, 0.2]})
+    frame.to_parquet(tmp_path / "w.parquet")
+    assert read_wells(tmp_path / "w.parquet").porosity.tolist() == [0.1, 0.2]
+
+
+@pytest.mark.parametrize("text,match", [
+    ("", "empty"),
+    ("x,y,porosity\n", "no data rows"),
+    ("x,y,porosity\n1,2,abc\n3,4,0.2\n", r"'porosity' has values that are not numbers at row1 \(line 2\)"),
+    ("x,y,porosity\n1,nan,0.1\n3,4,0.2\n", r"coordinate column 'y' is missing, NaN or infinite at row1 \(line 2\)"),
+    ("x,y,porosity\ninf,1,0.1\n3,4,0.2\n", "NaN or infinite"),
+    ("x,y,porosity\n1,2,12.5\n3,4,22\n", r"looks like percent.*--porosity-percent"),
+    ("east_m,north_m,porosity\n1,2,0.1\n", r"no column for the x coordinate.*columns are east_m, north_m, porosity"),
+    ("x,y,porosity\n1,2,0.1,7\n3,4\n", r"line 2, line 3 \(2 rows\) do not have the header's 3 fields"),
+])
+def test_bad_wells(tmp_path, text, match):
+    with pytest.raises(InputError, match=match):
+        read_wells(write(tmp_path / "w.csv", text))
+
+
+def test_garbage_bytes(tmp_path):
+    path = tmp_path / "w.csv"
+    path.write_bytes(bytes(range(256)) * 4)
+    with pytest.raises(InputError, match="binary"):
+        read_wells(path)
+
+
+def test_percent_option_converts(tmp_path):
+    wells = read_wells(write(tmp_path / "w.csv", "x,y,porosity\n1,2,12.5\n3,4,22\n"), porosity_percent=True)
+    assert wells.porosity.tolist() == [0.125, 0.22]
+
+
+def test_missing_file(tmp_path):
+    with pytest.raises(InputError, match="file not found"):
+        read_table(tmp_path / "nope.csv")
+
+
+def _grid_text(rows):
+    return "x,y,impedance\n" + "\n".join(f"{x},{y},{v}" for x, y, v in rows) + "\n"
+
+
+def test_grid_lattice_detected_with_gaps(tmp_path):
+    rows = [(100 + 10 * i, 200 + 5 * j, 1000 + i + 10 * j) for i in range(4) for j in range(3) if (i, j) != (2, 1)]
+    grid = read_grid(write(tmp_path / "g.csv", _grid_text(rows)))
+    assert grid.impedance.dims == ("y", "x")
+    assert grid.x.values.tolist() == [100, 110, 120, 130]
+    assert grid.y.values.tolist() == [200, 205, 210]
+    assert np.isnan(grid.impedance.sel(x=120, y=205))
+    assert float(grid.impedance.sel(x=130, y=210)) == 1000 + 3 + 20
+
+
+def test_grid_off_lattice(tmp_path):
+    rows = [(0, 0, 1), (10, 0, 2), (20, 0, 3), (0, 10, 4), (13, 10, 5), (20, 10, 6)]
+    with pytest.raises(InputError, match=r"not on a regular lattice: column 'x' at line 6"):
+        read_grid(write(tmp_path / "g.csv", _grid_text(rows)))
+
+
+def test_grid_needs_attribute(tmp_path):
+    with pytest.raises(InputError, match="no attribute columns"):
+        read_grid(write(tmp_path / "g.csv", "x,y\n0,0\n1,0\n0,1\n1,1\n"))
+
+
+def test_netcdf_round_trip_and_truncated(tmp_path):
+    ds = xr.Dataset({"impedance": (("y", "x"), np.arange(12.0).reshape(3, 4))},
+                    coords={"x": [0.0, 1, 2, 3], "y": [10.0, 11, 12]})
+    path = write_netcdf(ds, tmp_path / "g.nc")
+    back = read_grid(path)
+    np.testing.assert_array_equal(back.impedance.values, ds.impedance.values)
+    assert xr.open_dataset(path).attrs["Conventions"] == "CF-1.8"
+    broken = tmp_path / "broken.nc"
+    broken.write_bytes(path.read_bytes()[:200])
+    with pytest.raises(InputError, match="not a readable NetCDF"):
+        read_grid(broken)
+
+
+def test_descending_netcdf_coordinates_are_flipped(tmp_path):
+    ds = xr.Dataset({"impedance": (("y", "x"), np.arange(6.0).reshape(2, 3))},
+                    coords={"x": [0.0, 1, 2], "y": [11.0, 10.0]})
+    back = read_grid(write_netcdf(ds, tmp_path / "g.nc"))
+    assert back.y.values.tolist() == [10.0, 11.0]
+    assert back.impedance.values[0].tolist() == [3.0, 4.0, 5.0]
+
+
+def test_bilinear_sampling_matches_scipy():
+    # reference library: scipy.interpolate.RegularGridInterpolator (linear) on a full grid
+    rng = np.random.default_rng(0)
+    xs, ys = np.arange(0, 100, 10.0), np.arange(0, 50, 5.0)
+    values = rng.normal(size=(ys.size, xs.size))
+    grid = xr.Dataset({"a": (("y", "x"), values)}, coords={"x": xs, "y": ys})
+    px, py = rng.uniform(0, 90, 50), rng.uniform(0, 45, 50)
+    ours, kept = sample_at(grid, px, py)
+    ref = RegularGridInterpolator((ys, xs), values)(np.column_stack([py, px]))
+    assert kept.all()
+    np.testing.assert_allclose(ours["a"].to_numpy(), ref, atol=1e-12)
+    nearest, _ = sample_at(grid, [21.0], [12.0], method="nearest")
+    assert nearest["a"].iloc[0] == values[2, 2]
+
+
+def test_sampling_outside_names_wells():
+    grid = xr.Dataset({"a": (("y", "x"), np.ones((3, 3)))}, coords={"x": [0.0, 1, 2], "y": [0.0, 1, 2]})
+    grid["a"][1, 1] = np.nan
+    with pytest.raises(InputError, match=r"outside the grid: far \(1 row\).*no attribute value \(NaN\): gap"):
+        sample_at(grid, [0.5, 9.0, 1.1], [0.5, 0.0, 0.9], labels=["ok", "far", "gap"])
+    with pytest.warns(PredictorWarning, match="left out wells"):
+        values, kept = sample_at(grid, [0.5, 9.0], [0.5, 0.0], labels=["ok", "far"], drop_outside=True)
+    assert kept.tolist() == [True, False] and values["a"].tolist() == [1.0]
+
+
+def test_grid_from_table_duplicate_nodes():
+    frame = pd.DataFrame({"x": [0, 1, 0, 1, 1], "y": [0, 0, 1, 1, 1], "a": [1, 2, 3, 4, 5]})
+    frame.attrs["source"] = "g.csv"
+    with pytest.raises(InputError, match="appear twice"):
+        grid_from_table(frame)
