@@ -35,6 +35,41 @@ def build_parser() -> argparse.ArgumentParser:
     qc.add_argument("--duplicate-distance", type=float, default=1.0,
                     help="wells closer than this (m) count as duplicates (default 1)")
 
+    tr = sub.add_parser("train", help="train facies/porosity/permeability models with spatial CV; write a bundle")
+    _wells_options(tr)
+    tr.add_argument("--target", action="append", required=True,
+                    help="well column to model (repeat for several: --target porosity --target facies)")
+    tr.add_argument("--out", required=True, help="bundle folder to write (refused if it exists, see --overwrite)")
+    tr.add_argument("--overwrite", action="store_true", help="replace an existing bundle folder")
+    tr.add_argument("--attribute", action="append", help="grid attribute to use as a feature (default: all)")
+    tr.add_argument("--context-radius", action="append", type=float, default=[],
+                    help="add smoothed and local-contrast features at this radius in metres (repeatable)")
+    tr.add_argument("--gradient", action="store_true", help="add the gradient magnitude of each attribute")
+    tr.add_argument("--location", action="store_true",
+                    help="add coordinate features (off by default: they let a model memorise the wells)")
+    tr.add_argument("--folds", type=int, default=5, help="number of spatial CV folds (default 5)")
+    tr.add_argument("--block-size", type=float, help="CV block side in metres (default: fitted variogram range)")
+    tr.add_argument("--block-angle", type=float, default=0.0, help="rotation of the CV blocks in degrees")
+    tr.add_argument("--cv", choices=["blocks", "buffered"], default="blocks",
+                    help="block k-fold, or buffered leave-one-out with the block size as exclusion radius")
+    tr.add_argument("--declustering", choices=["cell", "nearest_node", "none"], default="cell",
+                    help="declustering weights used as sample weights and score weights (default cell)")
+    tr.add_argument("--monotone", action="store_true",
+                    help="also try LightGBM constrained to be non-increasing in impedance")
+    tr.add_argument("--well-ties", choices=["auto", "always", "never"], default="auto",
+                    help="krige out-of-fold residuals onto the map: when CV shows it helps (auto), always, never")
+    tr.add_argument("--interval-spread", choices=["none", "kriging"], default="none",
+                    help="scale intervals by the well-tie kriging standard deviation (narrow near wells)")
+    tr.add_argument("--drop-outside", action="store_true", help="leave out wells off the grid, with a warning")
+    tr.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
+    tr.add_argument("--threads", type=int, default=1, help="LightGBM threads (default 1; results do not depend on it)")
+
+    pr = sub.add_parser("predict", help="map every target of a bundle on a grid (CSV or NetCDF by extension)")
+    pr.add_argument("bundle", help="bundle folder written by `predictor train`")
+    pr.add_argument("--grid", required=True, help="grid with the attributes the bundle was trained on")
+    pr.add_argument("--out", required=True, help="maps file: .csv or .nc")
+    pr.add_argument("--overwrite", action="store_true", help="replace an existing maps file")
+
     demo = sub.add_parser("demo", help="run the whole job on the bundled synthetic Tarnwick field")
     demo.add_argument("--out", default="demo_output", help="output folder (default demo_output)")
     demo.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
@@ -61,6 +96,35 @@ def _cmd_qc(args) -> int:
     return 0
 
 
+def _cmd_train(args) -> int:
+    from .workflow import train_files
+
+    trained, folder = train_files(args.wells, args.grid, args.out, targets=args.target,
+                                  attributes=args.attribute, context_radii=args.context_radius,
+                                  gradient=args.gradient, location=args.location, n_splits=args.folds,
+                                  block_size=args.block_size, block_angle=args.block_angle, cv=args.cv,
+                                  declustering=args.declustering, monotone=args.monotone, well_ties=args.well_ties,
+                                  interval_spread=args.interval_spread, drop_outside=args.drop_outside,
+                                  seed=args.seed, n_threads=args.threads, porosity_percent=args.porosity_percent,
+                                  x=args.x_column, y=args.y_column, overwrite=args.overwrite)
+    from .workflow import leaderboard_lines
+
+    for line in leaderboard_lines(trained):
+        print(line)
+    for note in trained.warnings:
+        print(f"note: {note}")
+    print(f"bundle: {folder}")
+    return 0
+
+
+def _cmd_predict(args) -> int:
+    from .workflow import predict_files
+
+    path = predict_files(args.bundle, args.grid, args.out, overwrite=args.overwrite)
+    print(f"maps: {path}")
+    return 0
+
+
 def _cmd_demo(args) -> int:
     from .demo import run_demo
 
@@ -70,7 +134,7 @@ def _cmd_demo(args) -> int:
     return 0
 
 
-COMMANDS = {"qc": _cmd_qc, "demo": _cmd_demo}
+COMMANDS = {"qc": _cmd_qc, "train": _cmd_train, "predict": _cmd_predict, "demo": _cmd_demo}
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -1,0 +1,150 @@
+"""Model bundles on disk: LightGBM text models, JSON descriptions and ``model_card.json``.
+
+Nothing is pickled.  The card lists the SHA-256 of every other file; loading checks each one
+and refuses a bundle with a missing or altered file or an unknown schema version.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import platform
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from . import __version__
+from .errors import BundleError
+from .features import FeatureSpec
+from .intervals import IntervalCalibration
+from .io.atomic import atomic_folder
+from .io.jsonfile import dumps, plain
+from .models import load_candidate
+
+SCHEMA_VERSION = 1
+CARD = "model_card.json"
+
+
+def sha256(path: Path) -> str:
+    digest = hashlib.sha256()
+    with open(path, "rb") as handle:
+        for chunk in iter(lambda: handle.read(1 << 20), b""):
+            digest.update(chunk)
+    return digest.hexdigest()
+
+
+def package_versions() -> dict:
+    import lightgbm
+    import pandas
+    import scipy
+    import sklearn
+    import xarray
+
+    return {"predictor": __version__, "python": platform.python_version(), "numpy": np.__version__,
+            "scipy": scipy.__version__, "pandas": pandas.__version__, "scikit-learn": sklearn.__version__,
+            "lightgbm": lightgbm.__version__, "xarray": xarray.__version__}
+
+
+def model_card(trained, inputs: dict | None = None) -> dict:
+    """The card's content (without the file checksums)."""
+    targets = {}
+    for name, tm in trained.targets.items():
+        chosen = next(r for r in tm.leaderboard if r["chosen"])
+        targets[name] = {
+            "task": tm.task,
+            "transform": tm.transform,
+            "classes": tm.classes,
+            "chosen": tm.chosen,
+            "cv": chosen["cv"],
+            "cv_random": chosen["cv_random"],
+            "cv_method": (f"{trained.options.n_splits}-fold block CV" if trained.options.cv == "blocks"
+                          else "buffered leave-one-out") + ", scores weighted by the declustering weights",
+            "block_size": tm.block_size,
+            "block_size_source": tm.block_size_source,
+            "residual_variogram": tm.variogram,
+            "leaderboard": tm.leaderboard,
+            "calibration": tm.calibration.to_dict() if tm.calibration else None,
+            "n_wells": int(tm.observed.size),
+        }
+    return {
+        "schema_version": SCHEMA_VERSION,
+        "what": "predictor model bundle: a model, not a measurement; see the README's cautions",
+        "versions": package_versions(),
+        "inputs": inputs or {},
+        "options": trained.options.to_dict(),
+        "features": {"spec": trained.feature_spec.to_dict(), "names": trained.feature_names,
+                     "training_ranges": trained.training_ranges},
+        "declustering": trained.declustering,
+        "naive": trained.statistics["naive"],
+        "declustered": trained.statistics["declustered"],
+        "targets": targets,
+        "warnings": trained.warnings,
+        "wells": {"count": int(len(trained.wells)),
+                  "weights": dict(zip(trained.wells["well_id"].astype(str), np.round(trained.weights, 6).tolist(),
+                                      strict=True))},
+    }
+
+
+def save_bundle(trained, folder: str | Path, inputs: dict | None = None, overwrite: bool = False) -> Path:
+    """Write the bundle folder atomically; returns its path."""
+    folder = Path(folder)
+    card = model_card(trained, inputs)
+    with atomic_folder(folder, overwrite=overwrite) as tmp:
+        for name, tm in trained.targets.items():
+            sub = tmp / name
+            sub.mkdir()
+            desc = tm.model.save(sub, "model")
+            (sub / "model.json").write_text(dumps(desc), encoding="utf-8")
+            if tm.calibration:
+                (sub / "calibration.json").write_text(dumps(tm.calibration.to_dict()), encoding="utf-8")
+            card["targets"][name]["model_file"] = f"{name}/model.json"
+        card["files"] = {str(p.relative_to(tmp)): sha256(p) for p in sorted(tmp.rglob("*")) if p.is_file()}
+        (tmp / CARD).write_text(dumps(card), encoding="utf-8")
+    return folder
+
+
+@dataclass
+class Bundle:
+    folder: Path
+    card: dict
+    models: dict
+    calibrations: dict
+
+    @property
+    def feature_spec(self) -> FeatureSpec:
+        return FeatureSpec.from_dict(self.card["features"]["spec"])
+
+
+def load_bundle(folder: str | Path) -> Bundle:
+    """Read a bundle, verifying the schema version and every file's checksum."""
+    folder = Path(folder)
+    card_path = folder / CARD
+    if not card_path.exists():
+        raise BundleError(f"{folder}: no {CARD}; this is not a predictor model bundle (train one with `predictor train`)")
+    try:
+        card = json.loads(card_path.read_text(encoding="utf-8"))
+    except (json.JSONDecodeError, UnicodeDecodeError) as err:
+        raise BundleError(f"{card_path}: not valid JSON ({err}); the bundle is damaged, retrain it") from None
+    version = card.get("schema_version")
+    if version != SCHEMA_VERSION:
+        raise BundleError(
+            f"{card_path}: schema version {version!r}, this predictor reads version {SCHEMA_VERSION}; "
+            "use the predictor version that wrote it or retrain"
+        )
+    for rel, digest in card.get("files", {}).items():
+        path = folder / rel
+        if not path.exists():
+            raise BundleError(f"{folder}: file {rel} listed in the card is missing; the bundle is incomplete, retrain it")
+        if sha256(path) != digest:
+            raise BundleError(f"{folder}: file {rel} was altered since training (SHA-256 differs); "
+                              "load bundles only from trusted sources, or retrain")
+    models, calibrations = {}, {}
+    for name, info in card["targets"].items():
+        rel = info["model_file"]
+        if rel not in card.get("files", {}):
+            raise BundleError(f"{folder}: model file {rel} has no checksum in the card; retrain the bundle")
+        desc = json.loads((folder / rel).read_text(encoding="utf-8"))
+        models[name] = load_candidate(desc, (folder / rel).parent)
+        calibrations[name] = IntervalCalibration(**info["calibration"]) if info.get("calibration") else None
+    return Bundle(folder, plain(card), models, calibrations)

@@ -1,0 +1,395 @@
+"""Candidate models: LightGBM, linear/logistic baselines, kriging baselines, the facies mixture,
+and well ties (kriging of out-of-fold residuals) wrapped around any of them.
+
+Every candidate has the same small interface so cross-validation, selection, saving and
+prediction treat them alike:
+
+- ``fit(data)`` with a :class:`FitData`, returning ``self``;
+- ``predict(X, xy)`` with X a table holding (at least) the candidate's features and xy an
+  array of shape (n, 2): values of shape (n,) for regression, class probabilities of shape
+  (n, n_classes) for classification;
+- ``save(folder, stem)`` returning a JSON-able description; :func:`load_candidate` reverses it.
+
+Fitted state is kept as plain arrays or LightGBM boosters, so what is saved (JSON and LightGBM
+text, never pickle) predicts exactly what was fitted.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import lightgbm as lgb
+import numpy as np
+import pandas as pd
+from sklearn.linear_model import LogisticRegression
+from sklearn.model_selection import GroupKFold
+
+from .kriging import OrdinaryKriging
+
+
+@dataclass
+class FitData:
+    """What a candidate is trained on.
+
+    X : table of shape (n_wells, n_features); y : target of shape (n_wells,) (class codes
+    0..K-1 for classification); weights : declustering weights; xy : coordinates (n_wells, 2);
+    groups : spatial block labels (for early stopping and inner folds); facies : facies codes
+    or -1 where unknown (for the facies mixture).
+    """
+
+    X: pd.DataFrame
+    y: np.ndarray
+    weights: np.ndarray
+    xy: np.ndarray
+    groups: np.ndarray
+    classes: list[str] = field(default_factory=list)
+    facies: np.ndarray | None = None
+    facies_classes: list[str] = field(default_factory=list)
+    seed: int = 0
+    n_threads: int = 1
+
+    def subset(self, index) -> FitData:
+        return FitData(self.X.iloc[index].reset_index(drop=True), self.y[index], self.weights[index], self.xy[index],
+                       self.groups[index], self.classes, None if self.facies is None else self.facies[index],
+                       self.facies_classes, self.seed, self.n_threads)
+
+
+def _softmax(z: np.ndarray) -> np.ndarray:
+    z = z - z.max(axis=1, keepdims=True)
+    e = np.exp(z)
+    return e / e.sum(axis=1, keepdims=True)
+
+
+class Linear:
+    """Weighted least-squares regression on standardised features."""
+
+    task = "regression"
+
+    def __init__(self, features: list[str], name: str = "linear"):
+        self.features = features
+        self.name = name
+
+    def fit(self, data: FitData) -> Linear:
+        X = data.X[self.features].to_numpy(float)
+        self.mean_ = X.mean(axis=0)
+        self.scale_ = np.where(X.std(axis=0) > 0, X.std(axis=0), 1.0)
+        Z = np.column_stack([np.ones(len(X)), (X - self.mean_) / self.scale_])
+        sw = np.sqrt(np.asarray(data.weights, float))
+        coef, *_ = np.linalg.lstsq(Z * sw[:, None], data.y * sw, rcond=None)
+        self.coef_ = coef
+        return self
+
+    def predict(self, X, xy=None) -> np.ndarray:
+        Z = (np.asarray(X[self.features], float) - self.mean_) / self.scale_
+        return self.coef_[0] + Z @ self.coef_[1:]
+
+    def save(self, folder: Path, stem: str) -> dict:
+        return {"type": "linear", "name": self.name, "features": self.features, "mean": self.mean_.tolist(),
+                "scale": self.scale_.tolist(), "coef": self.coef_.tolist()}
+
+    @classmethod
+    def load(cls, desc: dict, folder: Path) -> Linear:
+        model = cls(desc["features"], desc["name"])
+        model.mean_, model.scale_, model.coef_ = (np.array(desc[k]) for k in ("mean", "scale", "coef"))
+        return model
+
+
+class Logistic:
+    """Multinomial logistic regression on standardised features (scikit-learn), weighted."""
+
+    task = "classification"
+
+    def __init__(self, features: list[str], name: str = "logistic"):
+        self.features = features
+        self.name = name
+
+    def fit(self, data: FitData) -> Logistic:
+        X = data.X[self.features].to_numpy(float)
+        self.mean_ = X.mean(axis=0)
+        self.scale_ = np.where(X.std(axis=0) > 0, X.std(axis=0), 1.0)
+        k = len(data.classes)
+        present = np.unique(data.y)
+        self.coef_ = np.zeros((k, X.shape[1]))
+        self.intercept_ = np.full(k, -30.0)  # classes absent from training get ~zero probability
+        if present.size == 1:
+            self.intercept_[present[0]] = 0.0
+            return self
+        model = LogisticRegression(C=1.0, max_iter=2000)
+        model.fit((X - self.mean_) / self.scale_, data.y, sample_weight=data.weights)
+        if present.size == 2:  # scikit-learn keeps one row for two classes
+            self.coef_[present[1]] = model.coef_[0]
+            self.intercept_[present] = [0.0, model.intercept_[0]]
+        else:
+            self.coef_[present] = model.coef_
+            self.intercept_[present] = model.intercept_
+        return self
+
+    def predict(self, X, xy=None) -> np.ndarray:
+        Z = (np.asarray(X[self.features], float) - self.mean_) / self.scale_
+        return _softmax(Z @ self.coef_.T + self.intercept_)
+
+    def save(self, folder: Path, stem: str) -> dict:
+        return {"type": "logistic", "name": self.name, "features": self.features, "mean": self.mean_.tolist(),
+                "scale": self.scale_.tolist(), "coef": self.coef_.tolist(), "intercept": self.intercept_.tolist()}
+
+    @classmethod
+    def load(cls, desc: dict, folder: Path) -> Logistic:
+        model = cls(desc["features"], desc["name"])
+        for key in ("mean", "scale", "coef", "intercept"):
+            setattr(model, f"{key}_", np.array(desc[key]))
+        return model
+
+
+def lightgbm_params(task: str, n: int, n_classes: int, seed: int, n_threads: int, monotone=None) -> dict:
+    """Defaults sized for tens to hundreds of wells: shallow trees, large leaves, shrinkage."""
+    params = {
+        "objective": "regression" if task == "regression" else "multiclass",
+        "learning_rate": 0.05,
+        "num_leaves": 7,
+        "max_depth": 3,
+        "min_data_in_leaf": max(5, n // 15),
+        "min_data_in_bin": 1,
+        "lambda_l2": 1.0,
+        "bagging_fraction": 0.8,
+        "bagging_freq": 1,
+        "feature_pre_filter": False,
+        "deterministic": True,
+        "force_row_wise": True,
+        "num_threads": n_threads,
+        "seed": seed,
+        "verbose": -1,
+    }
+    if task == "classification":
+        params["num_class"] = n_classes
+    if monotone is not None:
+        params["monotone_constraints"] = list(monotone)
+        params["monotone_constraints_method"] = "advanced"
+    return params
+
+
+class LightGBM:
+    """LightGBM regressor or classifier with early stopping on held-out blocks of the training wells."""
+
+    def __init__(self, task: str, features: list[str], name: str = "lightgbm", monotone: dict | None = None,
+                 max_rounds: int = 400):
+        self.task = task
+        self.features = features
+        self.name = name
+        self.monotone = monotone or {}
+        self.max_rounds = max_rounds
+
+    def _params(self, data: FitData) -> dict:
+        mono = [int(self.monotone.get(f, 0)) for f in self.features] if self.monotone else None
+        return lightgbm_params(self.task, len(data.y), max(len(data.classes), 1), data.seed, data.n_threads, mono)
+
+    def fit(self, data: FitData) -> LightGBM:
+        params = self._params(data)
+        X = data.X[self.features].to_numpy(float)
+        rounds = self.max_rounds
+        blocks = np.unique(data.groups)
+        if blocks.size >= 4 and len(data.y) >= 20:
+            # early stopping: hold out about a fifth of the training blocks, then refit on all wells
+            rng = np.random.default_rng(data.seed)
+            held = rng.choice(blocks, size=max(1, blocks.size // 5), replace=False)
+            val = np.isin(data.groups, held)
+            train_set = lgb.Dataset(X[~val], data.y[~val], weight=data.weights[~val], params={"verbose": -1})
+            val_set = lgb.Dataset(X[val], data.y[val], weight=data.weights[val], reference=train_set)
+            probe = lgb.train(params, train_set, num_boost_round=self.max_rounds, valid_sets=[val_set],
+                              callbacks=[lgb.early_stopping(30, verbose=False)])
+            rounds = max(20, probe.best_iteration or self.max_rounds)
+        else:
+            rounds = 150
+        full = lgb.Dataset(X, data.y, weight=data.weights, params={"verbose": -1})
+        self.booster_ = lgb.train(params, full, num_boost_round=rounds)
+        self.rounds_ = rounds
+        return self
+
+    def predict(self, X, xy=None) -> np.ndarray:
+        return self.booster_.predict(np.asarray(X[self.features], float), num_threads=1)
+
+    def save(self, folder: Path, stem: str) -> dict:
+        name = f"{stem}.lgb.txt"
+        (folder / name).write_text(self.booster_.model_to_string(), encoding="utf-8")
+        return {"type": "lightgbm", "task": self.task, "name": self.name, "features": self.features,
+                "monotone": self.monotone, "rounds": self.rounds_, "file": name}
+
+    @classmethod
+    def load(cls, desc: dict, folder: Path) -> LightGBM:
+        model = cls(desc["task"], desc["features"], desc["name"], desc.get("monotone"))
+        model.booster_ = lgb.Booster(model_str=(folder / desc["file"]).read_text(encoding="utf-8"))
+        model.rounds_ = desc["rounds"]
+        return model
+
+
+class Kriging:
+    """Ordinary kriging of the target from well locations alone (a baseline)."""
+
+    task = "regression"
+
+    def __init__(self, name: str = "ordinary_kriging"):
+        self.name = name
+        self.features: list[str] = []
+
+    def fit(self, data: FitData) -> Kriging:
+        self.kriging_ = OrdinaryKriging().fit(data.xy[:, 0], data.xy[:, 1], data.y)
+        return self
+
+    def predict(self, X, xy) -> np.ndarray:
+        return self.kriging_.predict(xy[:, 0], xy[:, 1])
+
+    def save(self, folder: Path, stem: str) -> dict:
+        return {"type": "kriging", "name": self.name, "kriging": self.kriging_.to_dict()}
+
+    @classmethod
+    def load(cls, desc: dict, folder: Path) -> Kriging:
+        model = cls(desc["name"])
+        model.kriging_ = OrdinaryKriging.from_dict(desc["kriging"])
+        return model
+
+
+class RegressionKriging:
+    """Linear drift on the attribute(s) plus ordinary kriging of its residuals (a baseline)."""
+
+    task = "regression"
+
+    def __init__(self, features: list[str], name: str = "regression_kriging"):
+        self.features = features
+        self.name = name
+
+    def fit(self, data: FitData) -> RegressionKriging:
+        self.drift_ = Linear(self.features).fit(data)
+        resid = data.y - self.drift_.predict(data.X)
+        self.kriging_ = OrdinaryKriging().fit(data.xy[:, 0], data.xy[:, 1], resid)
+        return self
+
+    def predict(self, X, xy) -> np.ndarray:
+        return self.drift_.predict(X) + self.kriging_.predict(xy[:, 0], xy[:, 1])
+
+    def save(self, folder: Path, stem: str) -> dict:
+        return {"type": "regression_kriging", "name": self.name, "features": self.features,
+                "drift": self.drift_.save(folder, stem), "kriging": self.kriging_.to_dict()}
+
+    @classmethod
+    def load(cls, desc: dict, folder: Path) -> RegressionKriging:
+        model = cls(desc["features"], desc["name"])
+        model.drift_ = Linear.load(desc["drift"], folder)
+        model.kriging_ = OrdinaryKriging.from_dict(desc["kriging"])
+        return model
+
+
+class FaciesMixture:
+    """Per-facies linear regressors mixed by facies probabilities from a LightGBM classifier.
+
+    The porosity of a node is sum over facies c of P(c | seismic) * f_c(seismic); facies with
+    fewer than 3 wells use their weighted mean.
+    """
+
+    task = "regression"
+
+    def __init__(self, features: list[str], name: str = "facies_mixture"):
+        self.features = features
+        self.name = name
+
+    def fit(self, data: FitData) -> FaciesMixture:
+        known = data.facies >= 0
+        classifier_data = FitData(data.X[known].reset_index(drop=True), data.facies[known], data.weights[known],
+                                  data.xy[known], data.groups[known], data.facies_classes, seed=data.seed,
+                                  n_threads=data.n_threads)
+        self.classifier_ = LightGBM("classification", self.features, "facies_classifier").fit(classifier_data)
+        self.members_ = []
+        for code in range(len(data.facies_classes)):
+            sel = data.facies == code
+            if sel.sum() >= 3:
+                self.members_.append(Linear(self.features).fit(data.subset(np.flatnonzero(sel))))
+            else:
+                mean = float(np.average(data.y[sel], weights=data.weights[sel])) if sel.any() else float(data.y.mean())
+                self.members_.append(mean)
+        return self
+
+    def _member(self, i, X) -> np.ndarray:
+        member = self.members_[i]
+        return member.predict(X) if isinstance(member, Linear) else np.full(len(X), member)
+
+    def predict(self, X, xy=None) -> np.ndarray:
+        proba = self.classifier_.predict(X)
+        return sum(proba[:, i] * self._member(i, X) for i in range(len(self.members_)))
+
+    def save(self, folder: Path, stem: str) -> dict:
+        return {"type": "facies_mixture", "name": self.name, "features": self.features,
+                "classifier": self.classifier_.save(folder, f"{stem}.classifier"),
+                "members": [m.save(folder, stem) if isinstance(m, Linear) else m for m in self.members_]}
+
+    @classmethod
+    def load(cls, desc: dict, folder: Path) -> FaciesMixture:
+        model = cls(desc["features"], desc["name"])
+        model.classifier_ = LightGBM.load(desc["classifier"], folder)
+        model.members_ = [Linear.load(m, folder) if isinstance(m, dict) else float(m) for m in desc["members"]]
+        return model
+
+
+class WellTies:
+    """A regression model corrected near the wells by kriging its out-of-fold residuals.
+
+    The residuals come from an inner block cross-validation of the training wells, so they are
+    the errors the model makes away from its own training data, which is what the map needs.
+    """
+
+    task = "regression"
+
+    def __init__(self, base, inner_splits: int = 4):
+        self.base = base
+        self.inner_splits = inner_splits
+        self.name = f"{base.name}+well_ties"
+        self.features = base.features
+
+    def fit(self, data: FitData) -> WellTies:
+        oof = out_of_fold(self.base, data, min(self.inner_splits, np.unique(data.groups).size))
+        self.base.fit(data)
+        self.kriging_ = OrdinaryKriging().fit(data.xy[:, 0], data.xy[:, 1], data.y - oof)
+        return self
+
+    def predict(self, X, xy) -> np.ndarray:
+        return self.base.predict(X, xy) + self.kriging_.predict(xy[:, 0], xy[:, 1])
+
+    def residual_variance(self, xy) -> np.ndarray:
+        return self.kriging_.predict(xy[:, 0], xy[:, 1], return_variance=True)[1]
+
+    def save(self, folder: Path, stem: str) -> dict:
+        return {"type": "well_ties", "name": self.name, "base": self.base.save(folder, stem),
+                "kriging": self.kriging_.to_dict()}
+
+    @classmethod
+    def load(cls, desc: dict, folder: Path) -> WellTies:
+        model = cls(load_candidate(desc["base"], folder))
+        model.kriging_ = OrdinaryKriging.from_dict(desc["kriging"])
+        return model
+
+
+def out_of_fold(candidate, data: FitData, n_splits: int) -> np.ndarray:
+    """Out-of-fold predictions of ``candidate`` over folds of whole blocks (``data.groups``)."""
+    n_splits = max(2, n_splits)
+    oof = np.zeros(len(data.y)) if candidate.task == "regression" else np.zeros((len(data.y), len(data.classes)))
+    for train, test in GroupKFold(n_splits=n_splits).split(np.zeros(len(data.y)), None, data.groups):
+        model = type_copy(candidate).fit(data.subset(train))
+        oof[test] = model.predict(data.X.iloc[test].reset_index(drop=True), data.xy[test])
+    return oof
+
+
+def type_copy(candidate):
+    """An unfitted copy of a candidate with the same settings."""
+    if isinstance(candidate, WellTies):
+        return WellTies(type_copy(candidate.base), candidate.inner_splits)
+    if isinstance(candidate, LightGBM):
+        return LightGBM(candidate.task, candidate.features, candidate.name, candidate.monotone, candidate.max_rounds)
+    if isinstance(candidate, Kriging):
+        return Kriging(candidate.name)
+    return type(candidate)(candidate.features, candidate.name)
+
+
+LOADERS = {"linear": Linear, "logistic": Logistic, "lightgbm": LightGBM, "kriging": Kriging,
+           "regression_kriging": RegressionKriging, "facies_mixture": FaciesMixture, "well_ties": WellTies}
+
+
+def load_candidate(desc: dict, folder: Path):
+    return LOADERS[desc["type"]].load(desc, folder)

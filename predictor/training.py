@@ -1,0 +1,339 @@
+"""Training: features at the wells, declustering, spatial CV of every candidate against the
+baselines on the same folds, selection, well ties, interval calibration and the final fit.
+
+:func:`train` returns a :class:`TrainedModels`; :mod:`predictor.bundle` writes it to disk.
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import asdict, dataclass, field
+from typing import Literal
+
+import numpy as np
+import pandas as pd
+import xarray as xr
+from sklearn.model_selection import KFold
+
+from .declustering import cell_declustering, declustered_statistics, nearest_node_weights
+from .errors import InputError, ModelError, PredictorWarning
+from .features import FeatureSpec, build_features, features_at_wells, location_features
+from .intervals import IntervalCalibration, calibrate
+from .models import (
+    FaciesMixture,
+    FitData,
+    Kriging,
+    LightGBM,
+    Linear,
+    Logistic,
+    RegressionKriging,
+    WellTies,
+    type_copy,
+)
+from .qc import grid_findings, physical_findings
+from .spatial_cv import (
+    BlockKFold,
+    BufferedLeaveOneOut,
+    block_labels,
+    classification_scores,
+    regression_scores,
+)
+from .variogram import auto_variogram
+
+Task = Literal["regression", "classification"]
+BASELINES = ("linear", "logistic", "ordinary_kriging", "regression_kriging")
+LOG_TARGETS = ("permeability",)
+
+
+@dataclass
+class TrainOptions:
+    """Everything that decides a training run (recorded in the model card)."""
+
+    targets: list[str]
+    features: FeatureSpec | None = None
+    n_splits: int = 5
+    block_size: float | None = None
+    block_angle: float = 0.0
+    cv: Literal["blocks", "buffered"] = "blocks"
+    declustering: Literal["cell", "nearest_node", "none"] = "cell"
+    monotone: bool = False
+    well_ties: Literal["auto", "always", "never"] = "auto"
+    interval_spread: Literal["none", "kriging"] = "none"
+    sample_method: Literal["bilinear", "nearest"] = "bilinear"
+    drop_outside: bool = False
+    seed: int = 0
+    n_threads: int = 1
+
+    def to_dict(self) -> dict:
+        out = asdict(self)
+        out["features"] = self.features.to_dict() if self.features else None
+        return out
+
+
+@dataclass
+class TargetModel:
+    """The chosen model for one target and everything learned about it."""
+
+    name: str
+    task: Task
+    transform: str | None
+    classes: list[str]
+    model: object
+    calibration: IntervalCalibration | None
+    block_size: float
+    block_size_source: str
+    leaderboard: list[dict]
+    chosen: str
+    oof: np.ndarray
+    observed: np.ndarray
+    weights: np.ndarray
+    variogram: dict | None = None
+
+
+@dataclass
+class TrainedModels:
+    options: TrainOptions
+    feature_spec: FeatureSpec
+    feature_names: list[str]
+    training_ranges: dict
+    wells: pd.DataFrame
+    weights: np.ndarray
+    declustering: dict
+    statistics: dict
+    targets: dict[str, TargetModel]
+    warnings: list[str] = field(default_factory=list)
+
+
+def task_of(wells: pd.DataFrame, target: str) -> Task:
+    if target == "facies" or not pd.api.types.is_numeric_dtype(wells[target]):
+        return "classification"
+    return "regression"
+
+
+def _check_inputs(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> None:
+    source = wells.attrs.get("source", "wells")
+    if not options.targets:
+        raise InputError("no target given; name at least one well column with --target (e.g. porosity)")
+    for target in options.targets:
+        if target not in wells:
+            raise InputError(f"{source}: no column {target!r} to train on; columns are {', '.join(wells.columns)}")
+        values = wells[target]
+        if values.isna().all() or (values.astype("string").str.strip() == "").all():
+            raise InputError(f"{source}: target column {target!r} is empty (all missing); fill it or drop the target")
+    errors = [f for f in physical_findings(wells, source) + grid_findings(grid) if f.severity == "error"]
+    if errors:
+        raise InputError(errors[0].message + ("" if len(errors) == 1 else f" (and {len(errors) - 1} more problems; "
+                                              "run `predictor qc` for the full list)"))
+
+
+def _weights(wells: pd.DataFrame, grid: xr.Dataset, method: str) -> tuple[np.ndarray, dict]:
+    x, y = wells["x"].to_numpy(), wells["y"].to_numpy()
+    if method == "none":
+        return np.ones(len(wells)), {"method": "none"}
+    variable = "porosity" if "porosity" in wells else None
+    values = wells[variable].to_numpy(float) if variable else np.ones(len(wells))
+    cell = cell_declustering(x, y, values, variable=variable)
+    summary = cell.summary()
+    if method == "nearest_node":
+        xx, yy = np.meshgrid(grid.x.to_numpy(), grid.y.to_numpy())
+        valid = np.all([np.isfinite(grid[v].to_numpy()) for v in grid.data_vars], axis=0)
+        w = nearest_node_weights(x, y, xx, yy, valid)
+        return w, {"method": "nearest_node", "cell_declustering_for_reference": summary}
+    return cell.weights, summary
+
+
+def _block_size(data: FitData, options: TrainOptions, attrs: list[str],
+                baseline_y: np.ndarray) -> tuple[float, str, dict | None]:
+    """The fitted variogram range of the linear baseline's residuals, shrunk if too few blocks result."""
+    if options.block_size:
+        size, source, vario = float(options.block_size), "given by the user", None
+    else:
+        linear = Linear(attrs).fit(FitData(data.X, baseline_y, data.weights, data.xy, data.groups))
+        resid = baseline_y - linear.predict(data.X)
+        model = auto_variogram(data.xy[:, 0], data.xy[:, 1], resid)
+        size, vario = model.range, model.to_dict()
+        source = f"fitted {model.kind} variogram range of the linear baseline's residuals"
+    extent = max(np.ptp(data.xy[:, 0]), np.ptp(data.xy[:, 1]))
+    shrunk = False
+    while np.unique(block_labels(data.xy[:, 0], data.xy[:, 1], size, options.block_angle)).size < 2 * options.n_splits:
+        size *= 0.8
+        shrunk = True
+        if size < extent / 100:
+            raise ModelError("the wells cannot be split into enough spatial blocks; add wells or use fewer folds")
+    if shrunk:
+        source += f"; reduced to {size:.0f} m so that at least {2 * options.n_splits} blocks hold wells"
+    return float(size), source, vario
+
+
+def cross_validate(candidate, data: FitData, splitter) -> np.ndarray:
+    """Out-of-fold predictions of ``candidate`` for the folds of ``splitter``."""
+    n = len(data.y)
+    oof = np.zeros(n) if candidate.task == "regression" else np.zeros((n, len(data.classes)))
+    for train, test in splitter.split(data.xy):
+        model = type_copy(candidate).fit(data.subset(train))
+        oof[test] = model.predict(data.X.iloc[test].reset_index(drop=True), data.xy[test])
+    return oof
+
+
+def _candidates(task: Task, target: str, attrs: list[str], names: list[str], wells: pd.DataFrame,
+                options: TrainOptions) -> list:
+    if task == "classification":
+        out = [Logistic(attrs), LightGBM("classification", names)]
+        if names != attrs:
+            out.append(LightGBM("classification", attrs, "lightgbm_attributes_only"))
+        return out
+    out = [Linear(attrs), Kriging(), RegressionKriging(attrs), LightGBM("regression", names)]
+    if names != attrs:
+        out.append(LightGBM("regression", attrs, "lightgbm_attributes_only"))
+    if options.monotone:
+        # porosity (and permeability) non-increasing in impedance; contrasts and gradients are free
+        mono = {n: -1 for n in names if "imped" in n.lower() and "contrast" not in n and "gradient" not in n}
+        out.append(LightGBM("regression", names, "lightgbm_monotone", monotone=mono))
+    if "facies" in wells and target != "facies" and wells["facies"].dropna().astype(str).nunique() >= 2:
+        out.append(FaciesMixture(names))
+    return out
+
+
+def _score(task: Task, y, oof, w, classes) -> dict:
+    return regression_scores(y, oof, w) if task == "regression" else classification_scores(
+        np.asarray(classes)[y], oof, classes, w)
+
+
+def train(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> TrainedModels:
+    """Train, cross-validate and select a model per target."""
+    _check_inputs(wells, grid, options)
+    notes: list[str] = []
+    spec = options.features or FeatureSpec(attributes=[str(v) for v in grid.data_vars])
+    features = build_features(grid, spec)
+    names = [str(v) for v in features.data_vars]
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", PredictorWarning)
+        X_all, kept = features_at_wells(features, wells, options.sample_method, options.drop_outside)
+    notes += [str(w.message) for w in caught]
+    wells = wells.loc[kept].reset_index(drop=True)
+    weights, decl = _weights(wells, grid, options.declustering)
+    xy = wells[["x", "y"]].to_numpy(float)
+    ranges = {n: [float(np.nanmin(X_all[n])), float(np.nanmax(X_all[n]))] for n in names}
+
+    facies_classes: list[str] = []
+    facies_codes = None
+    if "facies" in wells:
+        labels = wells["facies"].astype("string")
+        facies_classes = sorted(labels.dropna().unique().tolist())
+        facies_codes = np.array([facies_classes.index(v) if v in facies_classes else -1
+                                 for v in labels.fillna("\x00")])
+
+    numeric_targets = [t for t in options.targets if task_of(wells, t) == "regression"]
+    stats = declustered_statistics(wells, weights, numeric_targets,
+                                   [t for t in options.targets if t not in numeric_targets])
+    results = {}
+    for target in options.targets:
+        task = task_of(wells, target)
+        raw = wells[target]
+        has = raw.notna().to_numpy() & (raw.astype("string").str.strip() != "").fillna(False).to_numpy()
+        idx = np.flatnonzero(has)
+        need = 3 * options.n_splits
+        if idx.size < need:
+            raise ModelError(
+                f"block CV with {options.n_splits} folds needs at least {need} wells with {target!r}; got {idx.size}; "
+                "use fewer folds (--folds) or add wells"
+            )
+        classes: list[str] = []
+        transform = None
+        if task == "classification":
+            labels = raw.astype("string").to_numpy()[idx].astype(str)
+            classes = sorted(set(labels))
+            counts = pd.Series(labels).value_counts()
+            if len(classes) < 2:
+                raise ModelError(f"target {target!r} has a single class ({classes[0]}); a classifier needs two or more")
+            rare = counts[counts < 2]
+            if len(rare):
+                raise ModelError(
+                    f"class(es) {', '.join(rare.index)} of {target!r} have a single well; merge them into a "
+                    "neighbouring class or drop those wells"
+                )
+            few = counts[counts < options.n_splits]
+            if len(few):
+                notes.append(f"class(es) {', '.join(f'{k} ({v} wells)' for k, v in few.items())} of {target!r} "
+                             f"have fewer wells than the {options.n_splits} folds; their scores are unreliable")
+            y = np.array([classes.index(v) for v in labels])
+            baseline_y = (y == np.argmax(np.bincount(y))).astype(float)
+        else:
+            y = raw.to_numpy(float)[idx]
+            if target in LOG_TARGETS:
+                y, transform = np.log10(y), "log10"
+            baseline_y = y
+        data = FitData(X_all.iloc[idx].reset_index(drop=True), y, weights[idx], xy[idx],
+                       np.zeros(idx.size, int), classes,
+                       None if facies_codes is None else facies_codes[idx], facies_classes,
+                       options.seed, options.n_threads)
+        attrs = list(spec.attributes)
+        block, block_source, vario = _block_size(data, options, attrs, baseline_y)
+        data.groups = block_labels(data.xy[:, 0], data.xy[:, 1], block, options.block_angle)
+        if options.cv == "buffered":
+            splitter = BufferedLeaveOneOut(block, coordinates=data.xy)
+        else:
+            splitter = BlockKFold(block, options.n_splits, options.block_angle, coordinates=data.xy)
+        random_cv = _RandomSplits(options.n_splits, options.seed)
+        board = []
+        oofs = {}
+        candidates = _candidates(task, target, attrs, names, wells, options)
+        for cand in candidates:
+            oof = cross_validate(cand, data, splitter)
+            oofs[cand.name] = (cand, oof)
+            board.append({"candidate": cand.name, "baseline": cand.name in BASELINES,
+                          "features": list(cand.features), "cv": _score(task, y, oof, data.weights, classes),
+                          "cv_random": _score(task, y, cross_validate(cand, data, random_cv), data.weights, classes)})
+        key, sign = ("rmse", 1) if task == "regression" else ("log_loss", 1)
+        best = min(board, key=lambda r: sign * r["cv"][key])
+        chosen = best["candidate"]
+        if task == "regression" and options.well_ties != "never" and not isinstance(oofs[chosen][0],
+                                                                                   Kriging | RegressionKriging):
+            tied = WellTies(type_copy(oofs[chosen][0]))
+            oof = cross_validate(tied, data, splitter)
+            oofs[tied.name] = (tied, oof)
+            row = {"candidate": tied.name, "baseline": False, "features": list(tied.features),
+                   "cv": _score(task, y, oof, data.weights, classes),
+                   "cv_random": _score(task, y, cross_validate(tied, data, random_cv), data.weights, classes)}
+            board.append(row)
+            if options.well_ties == "always" or row["cv"]["rmse"] < best["cv"]["rmse"]:
+                chosen = tied.name
+        model, oof = oofs[chosen]
+        calibration = None
+        if task == "regression":
+            spread = None
+            if options.interval_spread == "kriging" and isinstance(model, WellTies):
+                spread = _oof_spread(model, data, splitter)
+            calibration = calibrate(y - oof, data.weights, spread=spread)
+        final = type_copy(model).fit(data)
+        for row in board:
+            row["chosen"] = row["candidate"] == chosen
+        results[target] = TargetModel(name=target, task=task, transform=transform, classes=classes, model=final,
+                                      calibration=calibration, block_size=block, block_size_source=block_source,
+                                      leaderboard=board, chosen=chosen, oof=oof, observed=y, weights=data.weights,
+                                      variogram=vario)
+    loc = location_features(names)
+    if loc:
+        notes.append(f"location features {', '.join(loc)} are in use: they let a model memorise where the wells are; "
+                     "compare with the attributes-only candidate in the leaderboard")
+    return TrainedModels(options, spec, names, ranges, wells, weights, decl, stats, results, notes)
+
+
+def _oof_spread(model: WellTies, data: FitData, splitter) -> np.ndarray:
+    """Kriging standard deviation of the residual field at each held-out well, from its fold's model."""
+    spread = np.zeros(len(data.y))
+    for train, test in splitter.split(data.xy):
+        fold = type_copy(model).fit(data.subset(train))
+        spread[test] = np.sqrt(fold.residual_variance(data.xy[test]))
+    return spread
+
+
+class _RandomSplits:
+    """Plain shuffled k-fold, for contrast with the blocked scores."""
+
+    def __init__(self, n_splits: int, seed: int):
+        self.kfold = KFold(n_splits=n_splits, shuffle=True, random_state=seed)
+
+    def split(self, xy):
+        return self.kfold.split(xy)
+

@@ -1,0 +1,55 @@
+"""File-to-file steps behind ``predictor train`` and ``predictor predict``.
+
+Each reads its inputs, calls the API (:func:`predictor.training.train`,
+:func:`predictor.predict.predict_maps`) and writes its outputs atomically.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from .bundle import save_bundle, sha256
+from .features import FeatureSpec
+from .grid import read_grid
+from .io.atomic import check_target
+from .io.tables import read_wells
+from .predict import predict_maps, write_maps
+from .training import TrainedModels, TrainOptions, train
+
+
+def train_files(wells_path, grid_path, out, targets, attributes=None, context_radii=(), gradient=False,
+                location=False, porosity_percent=False, x=None, y=None, overwrite=False, **options):
+    """Read wells and grid, train, and write the bundle to ``out``; returns (trained, folder)."""
+    check_target(out, overwrite)  # fail before the long work, not after it
+    wells = read_wells(wells_path, x=x, y=y, porosity_percent=porosity_percent)
+    grid = read_grid(grid_path)
+    spec = FeatureSpec(attributes=list(attributes) if attributes else [str(v) for v in grid.data_vars],
+                       context_radii=list(context_radii), gradient=gradient, location=location)
+    trained = train(wells, grid, TrainOptions(targets=list(targets), features=spec, **options))
+    inputs = {"wells": {"path": str(wells_path), "sha256": sha256(Path(wells_path)),
+                        "columns_taken": wells.attrs.get("columns_taken", {}), "porosity_percent": porosity_percent},
+              "grid": {"path": str(grid_path), "sha256": sha256(Path(grid_path))}}
+    return trained, save_bundle(trained, out, inputs, overwrite=overwrite)
+
+
+def predict_files(bundle, grid_path, out, overwrite=False) -> Path:
+    """Predict the bundle's targets on a grid file and write the maps (CSV or NetCDF)."""
+    check_target(out, overwrite)
+    maps = predict_maps(bundle, read_grid(grid_path))
+    return write_maps(maps, out, overwrite=overwrite)
+
+
+def leaderboard_lines(trained: TrainedModels) -> list[str]:
+    """The leaderboard as text: blocked and random CV per candidate, chosen marked."""
+    lines = []
+    for name, tm in trained.targets.items():
+        key = "rmse" if tm.task == "regression" else "balanced_accuracy"
+        unit = " (log10 mD)" if tm.transform == "log10" else ""
+        lines.append(f"{name}: block CV ({tm.block_size:.0f} m blocks, {tm.block_size_source}), "
+                     f"declustering-weighted {key}{unit}")
+        for row in tm.leaderboard:
+            mark = "*" if row["chosen"] else " "
+            kind = "baseline" if row["baseline"] else "candidate"
+            lines.append(f"  {mark} {row['candidate']:<28} {kind:<9} blocked {row['cv'][key]:.4f}   "
+                         f"random {row['cv_random'][key]:.4f}")
+    return lines
