@@ -1,0 +1,159 @@
+"""Training, bundles and maps on the demo field: the documented contract and its bad inputs."""
+
+import json
+import shutil
+
+import numpy as np
+import pandas as pd
+import pytest
+import xarray as xr
+from conftest import DEMO
+
+from predictor.bundle import load_bundle
+from predictor.cli import main
+from predictor.errors import BundleError, InputError, ModelError, PredictorWarning
+from predictor.grid import read_grid
+from predictor.io.tables import read_wells
+from predictor.predict import predict_maps
+from predictor.training import TrainOptions, train
+
+WELLS, GRID = str(DEMO / "wells.csv"), str(DEMO / "seismic.csv")
+
+
+@pytest.fixture(scope="module")
+def bundle(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("b") / "bundle"
+    assert main(["train", "--wells", WELLS, "--grid", GRID, "--target", "porosity", "--target", "facies",
+                 "--out", str(folder)]) == 0
+    return folder
+
+
+def test_card_has_the_documented_keys(bundle):
+    card = json.loads((bundle / "model_card.json").read_text())
+    assert card["schema_version"] == 1
+    assert card["targets"]["porosity"]["cv"]["rmse"] > 0
+    assert 0 < card["targets"]["facies"]["cv"]["balanced_accuracy"] <= 1
+    assert set(card["targets"]["porosity"]["cv_random"]) == {"rmse", "mae", "r2"}
+    assert card["declustered"]["porosity"]["mean"] < card["naive"]["porosity"]["mean"]
+    assert card["declustered"]["facies"]["proportions"]["sand"] < card["naive"]["facies"]["proportions"]["sand"]
+    assert set(card["targets"]["facies"]["classes"]) == {"sand", "shale", "silt"}
+    board = {r["candidate"] for r in card["targets"]["porosity"]["leaderboard"]}
+    assert {"linear", "ordinary_kriging", "regression_kriging", "lightgbm", "facies_mixture"} <= board
+    assert card["inputs"]["wells"]["sha256"] and card["features"]["training_ranges"]["impedance"][0] > 0
+    assert all(not name.endswith((".pkl", ".pickle", ".joblib")) for name in card["files"])
+
+
+def test_maps_csv_columns_and_ordering(bundle, tmp_path):
+    out = tmp_path / "maps.csv"
+    assert main(["predict", str(bundle), "--grid", GRID, "--out", str(out)]) == 0
+    maps = pd.read_csv(out)
+    assert list(maps.columns) == ["x", "y", "porosity", "porosity_q10", "porosity_q90", "facies",
+                                  "facies_prob_sand", "facies_prob_shale", "facies_prob_silt"]
+    assert len(maps) == 120 * 100
+    assert np.all(maps.porosity_q10 <= maps.porosity) and np.all(maps.porosity <= maps.porosity_q90)
+    probs = maps[["facies_prob_sand", "facies_prob_shale", "facies_prob_silt"]].to_numpy()
+    np.testing.assert_allclose(probs.sum(axis=1), 1.0, atol=1e-6)
+    assert {"sand", "shale"} <= set(maps.facies) <= {"sand", "shale", "silt"}
+
+
+def test_saved_bundle_predicts_what_was_trained(bundle, tmp_path):
+    grid = read_grid(GRID)
+    wells = read_wells(WELLS)
+    trained = train(wells, grid, TrainOptions(targets=["porosity", "facies"]))
+    from predictor.bundle import save_bundle
+
+    again = save_bundle(trained, tmp_path / "again")
+    with pytest.warns(PredictorWarning, match="outside the range seen at the wells"):
+        a, b = predict_maps(bundle, grid), predict_maps(again, grid)
+    a.attrs.pop("bundle"), b.attrs.pop("bundle")
+    xr.testing.assert_identical(a, b)
+    # same inputs and seed: byte-identical model files
+    for name in ("porosity/model.json", "facies/model.json"):
+        assert (bundle / name).read_bytes() == (again / name).read_bytes()
+
+
+def test_netcdf_maps(bundle, tmp_path):
+    out = tmp_path / "maps.nc"
+    assert main(["predict", str(bundle), "--grid", str(DEMO / "seismic.nc"), "--out", str(out)]) == 0
+    ds = xr.open_dataset(out)
+    assert ds.attrs["Conventions"] == "CF-1.8"
+    assert ds["facies"].attrs["flag_meanings"] == "sand shale silt"
+    assert ds["porosity_q10"].attrs["long_name"].endswith("(q10)")
+
+
+def test_altered_or_missing_file_refused(bundle, tmp_path):
+    copy = tmp_path / "copy"
+    shutil.copytree(bundle, copy)
+    model = copy / "porosity" / "model.json"
+    model.write_text(model.read_text().replace("0", "1", 1))
+    with pytest.raises(BundleError, match="porosity/model.json was altered"):
+        load_bundle(copy)
+    model.unlink()
+    with pytest.raises(BundleError, match="missing"):
+        load_bundle(copy)
+
+
+def test_unknown_schema_refused(bundle, tmp_path):
+    copy = tmp_path / "copy"
+    shutil.copytree(bundle, copy)
+    card = json.loads((copy / "model_card.json").read_text())
+    card["schema_version"] = 99
+    (copy / "model_card.json").write_text(json.dumps(card))
+    with pytest.raises(BundleError, match="schema version 99"):
+        load_bundle(copy)
+
+
+def test_grid_lacking_a_feature(bundle, tmp_path):
+    grid = read_grid(GRID).rename({"impedance": "amplitude"})
+    with pytest.raises(InputError, match="lacks the attribute.*impedance"):
+        predict_maps(bundle, grid)
+
+
+def test_predict_refuses_to_overwrite(bundle, tmp_path, capsys):
+    out = tmp_path / "maps.csv"
+    out.write_text("keep me")
+    assert main(["predict", str(bundle), "--grid", GRID, "--out", str(out)]) == 2
+    assert out.read_text() == "keep me"
+    assert "--overwrite" in capsys.readouterr().err
+
+
+@pytest.fixture(scope="module")
+def demo_inputs():
+    return read_wells(WELLS), read_grid(GRID)
+
+
+def test_missing_or_empty_target(demo_inputs):
+    wells, grid = demo_inputs
+    with pytest.raises(InputError, match="no column 'density'"):
+        train(wells, grid, TrainOptions(targets=["density"]))
+    with pytest.raises(InputError, match="'porosity' is empty"):
+        train(wells.assign(porosity=np.nan), grid, TrainOptions(targets=["porosity"]))
+
+
+def test_class_with_one_well(demo_inputs):
+    wells, grid = demo_inputs
+    odd = wells.copy()
+    odd.loc[0, "facies"] = "coal"
+    with pytest.raises(ModelError, match="coal of 'facies' have a single well"):
+        train(odd, grid, TrainOptions(targets=["facies"]))
+
+
+def test_too_few_wells(demo_inputs):
+    wells, grid = demo_inputs
+    with pytest.raises(ModelError, match="needs at least 15 wells with 'porosity'; got 10"):
+        train(wells.head(10), grid, TrainOptions(targets=["porosity"]))
+
+
+def test_constant_attribute(demo_inputs):
+    wells, grid = demo_inputs
+    flat = grid.copy()
+    flat["impedance"] = flat["impedance"] * 0 + 9000.0
+    with pytest.raises(InputError, match="constant"):
+        train(wells, flat, TrainOptions(targets=["porosity"]))
+
+
+def test_train_cli_bad_input_leaves_nothing(tmp_path, capsys):
+    out = tmp_path / "b"
+    assert main(["train", "--wells", WELLS, "--grid", GRID, "--target", "nonexistent", "--out", str(out)]) == 2
+    assert "no column 'nonexistent'" in capsys.readouterr().err
+    assert not out.exists() and not list(tmp_path.iterdir())
