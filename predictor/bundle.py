@@ -17,7 +17,7 @@ import numpy as np
 from . import __version__
 from .errors import BundleError
 from .features import FeatureSpec
-from .intervals import IntervalCalibration
+from .intervals import IntervalCalibration, SpreadModel
 from .io.atomic import atomic_folder
 from .io.jsonfile import dumps, plain
 from .models import load_candidate
@@ -65,6 +65,8 @@ def model_card(trained, inputs: dict | None = None) -> dict:
             "residual_variogram": tm.variogram,
             "leaderboard": tm.leaderboard,
             "calibration": tm.calibration.to_dict() if tm.calibration else None,
+            "interval_spread": (tm.spread if isinstance(tm.spread, str) or tm.spread is None
+                                else "features: log|residual| linear in " + ", ".join(tm.spread.features)),
             "n_wells": int(tm.observed.size),
         }
     return {
@@ -97,7 +99,9 @@ def save_bundle(trained, folder: str | Path, inputs: dict | None = None, overwri
             desc = tm.model.save(sub, "model")
             (sub / "model.json").write_text(dumps(desc), encoding="utf-8")
             if tm.calibration:
-                (sub / "calibration.json").write_text(dumps(tm.calibration.to_dict()), encoding="utf-8")
+                spread = tm.spread.to_dict() if hasattr(tm.spread, "to_dict") else tm.spread
+                (sub / "calibration.json").write_text(dumps({**tm.calibration.to_dict(), "spread": spread}),
+                                                      encoding="utf-8")
             card["targets"][name]["model_file"] = f"{name}/model.json"
         card["files"] = {str(p.relative_to(tmp)): sha256(p) for p in sorted(tmp.rglob("*")) if p.is_file()}
         (tmp / CARD).write_text(dumps(card), encoding="utf-8")
@@ -110,6 +114,7 @@ class Bundle:
     card: dict
     models: dict
     calibrations: dict
+    spreads: dict
 
     @property
     def feature_spec(self) -> FeatureSpec:
@@ -139,12 +144,17 @@ def load_bundle(folder: str | Path) -> Bundle:
         if sha256(path) != digest:
             raise BundleError(f"{folder}: file {rel} was altered since training (SHA-256 differs); "
                               "load bundles only from trusted sources, or retrain")
-    models, calibrations = {}, {}
+    models, calibrations, spreads = {}, {}, {}
     for name, info in card["targets"].items():
         rel = info["model_file"]
         if rel not in card.get("files", {}):
             raise BundleError(f"{folder}: model file {rel} has no checksum in the card; retrain the bundle")
         desc = json.loads((folder / rel).read_text(encoding="utf-8"))
         models[name] = load_candidate(desc, (folder / rel).parent)
-        calibrations[name] = IntervalCalibration(**info["calibration"]) if info.get("calibration") else None
-    return Bundle(folder, plain(card), models, calibrations)
+        calibrations[name], spreads[name] = None, None
+        if info.get("calibration"):
+            stored = json.loads((folder / name / "calibration.json").read_text(encoding="utf-8"))
+            spread = stored.pop("spread", None)
+            calibrations[name] = IntervalCalibration(**stored)
+            spreads[name] = SpreadModel.from_dict(spread) if isinstance(spread, dict) else spread
+    return Bundle(folder, plain(card), models, calibrations, spreads)

@@ -58,8 +58,9 @@ def build_parser() -> argparse.ArgumentParser:
                     help="also try LightGBM constrained to be non-increasing in impedance")
     tr.add_argument("--well-ties", choices=["auto", "always", "never"], default="auto",
                     help="krige out-of-fold residuals onto the map: when CV shows it helps (auto), always, never")
-    tr.add_argument("--interval-spread", choices=["none", "kriging"], default="none",
-                    help="scale intervals by the well-tie kriging standard deviation (narrow near wells)")
+    tr.add_argument("--interval-spread", choices=["none", "features", "kriging"], default="features",
+                    help="scale intervals by a local error spread: learnt from the attributes (default), "
+                    "the well-tie kriging standard deviation (narrow near wells), or none (constant width)")
     tr.add_argument("--drop-outside", action="store_true", help="leave out wells off the grid, with a warning")
     tr.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
     tr.add_argument("--threads", type=int, default=1, help="LightGBM threads (default 1; results do not depend on it)")

@@ -366,6 +366,56 @@ class WellTies:
         return model
 
 
+class Blend:
+    """Weighted average of fitted candidates (stacking with non-negative weights summing to one).
+
+    The weights are fitted to the members' out-of-fold predictions (Breiman 1996, stacked
+    regressions), so they reward what each member does away from its training wells.
+    """
+
+    task = "regression"
+
+    def __init__(self, members: list, weights, name: str = "blend"):
+        self.members = members
+        self.weights = np.asarray(weights, float)
+        self.name = name
+        self.features = sorted({f for m in members for f in m.features})
+
+    def fit(self, data: FitData) -> Blend:
+        self.members = [type_copy(m).fit(data) for m in self.members]
+        return self
+
+    def predict(self, X, xy) -> np.ndarray:
+        return sum(w * m.predict(X, xy) for w, m in zip(self.weights, self.members, strict=True) if w > 0)
+
+    def save(self, folder: Path, stem: str) -> dict:
+        return {"type": "blend", "name": self.name, "weights": self.weights.tolist(),
+                "members": [m.save(folder, f"{stem}.member{i}") for i, m in enumerate(self.members)]}
+
+    @classmethod
+    def load(cls, desc: dict, folder: Path) -> Blend:
+        return cls([load_candidate(m, folder) for m in desc["members"]], desc["weights"], desc["name"])
+
+
+def blend_weights(predictions: np.ndarray, y: np.ndarray, sample_weight: np.ndarray) -> np.ndarray:
+    """Non-negative weights summing to one that minimise the weighted squared error."""
+    from scipy.optimize import minimize
+
+    m = predictions.shape[1]
+    sw = np.asarray(sample_weight, float)
+
+    def loss(w):
+        r = predictions @ w - y
+        return float(np.sum(sw * r**2))
+
+    start = np.full(m, 1.0 / m)
+    result = minimize(loss, start, method="SLSQP", bounds=[(0.0, 1.0)] * m,
+                      constraints=[{"type": "eq", "fun": lambda w: np.sum(w) - 1.0}])
+    w = np.clip(result.x if result.success else start, 0.0, None)
+    w[w < 1e-3] = 0.0
+    return w / w.sum()
+
+
 def out_of_fold(candidate, data: FitData, n_splits: int) -> np.ndarray:
     """Out-of-fold predictions of ``candidate`` over folds of whole blocks (``data.groups``)."""
     n_splits = max(2, n_splits)
@@ -384,11 +434,14 @@ def type_copy(candidate):
         return LightGBM(candidate.task, candidate.features, candidate.name, candidate.monotone, candidate.max_rounds)
     if isinstance(candidate, Kriging):
         return Kriging(candidate.name)
+    if isinstance(candidate, Blend):
+        return Blend([type_copy(m) for m in candidate.members], candidate.weights, candidate.name)
     return type(candidate)(candidate.features, candidate.name)
 
 
 LOADERS = {"linear": Linear, "logistic": Logistic, "lightgbm": LightGBM, "kriging": Kriging,
-           "regression_kriging": RegressionKriging, "facies_mixture": FaciesMixture, "well_ties": WellTies}
+           "regression_kriging": RegressionKriging, "facies_mixture": FaciesMixture, "well_ties": WellTies,
+           "blend": Blend}
 
 
 def load_candidate(desc: dict, folder: Path):

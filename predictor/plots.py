@@ -150,3 +150,73 @@ def weighted_histograms(values, weights, name: str, path, truth=None) -> Path:
     ax.set_xlabel(name)
     ax.legend(fontsize=8)
     return save(fig, path)
+
+
+def _wells_on(ax, wells: pd.DataFrame | None):
+    if wells is not None:
+        ax.scatter(wells["x"], wells["y"], s=12, c="white", edgecolor="k", linewidths=0.6, label="wells")
+
+
+def facies_maps(maps: xr.Dataset, target: str, wells: pd.DataFrame | None, path) -> Path:
+    """Most probable class and the probability of each class, wells on top."""
+    classes = maps[target].attrs["flag_meanings"].split(" ")
+    colours = _category_colours(classes)
+    n = len(classes) + 1
+    fig, axes = plt.subplots(1, n, figsize=(4.3 * n, 4.0), squeeze=False, layout="constrained")
+    codes = maps[target].to_numpy().astype(float)
+    codes[codes < 0] = np.nan
+    cmap = matplotlib.colors.ListedColormap([colours[c] for c in classes])
+    ax = axes[0][0]
+    im = _background(ax, maps.assign(_codes=(("y", "x"), codes)), "_codes", cmap=cmap, vmin=-0.5,
+                     vmax=len(classes) - 0.5)
+    bar = fig.colorbar(im, ax=ax, shrink=0.7, ticks=range(len(classes)), location="bottom")
+    bar.ax.set_xticklabels(classes, fontsize=8)
+    _wells_on(ax, wells)
+    ax.set_title(f"most probable {target}", fontsize=10)
+    for ax, cls in zip(axes[0][1:], classes, strict=True):
+        im = _background(ax, maps, f"{target}_prob_{cls}", cmap="magma", vmin=0, vmax=1)
+        fig.colorbar(im, ax=ax, shrink=0.7, location="bottom", label="probability")
+        _wells_on(ax, wells)
+        ax.set_title(f"P({target} = {cls})", fontsize=10)
+    return save(fig, path)
+
+
+def property_maps(maps: xr.Dataset, target: str, wells: pd.DataFrame | None, path, log: bool = False) -> Path:
+    """Median (q50) map and interval width (q90 - q10), wells on top."""
+    fig, axes = plt.subplots(1, 2, figsize=(10.5, 4.3), layout="constrained")
+    q50 = maps[target]
+    width = maps[f"{target}_q90"] - maps[f"{target}_q10"]
+    if log:
+        q50 = np.log10(q50)
+        width = np.log10(maps[f"{target}_q90"]) - np.log10(maps[f"{target}_q10"])
+    shown = maps.assign(_q50=q50, _width=width)
+    unit = " (log10 mD)" if log else ""
+    im = _background(axes[0], shown, "_q50", cmap="viridis")
+    fig.colorbar(im, ax=axes[0], shrink=0.7, location="bottom", label=f"{target} q50{unit}")
+    im = _background(axes[1], shown, "_width", cmap="cividis")
+    fig.colorbar(im, ax=axes[1], shrink=0.7, location="bottom", label=f"q90 - q10{unit}")
+    for ax, title in zip(axes, (f"{target}: median (q50)", f"{target}: 80 % interval width"), strict=True):
+        _wells_on(ax, wells)
+        ax.set_title(title, fontsize=10)
+    return save(fig, path)
+
+
+def leaderboard_chart(leaderboard: list[dict], metric: str, target: str, path) -> Path:
+    """Blocked vs random CV score of every candidate; baselines hatched, the chosen one marked."""
+    rows = [r for r in leaderboard if r.get("cv_random")]
+    names = [r["candidate"] + (" *" if r["chosen"] else "") for r in rows]
+    blocked = [r["cv"][metric] for r in rows]
+    random = [r["cv_random"][metric] for r in rows]
+    pos = np.arange(len(rows))
+    fig, ax = plt.subplots(figsize=(7, 0.45 * len(rows) + 1.4), layout="constrained")
+    bars = ax.barh(pos - 0.2, blocked, 0.4, label="spatial blocks (reported)", color="tab:blue")
+    ax.barh(pos + 0.2, random, 0.4, label="random k-fold (optimistic)", color="tab:gray", alpha=0.6)
+    for bar, row in zip(bars, rows, strict=True):
+        if row["baseline"]:
+            bar.set_hatch("//")
+    ax.set_yticks(pos, names, fontsize=8)
+    ax.invert_yaxis()
+    ax.set_xlabel(f"{metric} (declustering-weighted)")
+    ax.set_title(f"{target}: cross-validation leaderboard (* chosen, hatched = baseline)", fontsize=10)
+    ax.legend(fontsize=8, loc="lower right")
+    return save(fig, path)

@@ -30,6 +30,13 @@ def _predict_chunks(model, X: pd.DataFrame, xy: np.ndarray, chunk_rows: int) -> 
     return np.concatenate(parts) if parts else np.empty(0)
 
 
+def local_spread(spread, model, X: pd.DataFrame, xy: np.ndarray) -> np.ndarray:
+    """The local error spread that scales the intervals: a feature model, or the well-tie kriging sd."""
+    if spread == "kriging":
+        return np.sqrt(model.residual_variance(xy))
+    return spread.predict(X)
+
+
 def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int = CHUNK_ROWS) -> xr.Dataset:
     """Predict every target of the bundle on every valid node of ``grid``."""
     if not isinstance(bundle, Bundle):
@@ -74,7 +81,7 @@ def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int 
                 out[f"{target}_prob_{cls}"].attrs.update(units="1", long_name=f"probability of {target} {cls}")
             continue
         cal = bundle.calibrations[target]
-        spread = np.sqrt(model.residual_variance(xy)) if cal.scaled else None
+        spread = local_spread(bundle.spreads[target], model, X, xy) if cal.scaled else None
         q10, q90 = cal.apply(raw, spread)
         back = (lambda v: 10.0**v) if info.get("transform") == "log10" else (lambda v: v)
         units = "mD" if target == "permeability" else ("1" if target == "porosity" else "")

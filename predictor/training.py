@@ -18,8 +18,9 @@ from sklearn.model_selection import KFold
 from .declustering import cell_declustering, declustered_statistics, nearest_node_weights
 from .errors import InputError, ModelError, PredictorWarning
 from .features import FeatureSpec, build_features, features_at_wells, location_features
-from .intervals import IntervalCalibration, calibrate
+from .intervals import IntervalCalibration, SpreadModel, calibrate, effective_size
 from .models import (
+    Blend,
     FaciesMixture,
     FitData,
     Kriging,
@@ -28,6 +29,7 @@ from .models import (
     Logistic,
     RegressionKriging,
     WellTies,
+    blend_weights,
     type_copy,
 )
 from .qc import grid_findings, physical_findings
@@ -58,7 +60,7 @@ class TrainOptions:
     declustering: Literal["cell", "nearest_node", "none"] = "cell"
     monotone: bool = False
     well_ties: Literal["auto", "always", "never"] = "auto"
-    interval_spread: Literal["none", "kriging"] = "none"
+    interval_spread: Literal["none", "features", "kriging"] = "features"
     sample_method: Literal["bilinear", "nearest"] = "bilinear"
     drop_outside: bool = False
     seed: int = 0
@@ -88,6 +90,16 @@ class TargetModel:
     observed: np.ndarray
     weights: np.ndarray
     variogram: dict | None = None
+    data: FitData | None = None
+    candidates: dict = field(default_factory=dict)
+    spread: SpreadModel | str | None = None
+
+    def refit(self, candidate: str):
+        """Fit the named leaderboard candidate (a baseline, say) on all wells, for comparison maps."""
+        if candidate not in self.candidates:
+            raise ModelError(f"no candidate {candidate!r} for {self.name}; the leaderboard has "
+                             f"{', '.join(self.candidates)}")
+        return type_copy(self.candidates[candidate]).fit(self.data)
 
 
 @dataclass
@@ -278,17 +290,31 @@ def train(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> Train
         board = []
         oofs = {}
         candidates = _candidates(task, target, attrs, names, wells, options)
+        random_oofs = {}
         for cand in candidates:
             oof = cross_validate(cand, data, splitter)
             oofs[cand.name] = (cand, oof)
+            random_oofs[cand.name] = cross_validate(cand, data, random_cv)
             board.append({"candidate": cand.name, "baseline": cand.name in BASELINES,
                           "features": list(cand.features), "cv": _score(task, y, oof, data.weights, classes),
-                          "cv_random": _score(task, y, cross_validate(cand, data, random_cv), data.weights, classes)})
-        key, sign = ("rmse", 1) if task == "regression" else ("log_loss", 1)
-        best = min(board, key=lambda r: sign * r["cv"][key])
+                          "cv_random": _score(task, y, random_oofs[cand.name], data.weights, classes)})
+        if task == "regression" and len(candidates) > 2:
+            blend, oof = _blend(candidates, {k: v[1] for k, v in oofs.items()}, data, splitter)
+            _, random_oof = _blend(candidates, random_oofs, data, random_cv)
+            oofs[blend.name] = (blend, oof)
+            board.append({"candidate": blend.name, "baseline": False, "features": list(blend.features),
+                          "cv": _score(task, y, oof, data.weights, classes),
+                          "cv_random": _score(task, y, random_oof, data.weights, classes),
+                          "members": {m.name: float(w) for m, w in zip(blend.members, blend.weights, strict=True)}})
+        key = "rmse" if task == "regression" else "log_loss"
+        best = min(board, key=lambda r: r["cv"][key])
+        if task == "regression" and "blend" in oofs and best["candidate"] != "blend":
+            # the blend averages the candidates and is the stable default; a single one must clearly beat it
+            if not _clearly_better(oofs[best["candidate"]][1], oofs["blend"][1], y, data.weights):
+                best = next(r for r in board if r["candidate"] == "blend")
         chosen = best["candidate"]
-        if task == "regression" and options.well_ties != "never" and not isinstance(oofs[chosen][0],
-                                                                                   Kriging | RegressionKriging):
+        if task == "regression" and options.well_ties != "never" and not isinstance(
+                oofs[chosen][0], Kriging | RegressionKriging):
             tied = WellTies(type_copy(oofs[chosen][0]))
             oof = cross_validate(tied, data, splitter)
             oofs[tied.name] = (tied, oof)
@@ -296,27 +322,68 @@ def train(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> Train
                    "cv": _score(task, y, oof, data.weights, classes),
                    "cv_random": _score(task, y, cross_validate(tied, data, random_cv), data.weights, classes)}
             board.append(row)
-            if options.well_ties == "always" or row["cv"]["rmse"] < best["cv"]["rmse"]:
+            if options.well_ties == "always" or _clearly_better(oof, oofs[chosen][1], y, data.weights):
                 chosen = tied.name
         model, oof = oofs[chosen]
-        calibration = None
+        calibration, spread_model = None, None
         if task == "regression":
-            spread = None
+            oof_spread = None
             if options.interval_spread == "kriging" and isinstance(model, WellTies):
-                spread = _oof_spread(model, data, splitter)
-            calibration = calibrate(y - oof, data.weights, spread=spread)
+                oof_spread, spread_model = _oof_spread(model, data, splitter), "kriging"
+            elif options.interval_spread in ("features", "kriging"):
+                if options.interval_spread == "kriging":
+                    notes.append(f"{target}: kriging spread needs a well-tied model; intervals use the feature spread")
+                oof_spread, spread_model = _feature_spread(attrs, data, y - oof, splitter)
+            calibration = calibrate(y - oof, data.weights, spread=oof_spread)
         final = type_copy(model).fit(data)
         for row in board:
             row["chosen"] = row["candidate"] == chosen
         results[target] = TargetModel(name=target, task=task, transform=transform, classes=classes, model=final,
                                       calibration=calibration, block_size=block, block_size_source=block_source,
                                       leaderboard=board, chosen=chosen, oof=oof, observed=y, weights=data.weights,
-                                      variogram=vario)
+                                      variogram=vario, data=data, candidates={k: v[0] for k, v in oofs.items()},
+                                      spread=spread_model)
     loc = location_features(names)
     if loc:
         notes.append(f"location features {', '.join(loc)} are in use: they let a model memorise where the wells are; "
                      "compare with the attributes-only candidate in the leaderboard")
     return TrainedModels(options, spec, names, ranges, wells, weights, decl, stats, results, notes)
+
+
+def _clearly_better(challenger: np.ndarray, incumbent: np.ndarray, y, weights) -> bool:
+    """True when the challenger's out-of-fold squared errors beat the incumbent's by more than
+    one standard error of the (declustering-weighted) paired difference.
+
+    Picking the lowest CV score among many candidates rewards luck on a few dozen wells; the
+    one-standard-error rule (Breiman et al. 1984; Hastie et al., Elements of Statistical
+    Learning, section 7.10) keeps the more stable choice unless the data say otherwise.
+    """
+    diff = (y - challenger) ** 2 - (y - incumbent) ** 2
+    w = weights / weights.sum()
+    mean = float(np.sum(w * diff))
+    se = float(np.sqrt(np.sum(w * (diff - mean) ** 2) / max(effective_size(weights) - 1, 1)))
+    return mean < -se
+
+
+def _blend(candidates, oofs, data: FitData, splitter):
+    """Stacked blend of all candidates; its CV score uses weights fitted without the scored fold."""
+    names = [c.name for c in candidates]
+    P = np.column_stack([oofs[n] for n in names])
+    oof = np.zeros(len(data.y))
+    for train, test in splitter.split(data.xy):
+        w = blend_weights(P[train], data.y[train], data.weights[train])
+        oof[test] = P[test] @ w
+    weights = blend_weights(P, data.y, data.weights)
+    return Blend(list(candidates), weights), oof
+
+
+def _feature_spread(attrs, data: FitData, residuals, splitter):
+    """Cross-fitted spread at each well (for calibration) and the spread model fitted on all wells."""
+    spread = np.zeros(len(residuals))
+    for train, test in splitter.split(data.xy):
+        model = SpreadModel(attrs).fit(data.X.iloc[train], residuals[train], data.weights[train])
+        spread[test] = model.predict(data.X.iloc[test])
+    return spread, SpreadModel(attrs).fit(data.X, residuals, data.weights)
 
 
 def _oof_spread(model: WellTies, data: FitData, splitter) -> np.ndarray:

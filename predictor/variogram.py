@@ -117,6 +117,18 @@ def fit_variogram(exp: Experimental, kinds: tuple[str, ...] = KINDS) -> Variogra
     return best
 
 
+MIN_NUGGET_SHARE = 0.02
+
+
 def auto_variogram(x, y, values, n_lags: int = 12) -> VariogramModel:
-    """Experimental omnidirectional semivariogram and the best-fitting model in one call."""
-    return fit_variogram(experimental(x, y, values, n_lags=n_lags))
+    """Experimental omnidirectional semivariogram and the best-fitting model in one call.
+
+    The nugget is kept at 2 % of the total sill or more: a (near) nugget-free model, the
+    Gaussian above all, makes the kriging system ill-conditioned and its estimates swing wildly
+    between wells (common practice).
+    """
+    model = fit_variogram(experimental(x, y, values, n_lags=n_lags))
+    total = model.nugget + model.sill
+    if model.nugget < MIN_NUGGET_SHARE * total:
+        model = VariogramModel(model.kind, MIN_NUGGET_SHARE * total, (1 - MIN_NUGGET_SHARE) * total, model.range)
+    return model
