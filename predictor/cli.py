@@ -52,8 +52,9 @@ def build_parser() -> argparse.ArgumentParser:
     tr.add_argument("--block-angle", type=float, default=0.0, help="rotation of the CV blocks in degrees")
     tr.add_argument("--cv", choices=["blocks", "buffered"], default="blocks",
                     help="block k-fold, or buffered leave-one-out with the block size as exclusion radius")
-    tr.add_argument("--declustering", choices=["cell", "nearest_node", "none"], default="cell",
-                    help="declustering weights used as sample weights and score weights (default cell)")
+    tr.add_argument("--declustering", choices=["cell", "nearest_node", "none"], default="nearest_node",
+                    help="declustering weights used as sample weights and score weights (default nearest_node: "
+                    "each well's share of the grid nodes nearest to it)")
     tr.add_argument("--monotone", action="store_true",
                     help="also try LightGBM constrained to be non-increasing in impedance")
     tr.add_argument("--well-ties", choices=["auto", "always", "never"], default="auto",

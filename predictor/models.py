@@ -373,9 +373,8 @@ class Blend:
     regressions), so they reward what each member does away from its training wells.
     """
 
-    task = "regression"
-
     def __init__(self, members: list, weights, name: str = "blend"):
+        self.task = members[0].task
         self.members = members
         self.weights = np.asarray(weights, float)
         self.name = name
@@ -397,16 +396,26 @@ class Blend:
         return cls([load_candidate(m, folder) for m in desc["members"]], desc["weights"], desc["name"])
 
 
+def combine(predictions: np.ndarray, weights: np.ndarray) -> np.ndarray:
+    """Weighted sum over the member axis (1) of (n, m) values or (n, m, k) class probabilities."""
+    return np.tensordot(predictions, weights, axes=([1], [0])) if predictions.ndim == 2 else \
+        np.einsum("nmk,m->nk", predictions, weights)
+
+
 def blend_weights(predictions: np.ndarray, y: np.ndarray, sample_weight: np.ndarray) -> np.ndarray:
-    """Non-negative weights summing to one that minimise the weighted squared error."""
+    """Non-negative weights summing to one that minimise the weighted squared error (values of
+    shape (n, m)) or the weighted log-loss (class probabilities of shape (n, m, k), y codes)."""
     from scipy.optimize import minimize
 
     m = predictions.shape[1]
     sw = np.asarray(sample_weight, float)
+    rows = np.arange(len(y))
 
     def loss(w):
-        r = predictions @ w - y
-        return float(np.sum(sw * r**2))
+        if predictions.ndim == 2:
+            return float(np.sum(sw * (predictions @ w - y) ** 2))
+        p = np.clip(combine(predictions, w)[rows, y.astype(int)], 1e-12, None)
+        return float(-np.sum(sw * np.log(p)))
 
     start = np.full(m, 1.0 / m)
     result = minimize(loss, start, method="SLSQP", bounds=[(0.0, 1.0)] * m,

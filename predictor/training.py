@@ -30,6 +30,7 @@ from .models import (
     RegressionKriging,
     WellTies,
     blend_weights,
+    combine,
     type_copy,
 )
 from .qc import grid_findings, physical_findings
@@ -57,7 +58,7 @@ class TrainOptions:
     block_size: float | None = None
     block_angle: float = 0.0
     cv: Literal["blocks", "buffered"] = "blocks"
-    declustering: Literal["cell", "nearest_node", "none"] = "cell"
+    declustering: Literal["cell", "nearest_node", "none"] = "nearest_node"
     monotone: bool = False
     well_ties: Literal["auto", "always", "never"] = "auto"
     interval_spread: Literal["none", "features", "kriging"] = "features"
@@ -192,7 +193,8 @@ def _candidates(task: Task, target: str, attrs: list[str], names: list[str], wel
     if task == "classification":
         out = [Logistic(attrs), LightGBM("classification", names)]
         if names != attrs:
-            out.append(LightGBM("classification", attrs, "lightgbm_attributes_only"))
+            out += [Logistic(names, "logistic_all_features"),
+                    LightGBM("classification", attrs, "lightgbm_attributes_only")]
         return out
     out = [Linear(attrs), Kriging(), RegressionKriging(attrs), LightGBM("regression", names)]
     if names != attrs:
@@ -298,7 +300,7 @@ def train(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> Train
             board.append({"candidate": cand.name, "baseline": cand.name in BASELINES,
                           "features": list(cand.features), "cv": _score(task, y, oof, data.weights, classes),
                           "cv_random": _score(task, y, random_oofs[cand.name], data.weights, classes)})
-        if task == "regression" and len(candidates) > 2:
+        if len(candidates) >= 2:
             blend, oof = _blend(candidates, {k: v[1] for k, v in oofs.items()}, data, splitter)
             _, random_oof = _blend(candidates, random_oofs, data, random_cv)
             oofs[blend.name] = (blend, oof)
@@ -308,9 +310,10 @@ def train(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> Train
                           "members": {m.name: float(w) for m, w in zip(blend.members, blend.weights, strict=True)}})
         key = "rmse" if task == "regression" else "log_loss"
         best = min(board, key=lambda r: r["cv"][key])
-        if task == "regression" and "blend" in oofs and best["candidate"] != "blend":
+        if "blend" in oofs and best["candidate"] != "blend":
             # the blend averages the candidates and is the stable default; a single one must clearly beat it
-            if not _clearly_better(oofs[best["candidate"]][1], oofs["blend"][1], y, data.weights):
+            if not _clearly_better(_losses(y, oofs[best["candidate"]][1]), _losses(y, oofs["blend"][1]),
+                                   data.weights):
                 best = next(r for r in board if r["candidate"] == "blend")
         chosen = best["candidate"]
         if task == "regression" and options.well_ties != "never" and not isinstance(
@@ -322,7 +325,8 @@ def train(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> Train
                    "cv": _score(task, y, oof, data.weights, classes),
                    "cv_random": _score(task, y, cross_validate(tied, data, random_cv), data.weights, classes)}
             board.append(row)
-            if options.well_ties == "always" or _clearly_better(oof, oofs[chosen][1], y, data.weights):
+            if options.well_ties == "always" or _clearly_better(_losses(y, oof), _losses(y, oofs[chosen][1]),
+                                                                data.weights):
                 chosen = tied.name
         model, oof = oofs[chosen]
         calibration, spread_model = None, None
@@ -350,15 +354,22 @@ def train(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> Train
     return TrainedModels(options, spec, names, ranges, wells, weights, decl, stats, results, notes)
 
 
-def _clearly_better(challenger: np.ndarray, incumbent: np.ndarray, y, weights) -> bool:
-    """True when the challenger's out-of-fold squared errors beat the incumbent's by more than
+def _losses(y: np.ndarray, oof: np.ndarray) -> np.ndarray:
+    """Per-well loss: squared error (values) or log-loss (class probabilities, y as codes)."""
+    if oof.ndim == 1:
+        return (y - oof) ** 2
+    return -np.log(np.clip(oof[np.arange(len(y)), y.astype(int)], 1e-15, None))
+
+
+def _clearly_better(challenger: np.ndarray, incumbent: np.ndarray, weights) -> bool:
+    """True when the challenger's per-well out-of-fold losses beat the incumbent's by more than
     one standard error of the (declustering-weighted) paired difference.
 
     Picking the lowest CV score among many candidates rewards luck on a few dozen wells; the
     one-standard-error rule (Breiman et al. 1984; Hastie et al., Elements of Statistical
     Learning, section 7.10) keeps the more stable choice unless the data say otherwise.
     """
-    diff = (y - challenger) ** 2 - (y - incumbent) ** 2
+    diff = challenger - incumbent
     w = weights / weights.sum()
     mean = float(np.sum(w * diff))
     se = float(np.sqrt(np.sum(w * (diff - mean) ** 2) / max(effective_size(weights) - 1, 1)))
@@ -368,11 +379,11 @@ def _clearly_better(challenger: np.ndarray, incumbent: np.ndarray, y, weights) -
 def _blend(candidates, oofs, data: FitData, splitter):
     """Stacked blend of all candidates; its CV score uses weights fitted without the scored fold."""
     names = [c.name for c in candidates]
-    P = np.column_stack([oofs[n] for n in names])
-    oof = np.zeros(len(data.y))
+    P = np.stack([oofs[n] for n in names], axis=1)
+    oof = np.zeros((len(data.y),) + P.shape[2:])
     for train, test in splitter.split(data.xy):
         w = blend_weights(P[train], data.y[train], data.weights[train])
-        oof[test] = P[test] @ w
+        oof[test] = combine(P[test], w)
     weights = blend_weights(P, data.y, data.weights)
     return Blend(list(candidates), weights), oof
 

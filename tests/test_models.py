@@ -1,0 +1,102 @@
+"""Candidate models: stacking weights, selection rule, monotone constraint, spread model, saving."""
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from predictor.intervals import SpreadModel, calibrate
+from predictor.models import (
+    Blend,
+    FaciesMixture,
+    FitData,
+    LightGBM,
+    Linear,
+    Logistic,
+    blend_weights,
+    load_candidate,
+)
+from predictor.training import _clearly_better, _losses
+
+
+def _data(n=200, seed=0, classes=()):
+    rng = np.random.default_rng(seed)
+    imp = rng.uniform(6000, 12000, n)
+    other = rng.normal(size=n)
+    phi = 0.35 - 2.5e-5 * imp + rng.normal(0, 0.01, n)
+    xy = rng.uniform(0, 2000, (n, 2))
+    groups = (xy[:, 0] // 400).astype(int) * 10 + (xy[:, 1] // 400).astype(int)
+    X = pd.DataFrame({"impedance": imp, "other": other})
+    return FitData(X, phi, np.ones(n), xy, groups, list(classes), seed=seed)
+
+
+def test_blend_weights_find_the_exact_member():
+    rng = np.random.default_rng(1)
+    y = rng.normal(size=100)
+    P = np.column_stack([y + rng.normal(0, 1, 100), y, y + rng.normal(0, 2, 100)])
+    np.testing.assert_allclose(blend_weights(P, y, np.ones(100)), [0, 1, 0], atol=1e-3)
+    w = blend_weights(P[:, [0, 2]], y, np.ones(100))
+    assert w.sum() == pytest.approx(1) and np.all(w >= 0) and w[0] > w[1]  # the less noisy member weighs more
+
+
+def test_one_standard_error_rule():
+    rng = np.random.default_rng(2)
+    y = rng.normal(size=300)
+    good, noisy = y + rng.normal(0, 0.5, 300), y + rng.normal(0, 1.0, 300)
+    w = np.ones(300)
+    assert _clearly_better(_losses(y, good), _losses(y, noisy), w)
+    assert not _clearly_better(_losses(y, noisy), _losses(y, good), w)
+    twin = good + rng.normal(0, 0.01, 300)
+    assert not _clearly_better(_losses(y, twin), _losses(y, good), w)  # a hair better is not clearly better
+
+
+def test_monotone_lightgbm_never_rises_with_impedance():
+    data = _data(300)
+    data.y = data.y + 0.02 * np.sin(data.X["impedance"].to_numpy() / 300)  # wiggles a free model would follow
+    model = LightGBM("regression", ["impedance", "other"], monotone={"impedance": -1}).fit(data)
+    sweep = pd.DataFrame({"impedance": np.linspace(6000, 12000, 400), "other": 0.3})
+    assert np.all(np.diff(model.predict(sweep)) <= 1e-12)
+    free = LightGBM("regression", ["impedance", "other"]).fit(data)
+    assert np.any(np.diff(free.predict(sweep)) > 1e-6)
+
+
+def test_save_and_load_predict_identically(tmp_path):
+    data = _data(150)
+    codes = (data.X["impedance"] < 9000).astype(int).to_numpy()
+    cls = FitData(data.X, codes, data.weights, data.xy, data.groups, ["hard", "soft"])
+    mixture_data = FitData(data.X, data.y, data.weights, data.xy, data.groups, [], codes, ["hard", "soft"])
+    models = [Linear(["impedance"]).fit(data), LightGBM("regression", ["impedance", "other"]).fit(data),
+              Logistic(["impedance"]).fit(cls), LightGBM("classification", ["impedance"]).fit(cls),
+              FaciesMixture(["impedance"]).fit(mixture_data),
+              Blend([Linear(["impedance"]), LightGBM("regression", ["impedance"])], [0.3, 0.7]).fit(data)]
+    for i, model in enumerate(models):
+        desc = model.save(tmp_path, f"m{i}")
+        back = load_candidate(desc, tmp_path)
+        np.testing.assert_array_equal(model.predict(data.X, data.xy), back.predict(data.X, data.xy))
+
+
+def test_logistic_handles_classes_missing_from_a_fold():
+    data = _data(80)
+    codes = (data.X["impedance"] < 9000).astype(int).to_numpy()  # classes 0, 1 of three
+    model = Logistic(["impedance"]).fit(FitData(data.X, codes, data.weights, data.xy, data.groups, ["a", "b", "c"]))
+    proba = model.predict(data.X)
+    assert proba.shape == (80, 3) and np.all(proba[:, 2] < 1e-6)
+    np.testing.assert_allclose(proba.sum(axis=1), 1)
+
+
+def test_spread_model_widens_where_errors_are_larger():
+    rng = np.random.default_rng(3)
+    n = 2000
+    imp = rng.uniform(0, 1, n)
+    resid = rng.normal(0, 0.2 * np.exp(2.5 * imp))  # error spread grows with the attribute (log-linear)
+    X = pd.DataFrame({"impedance": imp})
+    model = SpreadModel(["impedance"]).fit(X[:1000], resid[:1000], np.ones(1000))
+    s = model.predict(X)
+    assert s[imp > 0.8].mean() > 3 * s[imp < 0.2].mean()
+    cal = calibrate(resid[:1000], np.ones(1000), spread=s[:1000])
+    q10, q90 = cal.apply(np.zeros(n - 1000), s[1000:])
+    new = resid[1000:]
+    inside = (new >= q10) & (new <= q90)
+    hi, lo = imp[1000:] > 0.7, imp[1000:] < 0.3
+    # locally scaled intervals cover about 80 % in both regimes (constant ones would not)
+    assert inside[hi].mean() == pytest.approx(0.8, abs=0.07)
+    assert inside[lo].mean() == pytest.approx(0.8, abs=0.07)
