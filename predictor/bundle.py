@@ -13,9 +13,11 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 
 from . import __version__
 from .errors import BundleError
+from .explain import Applicability
 from .features import FeatureSpec
 from .intervals import IntervalCalibration, SpreadModel
 from .io.atomic import atomic_folder
@@ -68,6 +70,11 @@ def model_card(trained, inputs: dict | None = None) -> dict:
             "interval_spread": (tm.spread if isinstance(tm.spread, str) or tm.spread is None
                                 else "features: log|residual| linear in " + ", ".join(tm.spread.features)),
             "n_wells": int(tm.observed.size),
+            "importance": {"measure": "declustering-weighted mean |SHAP| at the wells (raw model output)",
+                           "values": tm.importance.round(8).to_dict() if tm.importance is not None else {}},
+            "trust": tm.trust,
+            "applicability": {"threshold": tm.applicability.threshold if tm.applicability else None,
+                              **tm.applicability_cv},
         }
     return {
         "schema_version": SCHEMA_VERSION,
@@ -80,6 +87,7 @@ def model_card(trained, inputs: dict | None = None) -> dict:
         "declustering": trained.declustering,
         "naive": trained.statistics["naive"],
         "declustered": trained.statistics["declustered"],
+        "declustered_cell": trained.statistics["declustered_cell"],
         "targets": targets,
         "warnings": trained.warnings,
         "wells": {"count": int(len(trained.wells)),
@@ -103,6 +111,11 @@ def save_bundle(trained, folder: str | Path, inputs: dict | None = None, overwri
                 (sub / "calibration.json").write_text(dumps({**tm.calibration.to_dict(), "spread": spread}),
                                                       encoding="utf-8")
             card["targets"][name]["model_file"] = f"{name}/model.json"
+            if tm.applicability is not None:
+                (sub / "applicability.json").write_text(dumps(tm.applicability.to_dict()), encoding="utf-8")
+        table = trained.wells.assign(weight=trained.weights)
+        features = trained.well_features.add_prefix("feature:")
+        pd.concat([table, features], axis=1).to_csv(tmp / "training_wells.csv", index=False, lineterminator="\n")
         card["files"] = {str(p.relative_to(tmp)): sha256(p) for p in sorted(tmp.rglob("*")) if p.is_file()}
         (tmp / CARD).write_text(dumps(card), encoding="utf-8")
     return folder
@@ -115,6 +128,13 @@ class Bundle:
     models: dict
     calibrations: dict
     spreads: dict
+    applicability: dict
+
+    def training_wells(self) -> tuple[pd.DataFrame, pd.DataFrame]:
+        """The training wells (id, coordinates, targets, weight) and their features, row for row."""
+        table = pd.read_csv(self.folder / "training_wells.csv")
+        cols = [c for c in table.columns if c.startswith("feature:")]
+        return table.drop(columns=cols), table[cols].rename(columns=lambda c: c[len("feature:"):])
 
     @property
     def feature_spec(self) -> FeatureSpec:
@@ -144,7 +164,7 @@ def load_bundle(folder: str | Path) -> Bundle:
         if sha256(path) != digest:
             raise BundleError(f"{folder}: file {rel} was altered since training (SHA-256 differs); "
                               "load bundles only from trusted sources, or retrain")
-    models, calibrations, spreads = {}, {}, {}
+    models, calibrations, spreads, applicability = {}, {}, {}, {}
     for name, info in card["targets"].items():
         rel = info["model_file"]
         if rel not in card.get("files", {}):
@@ -152,9 +172,12 @@ def load_bundle(folder: str | Path) -> Bundle:
         desc = json.loads((folder / rel).read_text(encoding="utf-8"))
         models[name] = load_candidate(desc, (folder / rel).parent)
         calibrations[name], spreads[name] = None, None
+        aoa_path = folder / name / "applicability.json"
+        applicability[name] = (Applicability.from_dict(json.loads(aoa_path.read_text(encoding="utf-8")))
+                               if aoa_path.exists() else None)
         if info.get("calibration"):
             stored = json.loads((folder / name / "calibration.json").read_text(encoding="utf-8"))
             spread = stored.pop("spread", None)
             calibrations[name] = IntervalCalibration(**stored)
             spreads[name] = SpreadModel.from_dict(spread) if isinstance(spread, dict) else spread
-    return Bundle(folder, plain(card), models, calibrations, spreads)
+    return Bundle(folder, plain(card), models, calibrations, spreads, applicability)

@@ -52,9 +52,9 @@ def build_parser() -> argparse.ArgumentParser:
     tr.add_argument("--block-angle", type=float, default=0.0, help="rotation of the CV blocks in degrees")
     tr.add_argument("--cv", choices=["blocks", "buffered"], default="blocks",
                     help="block k-fold, or buffered leave-one-out with the block size as exclusion radius")
-    tr.add_argument("--declustering", choices=["cell", "nearest_node", "none"], default="nearest_node",
-                    help="declustering weights used as sample weights and score weights (default nearest_node: "
-                    "each well's share of the grid nodes nearest to it)")
+    tr.add_argument("--declustering", choices=["cell", "nearest_node", "none"], default="cell",
+                    help="declustering weights used as sample weights and score weights (default cell); "
+                    "declustered statistics always use nearest-node weights")
     tr.add_argument("--monotone", action="store_true",
                     help="also try LightGBM constrained to be non-increasing in impedance")
     tr.add_argument("--well-ties", choices=["auto", "always", "never"], default="auto",
@@ -71,6 +71,19 @@ def build_parser() -> argparse.ArgumentParser:
     pr.add_argument("--grid", required=True, help="grid with the attributes the bundle was trained on")
     pr.add_argument("--out", required=True, help="maps file: .csv or .nc")
     pr.add_argument("--overwrite", action="store_true", help="replace an existing maps file")
+
+    ex = sub.add_parser("explain", help="SHAP importance, summary and dependence plots, SHAP at the wells and "
+                        "contribution maps for every target of a bundle")
+    ex.add_argument("bundle", help="bundle folder written by `predictor train`")
+    ex.add_argument("--grid", help="grid for contribution maps (optional)")
+    ex.add_argument("--out", default="explanations", help="output folder (default explanations)")
+    ex.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
+
+    rp = sub.add_parser("report", help="one self-contained HTML report of a bundle (figures embedded)")
+    rp.add_argument("bundle", help="bundle folder written by `predictor train`")
+    rp.add_argument("--out", default="report.html", help="HTML file to write (default report.html)")
+    rp.add_argument("--grid", help="grid to map (default: the grid the bundle was trained on)")
+    rp.add_argument("--overwrite", action="store_true", help="replace an existing report")
 
     demo = sub.add_parser("demo", help="run the whole job on the bundled synthetic Tarnwick field")
     demo.add_argument("--out", default="demo_output", help="output folder (default demo_output)")
@@ -127,6 +140,24 @@ def _cmd_predict(args) -> int:
     return 0
 
 
+def _cmd_explain(args) -> int:
+    from .explanations import explain_bundle
+    from .grid import read_grid
+
+    grid = read_grid(args.grid) if args.grid else None
+    for line in explain_bundle(args.bundle, args.out, grid, overwrite=args.overwrite):
+        print(line)
+    print(f"explanations: {args.out}")
+    return 0
+
+
+def _cmd_report(args) -> int:
+    from .report import build_report
+
+    print(f"report: {build_report(args.bundle, args.out, args.grid, overwrite=args.overwrite)}")
+    return 0
+
+
 def _cmd_demo(args) -> int:
     from .demo import run_demo
 
@@ -136,7 +167,8 @@ def _cmd_demo(args) -> int:
     return 0
 
 
-COMMANDS = {"qc": _cmd_qc, "train": _cmd_train, "predict": _cmd_predict, "demo": _cmd_demo}
+COMMANDS = {"qc": _cmd_qc, "train": _cmd_train, "predict": _cmd_predict, "explain": _cmd_explain, "report": _cmd_report,
+            "demo": _cmd_demo}
 
 
 def main(argv: list[str] | None = None) -> int:

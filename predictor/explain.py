@@ -10,8 +10,10 @@ accuracy, Lundberg & Lee 2017).  Each part of a model is explained in its own ex
 - kriging (of the wells, or of residuals in regression kriging and well ties): one column,
   ``kriging_of_wells``: the part of the map that comes from well values by location;
 - blends and well ties: the sum of their parts' contributions, weighted as in the model;
-- the facies mixture (a product of probabilities and regressions): the shap package's
-  permutation explainer with a small background sample of training wells (interventional).
+- the facies mixture (a product of probabilities and regressions): interventional Shapley
+  values by antithetic permutation sampling against a small background of training wells,
+  vectorised over map nodes (:func:`permutation_shap`, checked against the shap package's
+  exact explainer in the tests).
 
 Classifier blends average probabilities, which log-odds contributions cannot add up to; their
 members are explained one by one, weighted by their blend weight (documented in the output).
@@ -34,6 +36,7 @@ from .models import (
 )
 
 KRIGING = "kriging_of_wells"
+BACKGROUND = 8  # background wells for the permutation explainer
 
 
 def _place(values: np.ndarray, member_features: list[str], names: list[str]) -> np.ndarray:
@@ -96,19 +99,53 @@ def contributions(model, X: pd.DataFrame, xy: np.ndarray, names: list[str], back
 
 
 def _permutation(model, X, xy, names, background, seed):
-    import shap
-
     feats = model.features
-    bg = background if background is not None else X
-    bg = bg[feats].sample(min(len(bg), 24), random_state=seed) if len(bg) > 24 else bg[feats]
+    bg = (background if background is not None else X)[feats]
+    if len(bg) > BACKGROUND:  # a small, spread-out background keeps map explanations affordable
+        order = np.argsort(bg.iloc[:, 0].to_numpy(), kind="stable")
+        bg = bg.iloc[order[np.linspace(0, len(bg) - 1, BACKGROUND).astype(int)]]
 
     def f(values):
         return model.predict(pd.DataFrame(values, columns=feats), None)
 
-    explainer = shap.PermutationExplainer(f, shap.maskers.Independent(bg.to_numpy(float), max_samples=len(bg)),
-                                          seed=seed)
-    result = explainer(np.asarray(X[feats], float), max_evals=2 * len(feats) + 1, silent=True)
-    return _place(result.values, feats, names), np.asarray(result.base_values, float)
+    values, base = permutation_shap(f, np.asarray(X[feats], float), bg.to_numpy(float), seed=seed)
+    return _place(values, feats, names), base
+
+
+def permutation_shap(f, X: np.ndarray, background: np.ndarray, n_pairs: int = 1, seed: int = 0):
+    """Interventional Shapley values by antithetic permutation sampling, vectorised over rows.
+
+    For each sampled feature order (and its reverse) and each background row, features are
+    switched from the background value to the explained value one at a time; each switch's
+    change of f is that feature's contribution.  Per order the changes telescope, so
+    ``base + values.sum(1) == f(X)`` exactly (local accuracy), with ``base`` the mean of f
+    over the background.  With one feature, or two and one order pair, the values are the
+    exact Shapley values for this background.
+
+    Returns values of shape (n, p) and base of shape (n,).
+    """
+    n, p = X.shape
+    rng = np.random.default_rng(seed)
+    orders = []
+    for _ in range(n_pairs):
+        perm = rng.permutation(p)
+        orders += [perm, perm[::-1]]
+    values = np.zeros((n, p))
+    base = 0.0
+    for b in background:
+        current = np.tile(b, (n, 1))
+        start = f(current)
+        base = base + start[0]
+        for order in orders:
+            current = np.tile(b, (n, 1))
+            previous = start
+            for j in order:
+                current[:, j] = X[:, j]
+                now = f(current)
+                values[:, j] += now - previous
+                previous = now
+    values /= len(background) * len(orders)
+    return values, np.full(n, base / len(background))
 
 
 def output(model, X: pd.DataFrame, xy: np.ndarray) -> np.ndarray:
@@ -130,3 +167,106 @@ def importance(values: np.ndarray, weights: np.ndarray, names: list[str]) -> pd.
         a = a.sum(axis=1)
     w = np.asarray(weights, float) / np.sum(weights)
     return pd.Series(w @ a, index=list(names) + [KRIGING]).sort_values(ascending=False)
+
+
+LOCATION = ("x_coord", "y_coord", "x_rotated", "y_rotated")
+
+
+class Applicability:
+    """Area of applicability (Meyer & Pebesma 2021, Methods in Ecology and Evolution 12).
+
+    The dissimilarity index of a node is its distance to the nearest training well in the space
+    of standardised features weighted by their importance, divided by the mean distance between
+    training wells.  The threshold is the upper whisker (Q3 + 1.5 IQR, capped at the maximum) of
+    the training wells' own index, each computed against the wells outside its CV fold (the
+    whisker rule as recalled from memory of the method).
+    """
+
+    def __init__(self, features: list[str], mean, scale, weights, points, mean_distance: float, threshold: float):
+        self.features = features
+        self.mean, self.scale, self.weights = (np.asarray(a, float) for a in (mean, scale, weights))
+        self.points = np.asarray(points, float)
+        self.mean_distance = float(mean_distance)
+        self.threshold = float(threshold)
+
+    def _space(self, X) -> np.ndarray:
+        return (np.asarray(X[self.features], float) - self.mean) / self.scale * self.weights
+
+    def index(self, X, chunk: int = 50_000) -> np.ndarray:
+        from scipy.spatial import cKDTree
+
+        tree = cKDTree(self.points)
+        q = self._space(X)
+        out = np.empty(len(q))
+        for s in range(0, len(q), chunk):
+            out[s:s + chunk] = tree.query(q[s:s + chunk])[0]
+        return out / self.mean_distance
+
+    def to_dict(self) -> dict:
+        return {"features": self.features, "mean": self.mean.tolist(), "scale": self.scale.tolist(),
+                "weights": self.weights.tolist(), "points": self.points.tolist(),
+                "mean_distance": self.mean_distance, "threshold": self.threshold}
+
+    @classmethod
+    def from_dict(cls, d: dict) -> Applicability:
+        return cls(d["features"], d["mean"], d["scale"], d["weights"], d["points"], d["mean_distance"], d["threshold"])
+
+
+def fit_applicability(X: pd.DataFrame, imp: pd.Series, folds: np.ndarray) -> tuple[Applicability, np.ndarray]:
+    """The applicability model and the CV-based index of each training well."""
+    from scipy.spatial.distance import cdist, pdist
+
+    features = [f for f in X.columns if f in imp.index]
+    values = np.asarray(X[features], float)
+    mean, scale = values.mean(axis=0), values.std(axis=0)
+    scale = np.where(scale > 0, scale, 1.0)
+    w = imp.reindex(features).fillna(0.0).to_numpy(float)
+    w = w / w.sum() if w.sum() > 0 else np.full(len(features), 1.0 / len(features))
+    points = (values - mean) / scale * w
+    mean_distance = float(np.mean(pdist(points))) or 1.0
+    d = cdist(points, points)
+    d[folds[:, None] == folds[None, :]] = np.inf  # distance to wells of the other folds only
+    di = d.min(axis=1) / mean_distance
+    q1, q3 = np.percentile(di[np.isfinite(di)], [25, 75])
+    threshold = float(min(q3 + 1.5 * (q3 - q1), np.max(di[np.isfinite(di)])))
+    return Applicability(features, mean, scale, w, points, mean_distance, threshold), di
+
+
+def trust_warnings(target: str, task: str, imp: pd.Series, X: pd.DataFrame, values: np.ndarray,
+                   cv: dict, cv_random: dict, n_classes: int, fold_sizes: list[int],
+                   location_limit: float = 0.3) -> tuple[list[str], dict]:
+    """Plain-words warnings about what the model leans on and how far its scores can be trusted."""
+    warnings_, facts = [], {}
+    total = float(imp.sum()) or 1.0
+    loc = float(imp.reindex([f for f in imp.index if f in LOCATION]).sum())
+    facts["location_share"] = loc / total
+    facts["kriging_share"] = float(imp.get(KRIGING, 0.0)) / total
+    if loc / total > location_limit:
+        warnings_.append(f"{target}: location features carry {loc / total:.0%} of the total |SHAP| (limit "
+                         f"{location_limit:.0%}): the map leans on where the wells are rather than on the seismic")
+    if task == "regression" and target in ("porosity", "permeability"):
+        names = list(X.columns)
+        for f in names:
+            if "imped" in f.lower() and "contrast" not in f and "gradient" not in f and imp.get(f, 0) > 0.02 * total:
+                r = np.corrcoef(X[f].to_numpy(float), values[:, names.index(f)])[0, 1]
+                facts[f"sign_{f}"] = float(r)
+                if r > 0.1:
+                    warnings_.append(f"{target}: its contribution rises with {f} (correlation {r:+.2f}); rock physics "
+                                     "expects it to fall as impedance rises: check the data or constrain the model")
+    if task == "regression":
+        if cv["r2"] < 0.1:
+            warnings_.append(f"{target}: blocked-CV R2 is {cv['r2']:.2f}: next to no skill away from the wells")
+        if cv_random and cv_random["rmse"] < 0.8 * cv["rmse"]:
+            warnings_.append(f"{target}: random k-fold RMSE {cv_random['rmse']:.3g} is far below the blocked "
+                             f"{cv['rmse']:.3g}: nearby wells are alike, trust the blocked figure")
+    else:
+        chance = 1.0 / max(n_classes, 1)
+        if cv["balanced_accuracy"] < chance + 0.05:
+            warnings_.append(f"{target}: blocked-CV balanced accuracy {cv['balanced_accuracy']:.2f} is near chance "
+                             f"({chance:.2f})")
+        if cv_random and cv_random["balanced_accuracy"] > cv["balanced_accuracy"] + 0.1:
+            warnings_.append(f"{target}: random k-fold balanced accuracy is much higher than blocked: nearby wells "
+                             "are alike, trust the blocked figure")
+    if fold_sizes and min(fold_sizes) < 5:
+        warnings_.append(f"{target}: the smallest CV fold holds {min(fold_sizes)} wells: scores are noisy")
+    return warnings_, facts

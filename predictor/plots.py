@@ -220,3 +220,70 @@ def leaderboard_chart(leaderboard: list[dict], metric: str, target: str, path) -
     ax.set_title(f"{target}: cross-validation leaderboard (* chosen, hatched = baseline)", fontsize=10)
     ax.legend(fontsize=8, loc="lower right")
     return save(fig, path)
+
+
+def importance_chart(imp: pd.Series, target: str, path) -> Path:
+    """Horizontal bars of declustering-weighted mean |SHAP|."""
+    imp = imp[imp > 0].sort_values()
+    fig, ax = plt.subplots(figsize=(6.5, 0.35 * len(imp) + 1.5), layout="constrained")
+    ax.barh(imp.index, imp.to_numpy(), color="tab:blue")
+    ax.set_xlabel("mean |SHAP| at the wells (declustering-weighted)")
+    ax.set_title(f"{target}: what the model leans on", fontsize=10)
+    return save(fig, path)
+
+
+def shap_summary(values: np.ndarray, X: pd.DataFrame, names: list[str], title: str, path, max_display: int = 8) -> Path:
+    """Beeswarm summary drawn by the shap package."""
+    import shap
+
+    explanation = shap.Explanation(values=values, data=X[names].to_numpy(float), feature_names=names)
+    shap.plots.beeswarm(explanation, max_display=max_display, show=False, plot_size=(7, 0.4 * min(len(names),
+                                                                                            max_display) + 2))
+    fig = plt.gcf()
+    fig.suptitle(title, fontsize=10)
+    return save(fig, path)
+
+
+def shap_dependence(values: np.ndarray, X: pd.DataFrame, names: list[str], feature: str, title: str, path) -> Path:
+    """Dependence (scatter) plot of one feature's contribution, drawn by the shap package."""
+    import shap
+
+    explanation = shap.Explanation(values=values, data=X[names].to_numpy(float), feature_names=names)
+    fig, ax = plt.subplots(figsize=(5.5, 4))
+    shap.plots.scatter(explanation[:, names.index(feature)], ax=ax, show=False)
+    ax.set_title(title, fontsize=10)
+    return save(fig, path)
+
+
+def shap_maps(maps: xr.Dataset, variables: list[str], wells: pd.DataFrame | None, path) -> Path:
+    """Contribution maps of the top features (diverging colours around zero)."""
+    n = len(variables)
+    fig, axes = plt.subplots(1, n, figsize=(4.6 * n, 4.2), squeeze=False, layout="constrained")
+    for ax, var in zip(axes[0], variables, strict=True):
+        limit = float(np.nanmax(np.abs(maps[var].to_numpy()))) or 1.0
+        im = _background(ax, maps, var, cmap="RdBu_r", vmin=-limit, vmax=limit)
+        fig.colorbar(im, ax=ax, shrink=0.7, location="bottom", label="contribution")
+        _wells_on(ax, wells)
+        ax.set_title(var, fontsize=9)
+    return save(fig, path)
+
+
+def applicability_map(maps: xr.Dataset, target: str, wells: pd.DataFrame | None, path) -> Path:
+    """The target's map with the nodes outside the area of applicability shaded."""
+    fig, ax = plt.subplots(figsize=(5.8, 4.6), layout="constrained")
+    var = target if f"{target}_prob_" not in " ".join(maps.data_vars) else None
+    if var is None:
+        probs = [v for v in maps.data_vars if str(v).startswith(f"{target}_prob_")]
+        shown = maps.assign(_top=(("y", "x"), np.nanmax(np.stack([maps[p].to_numpy() for p in probs]), axis=0)))
+        im = _background(ax, shown, "_top", cmap="magma", vmin=0, vmax=1)
+        label = f"{target}: probability of the most probable class"
+    else:
+        im = _background(ax, maps, var, cmap="viridis")
+        label = f"{target} q50"
+    fig.colorbar(im, ax=ax, shrink=0.7, location="bottom", label=label)
+    outside = (maps[f"{target}_applicable"].to_numpy() == 0).astype(float)
+    ax.imshow(np.where(outside > 0, 1.0, np.nan), origin="lower", extent=_extent(maps), cmap="Greys",
+              vmin=0, vmax=1.2, alpha=0.65)
+    _wells_on(ax, wells)
+    ax.set_title(f"{target}: outside the area of applicability shaded ({outside.mean():.1%} of nodes)", fontsize=9)
+    return save(fig, path)

@@ -68,6 +68,15 @@ def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int 
     for target, info in card["targets"].items():
         model = bundle.models[target]
         raw = _predict_chunks(model, X, xy, chunk_rows)
+        aoa = bundle.applicability.get(target)
+        applicable = None
+        if aoa is not None:
+            flags = np.full(valid.size, -1, dtype=np.int8)
+            flags[valid] = (aoa.index(X) <= aoa.threshold).astype(np.int8)
+            applicable = xr.DataArray(flags.reshape(shape), dims=("y", "x"), attrs={
+                "long_name": f"inside the area of applicability of the {target} model (1) or not (0)",
+                "flag_values": np.array([0, 1], dtype=np.int8), "_FillValue": np.int8(-1),
+                "comment": "Meyer & Pebesma (2021) dissimilarity index against the training wells"})
         if info["task"] == "classification":
             classes = info["classes"]
             codes = np.full(valid.size, -1, dtype=np.int16)
@@ -79,6 +88,8 @@ def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int 
             for i, cls in enumerate(classes):
                 out[f"{target}_prob_{cls}"] = (("y", "x"), on_grid(raw[:, i]))
                 out[f"{target}_prob_{cls}"].attrs.update(units="1", long_name=f"probability of {target} {cls}")
+            if applicable is not None:
+                out[f"{target}_applicable"] = applicable
             continue
         cal = bundle.calibrations[target]
         spread = local_spread(bundle.spreads[target], model, X, xy) if cal.scaled else None
@@ -89,6 +100,8 @@ def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int 
                                       ("_q90", q90, "90th percentile (q90)")):
             out[f"{target}{suffix}"] = (("y", "x"), on_grid(back(values)))
             out[f"{target}{suffix}"].attrs.update(units=units, long_name=f"{target} {label}")
+        if applicable is not None:
+            out[f"{target}_applicable"] = applicable
     out.attrs.update(source="predictor", bundle=str(bundle.folder), grid=str(grid.attrs.get("source", "")),
                      caution="a predicted map is a model, not a measurement",
                      percentiles="q10/q90 are non-exceedance percentiles")
@@ -105,6 +118,8 @@ def maps_table(maps: xr.Dataset) -> pd.DataFrame:
         if meanings:
             labels = np.array(meanings.split(" ") + [""], dtype=object)
             values = labels[np.where(values >= 0, values, len(labels) - 1)]
+        elif "_FillValue" in maps[var].attrs:  # integer flags: the fill value becomes an empty cell
+            values = pd.array(np.where(values == maps[var].attrs["_FillValue"], None, values), dtype="Int8")
         table[str(var)] = values
     return pd.DataFrame(table)
 

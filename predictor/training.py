@@ -15,8 +15,17 @@ import pandas as pd
 import xarray as xr
 from sklearn.model_selection import KFold
 
-from .declustering import cell_declustering, declustered_statistics, nearest_node_weights
+from .checks import decluster
+from .declustering import declustered_statistics
 from .errors import InputError, ModelError, PredictorWarning
+from .explain import (
+    KRIGING,
+    Applicability,
+    contributions,
+    fit_applicability,
+    importance,
+    trust_warnings,
+)
 from .features import FeatureSpec, build_features, features_at_wells, location_features
 from .intervals import IntervalCalibration, SpreadModel, calibrate, effective_size
 from .models import (
@@ -58,7 +67,7 @@ class TrainOptions:
     block_size: float | None = None
     block_angle: float = 0.0
     cv: Literal["blocks", "buffered"] = "blocks"
-    declustering: Literal["cell", "nearest_node", "none"] = "nearest_node"
+    declustering: Literal["cell", "nearest_node", "none"] = "cell"
     monotone: bool = False
     well_ties: Literal["auto", "always", "never"] = "auto"
     interval_spread: Literal["none", "features", "kriging"] = "features"
@@ -94,6 +103,10 @@ class TargetModel:
     data: FitData | None = None
     candidates: dict = field(default_factory=dict)
     spread: SpreadModel | str | None = None
+    importance: pd.Series | None = None
+    applicability: Applicability | None = None
+    applicability_cv: dict = field(default_factory=dict)
+    trust: dict = field(default_factory=dict)
 
     def refit(self, candidate: str):
         """Fit the named leaderboard candidate (a baseline, say) on all wells, for comparison maps."""
@@ -115,6 +128,7 @@ class TrainedModels:
     statistics: dict
     targets: dict[str, TargetModel]
     warnings: list[str] = field(default_factory=list)
+    well_features: pd.DataFrame | None = None  # features at the kept wells, same row order as ``wells``
 
 
 def task_of(wells: pd.DataFrame, target: str) -> Task:
@@ -139,20 +153,12 @@ def _check_inputs(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) 
                                               "run `predictor qc` for the full list)"))
 
 
-def _weights(wells: pd.DataFrame, grid: xr.Dataset, method: str) -> tuple[np.ndarray, dict]:
-    x, y = wells["x"].to_numpy(), wells["y"].to_numpy()
-    if method == "none":
-        return np.ones(len(wells)), {"method": "none"}
-    variable = "porosity" if "porosity" in wells else None
-    values = wells[variable].to_numpy(float) if variable else np.ones(len(wells))
-    cell = cell_declustering(x, y, values, variable=variable)
-    summary = cell.summary()
-    if method == "nearest_node":
-        xx, yy = np.meshgrid(grid.x.to_numpy(), grid.y.to_numpy())
-        valid = np.all([np.isfinite(grid[v].to_numpy()) for v in grid.data_vars], axis=0)
-        w = nearest_node_weights(x, y, xx, yy, valid)
-        return w, {"method": "nearest_node", "cell_declustering_for_reference": summary}
-    return cell.weights, summary
+def _weights(wells: pd.DataFrame, grid: xr.Dataset, method: str) -> tuple[np.ndarray, np.ndarray, dict]:
+    """Model/score weights (by ``method``), the nearest-node weights for statistics, and a summary."""
+    cell, nearest = decluster(wells, grid)
+    model = {"cell": cell.weights, "nearest_node": nearest, "none": np.ones(len(wells))}[method]
+    summary = {"model_weights": method, "statistics_weights": "nearest_node", "cell": cell.summary()}
+    return model, nearest, summary
 
 
 def _block_size(data: FitData, options: TrainOptions, attrs: list[str],
@@ -225,7 +231,7 @@ def train(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> Train
         X_all, kept = features_at_wells(features, wells, options.sample_method, options.drop_outside)
     notes += [str(w.message) for w in caught]
     wells = wells.loc[kept].reset_index(drop=True)
-    weights, decl = _weights(wells, grid, options.declustering)
+    weights, stat_weights, decl = _weights(wells, grid, options.declustering)
     xy = wells[["x", "y"]].to_numpy(float)
     ranges = {n: [float(np.nanmin(X_all[n])), float(np.nanmax(X_all[n]))] for n in names}
 
@@ -238,8 +244,13 @@ def train(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> Train
                                  for v in labels.fillna("\x00")])
 
     numeric_targets = [t for t in options.targets if task_of(wells, t) == "regression"]
-    stats = declustered_statistics(wells, weights, numeric_targets,
-                                   [t for t in options.targets if t not in numeric_targets])
+    # statistics use nearest-node weights: the closer map-wide estimate in
+    # experiments/declustering_accuracy.py; the cell-weighted ones are kept beside them
+    categorical = [t for t in options.targets if t not in numeric_targets]
+    stats = declustered_statistics(wells, stat_weights, numeric_targets, categorical)
+    stats["declustered_cell"] = declustered_statistics(wells, weights if options.declustering == "cell" else
+                                                       decluster(wells, grid)[0].weights, numeric_targets,
+                                                       categorical)["declustered"]
     results = {}
     for target in options.targets:
         task = task_of(wells, target)
@@ -342,16 +353,41 @@ def train(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> Train
         final = type_copy(model).fit(data)
         for row in board:
             row["chosen"] = row["candidate"] == chosen
+        chosen_row = next(r for r in board if r["chosen"])
+        folds = np.zeros(len(y), int)
+        for k, (_, test) in enumerate(splitter.split(data.xy)):
+            folds[test] = k
+        values, _ = contributions(final, data.X, data.xy, names, background=data.X, seed=options.seed)
+        imp = importance(values, data.weights, names)
+        aoa, di = fit_applicability(data.X[names], imp.drop(KRIGING), folds)
+        aoa_cv = _inside_outside(task, y, oof, data.weights, classes, di <= aoa.threshold)
+        warned, facts = trust_warnings(target, task, imp, data.X[names], values[..., :-1] if values.ndim == 2 else
+                                       values, chosen_row["cv"], chosen_row["cv_random"], len(classes),
+                                       np.bincount(folds).tolist())
+        notes += warned
+        facts["warnings"] = warned
         results[target] = TargetModel(name=target, task=task, transform=transform, classes=classes, model=final,
                                       calibration=calibration, block_size=block, block_size_source=block_source,
                                       leaderboard=board, chosen=chosen, oof=oof, observed=y, weights=data.weights,
                                       variogram=vario, data=data, candidates={k: v[0] for k, v in oofs.items()},
-                                      spread=spread_model)
+                                      spread=spread_model, importance=imp, applicability=aoa,
+                                      applicability_cv=aoa_cv, trust=facts)
     loc = location_features(names)
     if loc:
         notes.append(f"location features {', '.join(loc)} are in use: they let a model memorise where the wells are; "
                      "compare with the attributes-only candidate in the leaderboard")
-    return TrainedModels(options, spec, names, ranges, wells, weights, decl, stats, results, notes)
+    return TrainedModels(options, spec, names, ranges, wells, weights, decl, stats, results, notes, X_all)
+
+
+def _inside_outside(task, y, oof, weights, classes, inside) -> dict:
+    """Blocked-CV scores of the wells inside and outside the area of applicability."""
+    out = {"threshold_rule": "upper whisker of the training wells' CV dissimilarity index",
+           "wells_inside": int(inside.sum()), "wells_outside": int((~inside).sum())}
+    for label, sel in (("inside", inside), ("outside", ~inside)):
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")  # a subset may lack a class; scikit-learn says so on every call
+            out[f"cv_{label}"] = _score(task, y[sel], oof[sel], weights[sel], classes) if sel.sum() >= 3 else None
+    return out
 
 
 def _losses(y: np.ndarray, oof: np.ndarray) -> np.ndarray:

@@ -47,8 +47,10 @@ def test_maps_csv_columns_and_ordering(bundle, tmp_path):
     out = tmp_path / "maps.csv"
     assert main(["predict", str(bundle), "--grid", GRID, "--out", str(out)]) == 0
     maps = pd.read_csv(out)
-    assert list(maps.columns) == ["x", "y", "porosity", "porosity_q10", "porosity_q90", "facies",
-                                  "facies_prob_sand", "facies_prob_shale", "facies_prob_silt"]
+    assert list(maps.columns) == ["x", "y", "porosity", "porosity_q10", "porosity_q90", "porosity_applicable",
+                                  "facies", "facies_prob_sand", "facies_prob_shale", "facies_prob_silt",
+                                  "facies_applicable"]
+    assert set(maps.porosity_applicable) == {0, 1} and maps.porosity_applicable.mean() > 0.8
     assert len(maps) == 120 * 100
     assert np.all(maps.porosity_q10 <= maps.porosity) and np.all(maps.porosity <= maps.porosity_q90)
     probs = maps[["facies_prob_sand", "facies_prob_shale", "facies_prob_silt"]].to_numpy()

@@ -1,0 +1,102 @@
+"""``predictor explain``: SHAP tables, figures and contribution maps for every target of a bundle."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import xarray as xr
+
+from . import plots
+from .bundle import Bundle, load_bundle
+from .explain import KRIGING, contributions, importance
+from .features import build_features, feature_matrix
+from .io.atomic import atomic_folder
+from .io.netcdf import write_netcdf
+
+CHUNK = 20_000
+
+
+def _class_slices(info: dict):
+    """(label, index) per explained output: one for a property, one per class (log-odds) for facies."""
+    if info["task"] == "classification":
+        return [(f"{cls} (log-odds)", i) for i, cls in enumerate(info["classes"])]
+    return [("", None)]
+
+
+def explain_wells(bundle: Bundle, target: str) -> tuple[np.ndarray, np.ndarray, pd.DataFrame, pd.DataFrame]:
+    """Contributions at the training wells: (values, base, wells table, well features)."""
+    names = bundle.card["features"]["names"]
+    wells, features = bundle.training_wells()
+    values, base = contributions(bundle.models[target], features, wells[["x", "y"]].to_numpy(float), names,
+                                 background=features)
+    return values, base, wells, features
+
+
+def contribution_maps(bundle: Bundle, grid: xr.Dataset, target: str, chunk: int = CHUNK) -> xr.Dataset:
+    """Per-feature contribution maps (chunked), named ``<target>[_<class>]_shap_<feature>``."""
+    names = bundle.card["features"]["names"]
+    info = bundle.card["targets"][target]
+    matrix, valid = feature_matrix(build_features(grid, bundle.feature_spec), names)
+    xx, yy = np.meshgrid(grid.x.to_numpy(), grid.y.to_numpy())
+    xy = np.column_stack([xx.ravel()[valid], yy.ravel()[valid]])
+    _, wells_features = bundle.training_wells()
+    parts = []
+    for s in range(0, len(matrix), chunk):
+        X = pd.DataFrame(matrix[s:s + chunk], columns=names)
+        parts.append(contributions(bundle.models[target], X, xy[s:s + chunk], names, background=wells_features)[0])
+    values = np.concatenate(parts)
+    out = xr.Dataset(coords={"x": grid.x, "y": grid.y})
+    shape = (grid.sizes["y"], grid.sizes["x"])
+    for label, k in _class_slices(info):
+        v = values if k is None else values[:, k, :]
+        prefix = target if k is None else f"{target}_{info['classes'][k]}"
+        for j, name in enumerate(list(names) + [KRIGING]):
+            if not np.any(v[:, j]):
+                continue
+            full = np.full(valid.size, np.nan)
+            full[valid] = v[:, j]
+            out[f"{prefix}_shap_{name}"] = (("y", "x"), full.reshape(shape))
+            out[f"{prefix}_shap_{name}"].attrs["long_name"] = f"contribution of {name} to {target} {label}".strip()
+    return out
+
+
+def explain_bundle(bundle_dir, out, grid: xr.Dataset | None = None, overwrite: bool = False) -> list[str]:
+    """Write importance tables, SHAP at the wells, figures and (with a grid) contribution maps."""
+    bundle = load_bundle(bundle_dir)
+    names = bundle.card["features"]["names"]
+    lines = []
+    with atomic_folder(out, overwrite=overwrite) as tmp:
+        for target, info in bundle.card["targets"].items():
+            values, base, wells, features = explain_wells(bundle, target)
+            imp = importance(values, wells["weight"].to_numpy(float), names)
+            imp.rename("mean_abs_shap").to_csv(tmp / f"{target}_importance.csv", index_label="feature")
+            plots.importance_chart(imp, target, tmp / f"{target}_importance.png")
+            table = wells[["well_id", "x", "y"]].copy()
+            for label, k in _class_slices(info):
+                v = values if k is None else values[:, k, :]
+                b = base if k is None else base[:, k]
+                tag = "" if k is None else f"{info['classes'][k]}:"
+                for j, name in enumerate(list(names) + [KRIGING]):
+                    table[f"{tag}{name}"] = v[:, j]
+                table[f"{tag}base"] = b
+                table[f"{tag}output"] = b + v.sum(axis=1)
+                stem = target if k is None else f"{target}_{info['classes'][k]}"
+                cols = [n for n in names if np.any(v[:, names.index(n)])]
+                if cols:
+                    idx = [names.index(c) for c in cols]
+                    plots.shap_summary(v[:, idx], features, cols, f"{target} {label}".strip(),
+                                       tmp / f"{stem}_summary.png")
+                    top = sorted(cols, key=lambda c: -imp.get(c, 0))[:2]
+                    for feat in top:
+                        plots.shap_dependence(v[:, idx], features, cols, feat, f"{target} {label}: {feat}".strip(),
+                                              tmp / f"{stem}_dependence_{feat}.png")
+            table.to_csv(tmp / f"{target}_shap_at_wells.csv", index=False)
+            lines.append(f"{target}: " + ", ".join(f"{k} {v:.3g}" for k, v in imp.head(5).items() if v > 0))
+            if grid is not None:
+                maps = contribution_maps(bundle, grid, target)
+                write_netcdf(maps, tmp / f"{target}_shap_maps.nc")
+                ranked = sorted(maps.data_vars, key=lambda v: -float(np.nanmean(np.abs(maps[v].to_numpy()))))
+                plots.shap_maps(maps, [str(v) for v in ranked[:3]], wells, tmp / f"{target}_shap_maps.png")
+        for warning in bundle.card.get("warnings", []):
+            lines.append(f"warning: {warning}")
+    return lines

@@ -1,0 +1,238 @@
+"""``predictor report``: one self-contained HTML file (figures embedded, no network, no external
+scripts) that a team can read on a laptop or print."""
+
+from __future__ import annotations
+
+import base64
+import html
+import tempfile
+import warnings
+from importlib import resources
+from pathlib import Path
+from string import Template
+
+import numpy as np
+import pandas as pd
+
+from . import plots
+from .bundle import load_bundle
+from .checks import check_data, write_check
+from .errors import InputError, PredictorWarning
+from .explain import KRIGING
+from .explanations import contribution_maps, explain_wells
+from .grid import read_grid
+from .io.atomic import atomic_file
+from .predict import predict_maps
+
+CAUTION = ("A predicted map is a model, not a measurement: it is only as good as the wells, the seismic and the "
+           "assumptions behind it, and it can be confidently wrong away from the wells. Drilling, reserves and "
+           "safety decisions rest with qualified professionals and must follow local regulations.")
+
+
+def _img(path: Path, caption: str) -> str:
+    data = base64.b64encode(Path(path).read_bytes()).decode("ascii")
+    return (f'<figure><img src="data:image/png;base64,{data}" alt="{html.escape(caption)}">'
+            f"<figcaption>{html.escape(caption)}</figcaption></figure>")
+
+
+def _table(frame: pd.DataFrame, chosen: int | None = None, digits: int = 4) -> str:
+    head = "".join(f"<th>{html.escape(str(c))}</th>" for c in frame.columns)
+    rows = []
+    for i, row in enumerate(frame.itertuples(index=False)):
+        cells = "".join(f'<td class="num">{_fmt(v, digits)}</td>' if isinstance(v, int | float | np.number)
+                        else f"<td>{_fmt(v, digits)}</td>" for v in row)
+        rows.append(f'<tr class="chosen">{cells}</tr>' if i == chosen else f"<tr>{cells}</tr>")
+    return f"<table><thead><tr>{head}</tr></thead><tbody>{''.join(rows)}</tbody></table>"
+
+
+def _fmt(v, digits) -> str:
+    if isinstance(v, float | np.floating):
+        return "" if not np.isfinite(v) else f"{v:.{digits}g}"
+    return html.escape(str(v))
+
+
+def _section(key: str, title: str, body: str, css: str = "") -> tuple[str, str]:
+    return key, f'<section id="{key}" class="{css}"><h2>{html.escape(title)}</h2>{body}</section>'
+
+
+def build_report(bundle_dir, out, grid_path=None, overwrite: bool = False) -> Path:
+    """Write the HTML report of a bundle; the grid defaults to the one the bundle was trained on."""
+    bundle = load_bundle(bundle_dir)
+    card = bundle.card
+    grid_path = grid_path or card.get("inputs", {}).get("grid", {}).get("path")
+    if not grid_path:
+        raise InputError(f"{bundle_dir}: the bundle does not record its training grid; give one with --grid")
+    if not Path(grid_path).exists():
+        raise InputError(f"{bundle_dir}: the training grid {grid_path} is not there any more; give it with --grid")
+    grid = read_grid(grid_path)
+    wells, _ = bundle.training_wells()
+    wells = wells.drop(columns=["weight"])
+    wells["well_id"] = wells["well_id"].astype(str)
+    wells.attrs["source"] = "training wells of the bundle"
+    with tempfile.TemporaryDirectory() as tmpdir, warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", PredictorWarning)
+        fig = Path(tmpdir)
+        check = check_data(wells, grid)
+        write_check(check, None, fig)
+        maps = predict_maps(bundle, grid)
+        sections = [_summary(card, check), _data(check, fig), _bias(check, card, fig), _leaderboard(card, fig),
+                    _maps(maps, wells, card, fig), _intervals(card), _why(bundle, grid, wells, fig),
+                    _warnings(card, [str(w.message) for w in caught]), _provenance(card)]
+    nav = " ".join(f'<a href="#{k}">{html.escape(t)}</a>' for k, t in NAV)
+    template = Template(resources.files("predictor").joinpath("templates/report.html").read_text(encoding="utf-8"))
+    page = template.substitute(title="predictor report: " + html.escape(", ".join(card["targets"])),
+                               subtitle=html.escape(f"bundle {bundle.folder} · grid {grid_path} · "
+                                                    f"predictor {card['versions']['predictor']}"),
+                               nav=nav, sections="\n".join(s for _, s in sections))
+    with atomic_file(out, overwrite=overwrite) as tmp:
+        tmp.write_text(page, encoding="utf-8")
+    return Path(out)
+
+
+NAV = [("glance", "At a glance"), ("data", "Data and checks"), ("bias", "Drilling bias"),
+       ("scores", "Model scores"), ("maps", "Maps"), ("intervals", "Uncertainty"), ("why", "Why"),
+       ("warnings", "Warnings"), ("provenance", "Provenance")]
+
+
+def _summary(card, check):
+    rows = []
+    for t, info in card["targets"].items():
+        key = "rmse" if info["task"] == "regression" else "balanced_accuracy"
+        unit = " (log10 mD)" if info.get("transform") == "log10" else ""
+        random = (info.get("cv_random") or {}).get(key)
+        rows.append({"target": t, "chosen model": info["chosen"], "blocked CV": info["cv"][key],
+                     "random CV (optimistic)": random if random is not None else np.nan,
+                     "metric": key + unit, "wells": info["n_wells"]})
+    body = (f'<p class="caution">{html.escape(CAUTION)}</p>'
+            f"<p>{html.escape(check.qc.bias[next(iter(check.qc.bias))]['verdict'])}</p>"
+            + _table(pd.DataFrame(rows))
+            + '<p class="small">Blocked CV holds out whole spatial blocks and weights every well by its '
+              "declustering weight, so it estimates the error over the map. Random k-fold is shown for contrast "
+              "only: nearby wells are alike, so it flatters the model.</p>")
+    return _section("glance", "At a glance", body)
+
+
+def _data(check, fig):
+    findings = pd.DataFrame([{"severity": f.severity, "check": f.check, "message": f.message}
+                             for f in check.qc.findings]) if check.qc.findings else None
+    stats = pd.DataFrame({col: s for col, s in check.qc.summary["all"].items()}).T.reset_index(names="column")
+    body = ("<h3>Findings</h3>" + (_table(findings) if findings is not None else '<p class="ok">no findings</p>')
+            + "<h3>Summary statistics (all wells)</h3>" + _table(stats)
+            + _img(fig / "wells_on_map.png", "wells over the attribute map")
+            + (_img(fig / "facies_distributions.png", "distributions per facies")
+               if (fig / "facies_distributions.png").exists() else ""))
+    return _section("data", "The data and its checks", body)
+
+
+def _bias(check, card, fig):
+    stats = []
+    for target, naive in card["naive"].items():
+        dec, cell = card["declustered"][target], card.get("declustered_cell", {}).get(target, {})
+        if "mean" in naive:
+            stats.append({"statistic": f"mean {target}", "raw wells": naive["mean"],
+                          "declustered (nearest-node)": dec["mean"], "declustered (cell)": cell.get("mean", np.nan)})
+        for cls, share in naive.get("proportions", {}).items():
+            stats.append({"statistic": f"share of {target} {cls}", "raw wells": share,
+                          "declustered (nearest-node)": dec["proportions"][cls],
+                          "declustered (cell)": cell.get("proportions", {}).get(cls, np.nan)})
+    body = "".join(f"<p>{html.escape(b['verdict'])}</p>" for b in check.qc.bias.values())
+    body += "".join(_img(p, p.stem.replace("_", " ")) for p in sorted(fig.glob("bias_*.png")))
+    body += "<h3>Naive and declustered statistics</h3>" + _table(pd.DataFrame(stats))
+    body += _img(fig / "declustering_curve.png", "declustered mean against cell size")
+    return _section("bias", "Drilling bias and declustering", body)
+
+
+def _leaderboard(card, fig):
+    body = ""
+    for t, info in card["targets"].items():
+        key = "rmse" if info["task"] == "regression" else "balanced_accuracy"
+        other = "r2" if info["task"] == "regression" else "log_loss"
+        rows, chosen = [], None
+        for i, r in enumerate(info["leaderboard"]):
+            rows.append({"candidate": r["candidate"], "kind": "baseline" if r["baseline"] else "candidate",
+                         f"{key} blocked": r["cv"][key], f"{other} blocked": r["cv"][other],
+                         f"{key} random": (r.get("cv_random") or {}).get(key, np.nan)})
+            chosen = i if r["chosen"] else chosen
+        plots.leaderboard_chart(info["leaderboard"], key, t, fig / f"board_{t}.png")
+        body += (f"<h3>{html.escape(t)}</h3><p class='small'>{html.escape(info['cv_method'])}; blocks of "
+                 f"{info['block_size']:.0f} m ({html.escape(info['block_size_source'])}).</p>"
+                 + _table(pd.DataFrame(rows), chosen) + _img(fig / f"board_{t}.png", f"{t}: blocked vs random CV"))
+    return _section("scores", "How good is each model: spatial cross-validation", body)
+
+
+def _maps(maps, wells, card, fig):
+    body = ""
+    for t, info in card["targets"].items():
+        if info["task"] == "classification":
+            plots.facies_maps(maps, t, wells, fig / f"map_{t}.png")
+            body += _img(fig / f"map_{t}.png", f"{t}: most probable class and class probabilities")
+        else:
+            plots.property_maps(maps, t, wells, fig / f"map_{t}.png", log=info.get("transform") == "log10")
+            body += _img(fig / f"map_{t}.png", f"{t}: median and 80 % interval width, wells on top")
+        if f"{t}_applicable" in maps:
+            plots.applicability_map(maps, t, wells, fig / f"aoa_{t}.png")
+            a = info.get("applicability", {})
+            body += _img(fig / f"aoa_{t}.png", f"{t}: area of applicability")
+            inside, outside = a.get("cv_inside"), a.get("cv_outside")
+            key = "rmse" if info["task"] == "regression" else "balanced_accuracy"
+            body += (f"<p class='small'>Blocked-CV {key} of wells inside the area of applicability: "
+                     f"{_fmt(inside[key], 4) if inside else 'n/a'} ({a.get('wells_inside')} wells); outside: "
+                     f"{_fmt(outside[key], 4) if outside else 'n/a'} ({a.get('wells_outside')} wells).</p>")
+    return _section("maps", "Maps between the wells", body)
+
+
+def _intervals(card):
+    rows = []
+    for t, info in card["targets"].items():
+        c = info.get("calibration")
+        if c:
+            rows.append({"target": t, "q10 offset": c["lower"], "q90 offset": c["upper"],
+                         "scaled by local spread": str(c["scaled"]), "effective wells": c["n_effective"],
+                         "spread": info.get("interval_spread") or "none"})
+    body = ("<p>q10 and q90 are non-exceedance percentiles: the property has a 10 % chance of being below q10 and a "
+            "10 % chance of being above q90. The trade often reads P10/P90 the other way round (exceedance). The "
+            "offsets come from the blocked-CV out-of-fold errors, weighted by the declustering weights, so about "
+            "80 % of map cells should fall inside [q10, q90].</p>" + (_table(pd.DataFrame(rows)) if rows else ""))
+    return _section("intervals", "Uncertainty: the q10-q90 interval", body)
+
+
+def _why(bundle, grid, wells, fig):
+    names = bundle.card["features"]["names"]
+    body = ("<p class='small'>Contributions (SHAP values) add up to the model output at every node. LightGBM parts "
+            "use TreeSHAP (path-dependent); linear parts are exact; kriging parts form one column, "
+            f"<code>{KRIGING}</code>; the facies mixture uses permutation sampling against a small background. "
+            "Facies are explained per class in log-odds.</p>")
+    for t, info in bundle.card["targets"].items():
+        imp = pd.Series(info["importance"]["values"]).sort_values(ascending=False)
+        plots.importance_chart(imp, t, fig / f"imp_{t}.png")
+        body += f"<h3>{html.escape(t)}</h3>" + _img(fig / f"imp_{t}.png", f"{t}: importance")
+        values, _, _, features = explain_wells(bundle, t)
+        v = values if values.ndim == 2 else values[:, 0, :]
+        cols = [n for n in names if np.any(v[:, names.index(n)])]
+        if cols:
+            idx = [names.index(c) for c in cols]
+            label = t if values.ndim == 2 else f"{t}: class {info['classes'][0]} (log-odds)"
+            plots.shap_summary(v[:, idx], features, cols, label, fig / f"bee_{t}.png")
+            body += _img(fig / f"bee_{t}.png", f"{label}: contributions at the wells")
+        maps = contribution_maps(bundle, grid, t)
+        ranked = sorted(maps.data_vars, key=lambda var: -float(np.nanmean(np.abs(maps[var].to_numpy()))))[:3]
+        if ranked:
+            plots.shap_maps(maps, [str(r) for r in ranked], wells, fig / f"shapmap_{t}.png")
+            body += _img(fig / f"shapmap_{t}.png", f"{t}: contribution maps of the leading features")
+    return _section("why", "Why the model predicts what it does", body)
+
+
+def _warnings(card, extra):
+    items = list(card.get("warnings", [])) + extra
+    body = ("<ul class='warnings'>" + "".join(f"<li>{html.escape(w)}</li>" for w in items) + "</ul>" if items
+            else "<p class='ok'>No trust warnings were raised. That does not make the map right.</p>")
+    return _section("warnings", "Warnings", body, "caution" if items else "")
+
+
+def _provenance(card):
+    inputs = card.get("inputs", {})
+    rows = [{"item": f"input {k}", "value": f"{v.get('path')} (SHA-256 {v.get('sha256', '')[:16]}…)"}
+            for k, v in inputs.items()]
+    rows += [{"item": f"version {k}", "value": v} for k, v in card["versions"].items()]
+    rows += [{"item": f"option {k}", "value": str(v)} for k, v in card["options"].items()]
+    return _section("provenance", "Where this came from", _table(pd.DataFrame(rows)))
