@@ -16,10 +16,12 @@ import xarray as xr
 from . import plots
 from .checks import check_data, write_check
 from .errors import PredictorWarning
+from .explanations import explain_bundle
 from .grid import read_grid
 from .io.atomic import atomic_folder
 from .io.tables import read_wells
 from .predict import predict_maps, write_maps
+from .report import build_report
 from .stats import weighted_mean, weighted_proportions
 from .workflow import leaderboard_lines, train_files
 
@@ -67,10 +69,13 @@ def run_demo(out: Path, overwrite: bool = False) -> list[str]:
             metric = "rmse" if tm.task == "regression" else "balanced_accuracy"
             plots.leaderboard_chart(tm.leaderboard, metric, name, figures / f"leaderboard_{name}.png")
 
+        lines += explain_bundle(bundle, tmp / "explanations", grid)
+        build_report(bundle, tmp / "report.html", inputs["seismic.csv"])
+
         with xr.open_dataset(inputs["truth.nc"]) as truth:
             truth = truth.load()
         lines += _against_truth(wells, check, maps, truth)
-    lines.append(f"results in {out}/: qc.json, bundle/, maps.csv, maps.nc, figures/")
+    lines.append(f"results in {out}/: report.html, qc.json, bundle/, maps.csv, maps.nc, figures/, explanations/")
     lines.append("a predicted map is a model, not a measurement; decisions rest with qualified professionals")
     return lines
 

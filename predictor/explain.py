@@ -239,10 +239,13 @@ def trust_warnings(target: str, task: str, imp: pd.Series, X: pd.DataFrame, valu
     warnings_, facts = [], {}
     total = float(imp.sum()) or 1.0
     loc = float(imp.reindex([f for f in imp.index if f in LOCATION]).sum())
-    facts["location_share"] = loc / total
-    facts["kriging_share"] = float(imp.get(KRIGING, 0.0)) / total
-    if loc / total > location_limit:
-        warnings_.append(f"{target}: location features carry {loc / total:.0%} of the total |SHAP| (limit "
+    krig = float(imp.get(KRIGING, 0.0))
+    facts["location_share"] = (loc + krig) / total
+    facts["location_features_share"] = loc / total
+    facts["kriging_share"] = krig / total
+    if (loc + krig) / total > location_limit:
+        warnings_.append(f"{target}: location features and kriging of the wells carry {(loc + krig) / total:.0%} "
+                         f"of the total |SHAP| ({loc / total:.0%} and {krig / total:.0%}; limit "
                          f"{location_limit:.0%}): the map leans on where the wells are rather than on the seismic")
     if task == "regression" and target in ("porosity", "permeability"):
         names = list(X.columns)

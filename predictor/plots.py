@@ -218,7 +218,7 @@ def leaderboard_chart(leaderboard: list[dict], metric: str, target: str, path) -
     ax.invert_yaxis()
     ax.set_xlabel(f"{metric} (declustering-weighted)")
     ax.set_title(f"{target}: cross-validation leaderboard (* chosen, hatched = baseline)", fontsize=10)
-    ax.legend(fontsize=8, loc="lower right")
+    ax.legend(fontsize=8, loc="upper center", bbox_to_anchor=(0.5, -0.18), ncol=2)
     return save(fig, path)
 
 

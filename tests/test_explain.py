@@ -1,0 +1,162 @@
+"""Explanations: SHAP local accuracy, TreeSHAP against brute-force Shapley values, importance,
+trust warnings and the area of applicability."""
+
+import itertools
+import math
+
+import lightgbm as lgb
+import numpy as np
+import pandas as pd
+import pytest
+import shap
+
+from predictor.explain import (
+    KRIGING,
+    Applicability,
+    contributions,
+    fit_applicability,
+    importance,
+    output,
+    permutation_shap,
+)
+from predictor.models import (
+    Blend,
+    FaciesMixture,
+    FitData,
+    Kriging,
+    LightGBM,
+    Linear,
+    Logistic,
+    RegressionKriging,
+    WellTies,
+)
+
+
+def _data(n=150, seed=0):
+    rng = np.random.default_rng(seed)
+    xy = rng.uniform(0, 2000, (n, 2))
+    X = pd.DataFrame({"impedance": rng.uniform(6000, 12000, n), "noise": rng.normal(size=n)})
+    y = 0.35 - 2.5e-5 * X["impedance"].to_numpy() + 0.01 * np.sin(xy[:, 0] / 300) + rng.normal(0, 0.005, n)
+    groups = (xy[:, 0] // 500).astype(int) * 10 + (xy[:, 1] // 500).astype(int)
+    codes = (X["impedance"].to_numpy() > 9000).astype(int) + (X["impedance"].to_numpy() > 10500)
+    return X, y, xy, groups, codes
+
+
+@pytest.fixture(scope="module")
+def fitted():
+    X, y, xy, groups, codes = _data()
+    reg = FitData(X, y, np.ones(len(y)), xy, groups, [], codes, ["a", "b", "c"])
+    cls = FitData(X, codes, np.ones(len(y)), xy, groups, ["a", "b", "c"])
+    names = ["impedance", "noise"]
+    models = {
+        "lightgbm": LightGBM("regression", names).fit(reg),
+        "linear": Linear(names).fit(reg),
+        "kriging": Kriging().fit(reg),
+        "regression_kriging": RegressionKriging(names).fit(reg),
+        "facies_mixture": FaciesMixture(names).fit(reg),
+        "blend": Blend([Linear(names), LightGBM("regression", names), FaciesMixture(names)], [0.2, 0.5, 0.3]).fit(reg),
+        "well_ties": WellTies(LightGBM("regression", names)).fit(reg),
+        "lightgbm_classifier": LightGBM("classification", names).fit(cls),
+        "logistic": Logistic(names).fit(cls),
+        "classifier_blend": Blend([Logistic(names), LightGBM("classification", names)], [0.4, 0.6]).fit(cls),
+    }
+    return models, X, xy, names
+
+
+@pytest.mark.parametrize("name", ["lightgbm", "linear", "kriging", "regression_kriging", "facies_mixture", "blend",
+                                  "well_ties", "lightgbm_classifier", "logistic", "classifier_blend"])
+def test_local_accuracy_at_every_well(fitted, name):
+    # Lundberg & Lee 2017 (NeurIPS): contributions plus the expected value equal the model output
+    models, X, xy, names = fitted
+    values, base = contributions(models[name], X, xy, names, background=X)
+    np.testing.assert_allclose(base + values.sum(axis=-1), output(models[name], X, xy), atol=1e-6)
+
+
+def _path_value(tree, x, coalition):
+    """E[f(x) | x_S] by the tree's own recursion: follow x on features in S, else average the
+    children by their training counts (the value function TreeSHAP uses)."""
+    if "leaf_value" in tree:
+        return tree["leaf_value"]
+    left, right = tree["left_child"], tree["right_child"]
+    j = tree["split_feature"]
+    if j in coalition:
+        return _path_value(left if x[j] <= tree["threshold"] else right, x, coalition)
+    nl, nr = (c.get("internal_count", c.get("leaf_count")) for c in (left, right))
+    return (nl * _path_value(left, x, coalition) + nr * _path_value(right, x, coalition)) / (nl + nr)
+
+
+def test_treeshap_equals_brute_force_shapley_values():
+    # Shapley (1953): phi_j = sum over coalitions S without j of |S|!(p-|S|-1)!/p! (v(S+j) - v(S))
+    rng = np.random.default_rng(4)
+    X = rng.normal(size=(400, 3))
+    y = X[:, 0] * 2 + (X[:, 1] > 0) * X[:, 2] + rng.normal(0, 0.1, 400)
+    booster = lgb.train({"objective": "regression", "num_leaves": 6, "max_depth": 3, "learning_rate": 1.0,
+                         "min_data_in_leaf": 10, "verbose": -1}, lgb.Dataset(X, y), num_boost_round=1)
+    tree = booster.dump_model()["tree_info"][0]["tree_structure"]
+    p = 3
+    for x in X[:20]:
+        brute = np.zeros(p)
+        for j in range(p):
+            others = [k for k in range(p) if k != j]
+            for r in range(p):
+                for S in itertools.combinations(others, r):
+                    w = math.factorial(len(S)) * math.factorial(p - len(S) - 1) / math.factorial(p)
+                    brute[j] += w * (_path_value(tree, x, set(S) | {j}) - _path_value(tree, x, set(S)))
+        ours = booster.predict(x[None, :], pred_contrib=True)[0]
+        np.testing.assert_allclose(ours[:p], brute, atol=1e-9)
+        assert ours[p] == pytest.approx(_path_value(tree, x, set()))
+
+
+def test_permutation_values_equal_shap_exact_explainer_for_two_features():
+    # reference library: shap's exact explainer with the same independent background
+    rng = np.random.default_rng(5)
+    bg = rng.normal(size=(6, 2))
+    X = rng.normal(size=(30, 2))
+
+    def f(v):
+        return np.tanh(v[:, 0]) * v[:, 1] + v[:, 0] ** 2
+
+    ours, base = permutation_shap(f, X, bg)
+    ref = shap.explainers.Exact(f, shap.maskers.Independent(bg, max_samples=len(bg)))(X)
+    np.testing.assert_allclose(ours, ref.values, atol=1e-10)
+    np.testing.assert_allclose(base, ref.base_values, atol=1e-10)
+
+
+def test_pure_noise_feature_gets_near_zero_importance(fitted):
+    models, X, xy, names = fitted
+    values, _ = contributions(models["lightgbm"], X, xy, names)
+    imp = importance(values, np.ones(len(X)), names)
+    assert imp["noise"] < 0.1 * imp["impedance"]
+    assert imp[KRIGING] == 0
+
+
+def test_location_only_signal_triggers_the_location_warning():
+    import xarray as xr
+
+    from predictor.training import TrainOptions, train
+
+    rng = np.random.default_rng(6)
+    xs, ys = np.arange(0, 3000, 50.0), np.arange(0, 3000, 50.0)
+    grid = xr.Dataset({"impedance": (("y", "x"), rng.uniform(7000, 11000, (ys.size, xs.size)))},
+                      coords={"x": xs, "y": ys})
+    wx, wy = rng.uniform(100, 2900, 120), rng.uniform(100, 2900, 120)
+    wells = pd.DataFrame({"well_id": [f"W{i}" for i in range(120)], "x": wx, "y": wy,
+                          "porosity": 0.15 + 0.08 * np.sin(wx / 700) * np.cos(wy / 900)})
+    from predictor.features import FeatureSpec
+
+    trained = train(wells, grid, TrainOptions(targets=["porosity"], features=FeatureSpec(["impedance"], location=True)))
+    assert any("location features and kriging of the wells carry" in w for w in trained.warnings)
+    assert trained.targets["porosity"].trust["location_share"] > 0.3
+
+
+def test_applicability_flags_far_nodes_not_the_wells():
+    X, *_ = _data(100)
+    imp = pd.Series({"impedance": 1.0, "noise": 0.2})
+    folds = np.arange(len(X)) % 5
+    aoa, di = fit_applicability(X, imp, folds)
+    assert np.mean(di <= aoa.threshold) > 0.9
+    assert np.all(aoa.index(X) <= aoa.threshold)  # the wells themselves
+    far = pd.DataFrame({"impedance": [30000.0, 9000.0], "noise": [0.0, 40.0]})
+    assert np.all(aoa.index(far) > aoa.threshold)
+    back = Applicability.from_dict(aoa.to_dict())
+    np.testing.assert_array_equal(back.index(X), aoa.index(X))

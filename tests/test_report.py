@@ -1,0 +1,61 @@
+"""The HTML report: self-contained, and opened in a real headless browser."""
+
+import re
+import shutil
+import subprocess
+
+import pytest
+from conftest import DEMO, ROOT
+
+from predictor.cli import main
+
+ARTEFACTS = ROOT / "test-artifacts"
+FLAGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
+         "--disable-background-networking", "--disable-component-update", "--disable-sync"]
+
+
+@pytest.fixture(scope="module")
+def report(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("r")
+    assert main(["train", "--wells", str(DEMO / "wells.csv"), "--grid", str(DEMO / "seismic.csv"),
+                 "--target", "porosity", "--target", "facies", "--context-radius", "250", "--out",
+                 str(folder / "bundle")]) == 0
+    out = folder / "report.html"
+    assert main(["report", str(folder / "bundle"), "--out", str(out)]) == 0
+    return out
+
+
+def test_report_is_self_contained(report):
+    text = report.read_text(encoding="utf-8")
+    assert not re.search(r'(src|href)="(https?:)?//', text), "no network resources"
+    assert "<script src" not in text
+    images = re.findall(r'<img src="([^"]+)"', text)
+    assert len(images) >= 10 and all(src.startswith("data:image/png;base64,") for src in images)
+    for section in ("At a glance", "The data and its checks", "Drilling bias and declustering",
+                    "spatial cross-validation", "Maps between the wells", "q10-q90", "Why the model",
+                    "Warnings", "Where this came from"):
+        assert section in text
+    assert "a model, not a measurement" in text and "qualified professionals" in text
+
+
+def _browser() -> str | None:
+    return shutil.which("chromium") or shutil.which("chromium-browser") or shutil.which("google-chrome")
+
+
+def test_report_opens_in_headless_chromium(report, tmp_path):
+    browser = _browser()
+    if browser is None:
+        pytest.skip("no Chromium on this machine (.ci/run installs Debian's chromium package; it could not here)")
+    profile = tmp_path / "profile"
+    dom = subprocess.run([browser, *FLAGS, f"--user-data-dir={profile}", "--enable-logging=stderr", "--v=0",
+                          "--virtual-time-budget=5000", "--dump-dom", report.as_uri()],
+                         capture_output=True, text=True, timeout=120)
+    n_images = len(re.findall(r"<img ", report.read_text(encoding="utf-8")))
+    assert f'data-figures="loaded:{n_images}"' in dom.stdout, "every figure decoded"
+    console = [line for line in dom.stderr.splitlines() if "CONSOLE" in line or "Uncaught" in line]
+    assert not console, console
+    ARTEFACTS.mkdir(exist_ok=True)
+    shot = ARTEFACTS / "report.png"
+    subprocess.run([browser, *FLAGS, f"--user-data-dir={profile}", "--window-size=1280,2400",
+                    f"--screenshot={shot}", report.as_uri()], capture_output=True, timeout=120)
+    assert shot.exists() and shot.stat().st_size > 50_000
