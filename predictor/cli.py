@@ -7,6 +7,7 @@ Errors the tool raises on purpose become one line on stderr and exit status 2;
 from __future__ import annotations
 
 import argparse
+import signal
 import sys
 import warnings
 from pathlib import Path
@@ -176,6 +177,11 @@ def main(argv: list[str] | None = None) -> int:
     args = parser.parse_args(argv)
     warnings.simplefilter("always", PredictorWarning)
     warnings.showwarning = _show_warning
+    sys.unraisablehook = _quiet_unraisable
+    try:  # on SIGINT/SIGTERM: stop, clean up half-written outputs, commit nothing more
+        previous = {s: signal.signal(s, _stop) for s in (signal.SIGINT, signal.SIGTERM)}
+    except ValueError:  # not the main thread: leave signals alone
+        previous = {}
     try:
         return COMMANDS[args.command](args)
     except PredictorError as err:
@@ -183,9 +189,33 @@ def main(argv: list[str] | None = None) -> int:
             raise
         print(f"predictor: error: {err}", file=sys.stderr)
         return 2
+    except OSError as err:  # a full disk, a read-only folder: the outputs were not kept
+        if args.debug:
+            raise
+        where = f" {err.filename}" if err.filename else ""
+        print(f"predictor: error: cannot read or write{where}: {err.strerror or err}; nothing was written",
+              file=sys.stderr)
+        return 2
     except KeyboardInterrupt:
         print("predictor: interrupted; no partial outputs were kept", file=sys.stderr)
         return 130
+    finally:
+        for sig, handler in previous.items():
+            signal.signal(sig, handler)
+
+
+def _quiet_unraisable(unraisable, default=sys.unraisablehook):
+    # a stop signal that lands in library clean-up code is reported as "Exception ignored";
+    # the stop is still honoured (nothing more is committed), so say nothing about it
+    if not issubclass(unraisable.exc_type, KeyboardInterrupt):
+        default(unraisable)
+
+
+def _stop(signum, frame):
+    from .io.atomic import interrupt
+
+    interrupt()
+    raise KeyboardInterrupt
 
 
 def _show_warning(message, category, filename, lineno, file=None, line=None):

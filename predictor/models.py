@@ -16,6 +16,7 @@ text, never pickle) predicts exactly what was fitted.
 
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -210,7 +211,10 @@ class LightGBM:
 
     def save(self, folder: Path, stem: str) -> dict:
         name = f"{stem}.lgb.txt"
-        (folder / name).write_text(self.booster_.model_to_string(), encoding="utf-8")
+        # the thread count is recorded in the text but does not change the model: normalise it so
+        # the same data and seed give byte-identical files whatever the thread count
+        text = re.sub(r"\[num_threads: \d+\]", "[num_threads: 0]", self.booster_.model_to_string())
+        (folder / name).write_text(text, encoding="utf-8")
         return {"type": "lightgbm", "task": self.task, "name": self.name, "features": self.features,
                 "monotone": self.monotone, "rounds": self.rounds_, "file": name}
 

@@ -23,6 +23,22 @@ def check_target(target: str | Path, overwrite: bool) -> Path:
     return target
 
 
+_interrupted = False
+
+
+def interrupt() -> None:
+    """Note that the run was asked to stop; no output is committed after this."""
+    global _interrupted
+    _interrupted = True
+
+
+def _commit_allowed() -> None:
+    # a stop signal can be swallowed when it lands inside library clean-up code; checking here
+    # makes sure nothing is renamed into place once one has arrived
+    if _interrupted:
+        raise KeyboardInterrupt
+
+
 def _umask() -> int:
     mask = os.umask(0)
     os.umask(mask)
@@ -39,6 +55,7 @@ def atomic_file(target: str | Path, overwrite: bool = True) -> Iterator[Path]:
     try:
         yield tmp
         os.chmod(tmp, 0o666 & ~_umask())  # mkstemp makes 0600; give the file the usual mode
+        _commit_allowed()
         os.replace(tmp, target)
     finally:
         if tmp.exists():
@@ -53,6 +70,7 @@ def atomic_folder(target: str | Path, overwrite: bool = False) -> Iterator[Path]
     try:
         yield tmp
         os.chmod(tmp, 0o777 & ~_umask())
+        _commit_allowed()
         if target.exists():
             old = target.with_name(f".{target.name}.old")
             if old.exists():

@@ -52,9 +52,12 @@ def _delimiter(header: str) -> str:
 
 def _check_field_counts(text: str, sep: str, path: Path) -> None:
     """Name the lines whose number of fields differs from the header's (pandas would shift them)."""
-    rows = csv.reader(io.StringIO(text), delimiter=sep)
-    header = next(rows, [])
-    bad = [i + 2 for i, row in enumerate(rows) if row and len(row) != len(header)]
+    try:
+        rows = csv.reader(io.StringIO(text), delimiter=sep)
+        header = next(rows, [])
+        bad = [i + 2 for i, row in enumerate(rows) if row and len(row) != len(header)]
+    except csv.Error as err:
+        raise InputError(f"{path}: not a readable table ({err}); check for unbalanced quotes") from None
     if bad:
         raise InputError(
             f"{path}: {list_rows([f'line {n}' for n in bad])} do not have the header's {len(header)} fields "
@@ -76,13 +79,13 @@ def read_table(path: str | Path) -> pd.DataFrame:
         except Exception as err:  # pyarrow raises many types for a broken file
             raise InputError(f"{path}: not a readable Parquet file ({err.__class__.__name__}); re-export it") from None
     else:
-        text = _read_text(path)
+        text = _read_text(path).replace("\r\n", "\n").replace("\r", "\n")  # CRLF and old CR-only ends
         first_line = text.splitlines()[0] if text.splitlines() else ""
         sep = _delimiter(first_line)
         _check_field_counts(text, sep, path)
         try:
             frame = pd.read_csv(io.StringIO(text), sep=sep, skipinitialspace=True)
-        except pd.errors.ParserError as err:
+        except (pd.errors.ParserError, csv.Error) as err:
             raise InputError(
                 f"{path}: rows do not all have the header's number of fields ({err}); "
                 "check for stray delimiters or a mixed comma/semicolon file"
