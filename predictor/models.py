@@ -62,6 +62,14 @@ def _softmax(z: np.ndarray) -> np.ndarray:
     return e / e.sum(axis=1, keepdims=True)
 
 
+def _standardise(model, data: FitData) -> np.ndarray:
+    """Store the training mean and scale of the model's features on it; return the standardised matrix."""
+    X = data.X[model.features].to_numpy(float)
+    model.mean_ = X.mean(axis=0)
+    model.scale_ = np.where(X.std(axis=0) > 0, X.std(axis=0), 1.0)
+    return (X - model.mean_) / model.scale_
+
+
 class Linear:
     """Weighted least-squares regression on standardised features."""
 
@@ -72,10 +80,8 @@ class Linear:
         self.name = name
 
     def fit(self, data: FitData) -> Linear:
-        X = data.X[self.features].to_numpy(float)
-        self.mean_ = X.mean(axis=0)
-        self.scale_ = np.where(X.std(axis=0) > 0, X.std(axis=0), 1.0)
-        Z = np.column_stack([np.ones(len(X)), (X - self.mean_) / self.scale_])
+        Z = _standardise(self, data)
+        Z = np.column_stack([np.ones(len(Z)), Z])
         sw = np.sqrt(np.asarray(data.weights, float))
         coef, *_ = np.linalg.lstsq(Z * sw[:, None], data.y * sw, rcond=None)
         self.coef_ = coef
@@ -106,18 +112,16 @@ class Logistic:
         self.name = name
 
     def fit(self, data: FitData) -> Logistic:
-        X = data.X[self.features].to_numpy(float)
-        self.mean_ = X.mean(axis=0)
-        self.scale_ = np.where(X.std(axis=0) > 0, X.std(axis=0), 1.0)
+        Z = _standardise(self, data)
         k = len(data.classes)
         present = np.unique(data.y)
-        self.coef_ = np.zeros((k, X.shape[1]))
+        self.coef_ = np.zeros((k, Z.shape[1]))
         self.intercept_ = np.full(k, -30.0)  # classes absent from training get ~zero probability
         if present.size == 1:
             self.intercept_[present[0]] = 0.0
             return self
         model = LogisticRegression(C=1.0, max_iter=2000)
-        model.fit((X - self.mean_) / self.scale_, data.y, sample_weight=data.weights)
+        model.fit(Z, data.y, sample_weight=data.weights)
         if present.size == 2:  # scikit-learn keeps one row for two classes
             self.coef_[present[1]] = model.coef_[0]
             self.intercept_[present] = [0.0, model.intercept_[0]]
