@@ -70,7 +70,8 @@ def build_parser() -> argparse.ArgumentParser:
     pr = sub.add_parser("predict", help="map every target of a bundle on a grid (CSV or NetCDF by extension)")
     pr.add_argument("bundle", help="bundle folder written by `predictor train`")
     pr.add_argument("--grid", required=True, help="grid with the attributes the bundle was trained on")
-    pr.add_argument("--out", required=True, help="maps file: .csv or .nc")
+    pr.add_argument("--out", required=True, help="maps file: .csv, .nc (CF NetCDF) or .tif (GeoTIFF)")
+    pr.add_argument("--crs", help="coordinate reference system of the maps, e.g. EPSG:32631 (default: the grid's)")
     pr.add_argument("--overwrite", action="store_true", help="replace an existing maps file")
 
     ex = sub.add_parser("explain", help="SHAP importance, summary and dependence plots, SHAP at the wells and "
@@ -136,7 +137,7 @@ def _cmd_train(args) -> int:
 def _cmd_predict(args) -> int:
     from .workflow import predict_files
 
-    path = predict_files(args.bundle, args.grid, args.out, overwrite=args.overwrite)
+    path = predict_files(args.bundle, args.grid, args.out, overwrite=args.overwrite, crs=args.crs)
     print(f"maps: {path}")
     return 0
 

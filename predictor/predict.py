@@ -125,12 +125,16 @@ def maps_table(maps: xr.Dataset) -> pd.DataFrame:
 
 
 def write_maps(maps: xr.Dataset, path: str | Path, overwrite: bool = False, crs_wkt: str | None = None) -> Path:
-    """Write maps to CSV (.csv) or CF NetCDF (.nc), atomically."""
+    """Write maps to CSV (.csv), CF NetCDF (.nc) or GeoTIFF (.tif), atomically."""
     path = Path(path)
     suffix = path.suffix.lower()
-    if suffix not in (".csv", ".nc"):
-        raise InputError(f"{path}: unknown map format {suffix!r}; use .csv or .nc")
+    if suffix not in (".csv", ".nc", ".tif", ".tiff"):
+        raise InputError(f"{path}: unknown map format {suffix!r}; use .csv, .nc or .tif")
     check_target(path, overwrite)
+    if suffix in (".tif", ".tiff"):
+        from .io.geotiff import write_geotiff
+
+        return write_geotiff(maps, path, crs_wkt, overwrite=overwrite)
     if suffix == ".csv":
         table = maps_table(maps)
         for col in table.columns[2:]:  # about 6 significant digits; coordinates are kept exact

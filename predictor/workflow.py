@@ -32,11 +32,21 @@ def train_files(wells_path, grid_path, out, targets, attributes=None, context_ra
     return trained, save_bundle(trained, out, inputs, overwrite=overwrite)
 
 
-def predict_files(bundle, grid_path, out, overwrite=False) -> Path:
-    """Predict the bundle's targets on a grid file and write the maps (CSV or NetCDF)."""
+def predict_files(bundle, grid_path, out, overwrite=False, crs: str | None = None) -> Path:
+    """Predict the bundle's targets on a grid file and write the maps (CSV, NetCDF or GeoTIFF).
+
+    ``crs`` (e.g. "EPSG:32631") labels NetCDF and GeoTIFF outputs; without it a CRS carried by
+    the input grid is kept.
+    """
     check_target(out, overwrite)
-    maps = predict_maps(bundle, read_grid(grid_path))
-    return write_maps(maps, out, overwrite=overwrite)
+    grid = read_grid(grid_path)
+    maps = predict_maps(bundle, grid)
+    crs = crs or grid.attrs.get("crs_wkt")
+    if crs and Path(out).suffix.lower() == ".nc":
+        from .io.geotiff import crs_to_wkt
+
+        crs = crs_to_wkt(crs)
+    return write_maps(maps, out, overwrite=overwrite, crs_wkt=crs)
 
 
 def leaderboard_lines(trained: TrainedModels) -> list[str]:

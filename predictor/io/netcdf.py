@@ -35,6 +35,10 @@ def read_netcdf_grid(path: Path) -> xr.Dataset:
             rename[found[0]] = target
     ds = ds.rename(rename)
     ds.attrs["source"] = str(path)
+    mapping = next((ds[v] for v in ds.variables if "crs_wkt" in ds[v].attrs or "spatial_ref" in ds[v].attrs), None)
+    if mapping is not None:  # carry the CRS on to the maps
+        ds.attrs["crs_wkt"] = mapping.attrs.get("crs_wkt") or mapping.attrs.get("spatial_ref")
+        ds = ds.drop_vars(mapping.name) if mapping.name in ds.data_vars and mapping.ndim == 0 else ds
     return check_grid(ds, str(path))
 
 
