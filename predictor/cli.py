@@ -70,7 +70,12 @@ def build_parser() -> argparse.ArgumentParser:
     pr = sub.add_parser("predict", help="map every target of a bundle on a grid (CSV or NetCDF by extension)")
     pr.add_argument("bundle", help="bundle folder written by `predictor train`")
     pr.add_argument("--grid", required=True, help="grid with the attributes the bundle was trained on")
-    pr.add_argument("--out", required=True, help="maps file: .csv, .nc (CF NetCDF) or .tif (GeoTIFF)")
+    pr.add_argument("--out", required=True, help="maps file: .csv, .nc (CF NetCDF), .tif (GeoTIFF), or .zarr "
+                    "(tile by tile with bounded memory, for grids larger than memory)")
+    pr.add_argument("--tile", type=int, default=512, help="with .zarr: tile side in nodes (default 512)")
+    pr.add_argument("--threads", type=int, help="with .zarr: local threads (default: all cores)")
+    pr.add_argument("--workers", type=int, help="with .zarr: start a local Dask cluster of this many workers")
+    pr.add_argument("--scheduler", help="with .zarr: address of an existing dask.distributed scheduler")
     pr.add_argument("--crs", help="coordinate reference system of the maps, e.g. EPSG:32631 (default: the grid's)")
     pr.add_argument("--overwrite", action="store_true", help="replace an existing maps file")
 
@@ -137,7 +142,13 @@ def _cmd_train(args) -> int:
 def _cmd_predict(args) -> int:
     from .workflow import predict_files
 
-    path = predict_files(args.bundle, args.grid, args.out, overwrite=args.overwrite, crs=args.crs)
+    if args.out.lower().endswith(".zarr"):
+        from .chunked import predict_to_zarr
+
+        path = predict_to_zarr(args.bundle, args.grid, args.out, tile=args.tile, threads=args.threads,
+                               workers=args.workers, scheduler=args.scheduler, overwrite=args.overwrite)
+    else:
+        path = predict_files(args.bundle, args.grid, args.out, overwrite=args.overwrite, crs=args.crs)
     print(f"maps: {path}")
     return 0
 

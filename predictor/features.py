@@ -45,7 +45,7 @@ class FeatureSpec:
         return cls(**data)
 
 
-def _smooth(values: np.ndarray, sigma_cells: float) -> np.ndarray:
+def _smooth(values: np.ndarray, sigma_cells) -> np.ndarray:
     """Gaussian smoothing that ignores NaN nodes (normalised convolution)."""
     valid = np.isfinite(values)
     filled = np.where(valid, values, 0.0)
@@ -70,7 +70,7 @@ def build_features(grid: xr.Dataset, spec: FeatureSpec) -> xr.Dataset:
         values = grid[attr].to_numpy().astype(float)
         out[attr] = values
         for radius in spec.context_radii:
-            smooth = _smooth(values, radius / dx)
+            smooth = _smooth(values, (radius / dy, radius / dx))
             out[f"{attr}_smooth{radius:g}m"] = smooth
             out[f"{attr}_contrast{radius:g}m"] = values - smooth
         if spec.gradient:
@@ -85,6 +85,18 @@ def build_features(grid: xr.Dataset, spec: FeatureSpec) -> xr.Dataset:
     ds = xr.Dataset({k: (("y", "x"), v) for k, v in out.items()}, coords={"x": grid.x, "y": grid.y})
     ds.attrs = dict(grid.attrs)
     return ds
+
+
+TRUNCATE = 4.0  # scipy's default Gaussian truncation, in standard deviations
+
+
+def halo_cells(spec: FeatureSpec, dx: float, dy: float) -> tuple[int, int]:
+    """Nodes of context a tile needs on each side so its features equal those of the whole grid."""
+    hy = hx = 1 if spec.gradient else 0
+    for radius in spec.context_radii:
+        hy = max(hy, int(TRUNCATE * radius / dy + 0.5) + 1)
+        hx = max(hx, int(TRUNCATE * radius / dx + 0.5) + 1)
+    return hy, hx
 
 
 def location_features(names) -> list[str]:

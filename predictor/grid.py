@@ -119,13 +119,17 @@ def check_grid(ds: xr.Dataset, source: str = "grid") -> xr.Dataset:
     return ds
 
 
-def read_grid(path: str | Path, x: str | None = None, y: str | None = None) -> xr.Dataset:
-    """Read a grid from a CSV/Parquet long table or a NetCDF file (chosen by extension)."""
+def read_grid(path: str | Path, x: str | None = None, y: str | None = None, lazy: bool = False) -> xr.Dataset:
+    """Read a grid from a CSV/Parquet long table, a NetCDF file or a Zarr store (by extension).
+
+    With ``lazy`` NetCDF and Zarr grids stay on disk (dask-backed) until a part is used, so a
+    grid larger than memory can be mapped tile by tile.
+    """
     path = Path(path)
-    if path.suffix.lower() in (".nc", ".nc4", ".netcdf", ".cdf"):
+    if path.suffix.lower() in (".nc", ".nc4", ".netcdf", ".cdf", ".zarr"):
         from .io.netcdf import read_netcdf_grid
 
-        return read_netcdf_grid(path)
+        return read_netcdf_grid(path, lazy=lazy)
     return grid_from_table(read_table(path), x=x, y=y)
 
 

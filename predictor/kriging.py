@@ -6,6 +6,8 @@ so one factorised system serves all map nodes, which are processed in chunks.
 
 from __future__ import annotations
 
+import threading
+
 import numpy as np
 from scipy.linalg import lu_factor, lu_solve
 from scipy.spatial.distance import cdist
@@ -14,6 +16,9 @@ from .errors import ModelError
 from .variogram import VariogramModel, auto_variogram
 
 CHUNK = 20_000
+# some OpenBLAS builds give wrong results when called from several Python threads at once
+# (seen here in tiled prediction); kriging's solves are serialised, the rest runs in parallel
+_BLAS = threading.Lock()
 
 
 class OrdinaryKriging:
@@ -55,8 +60,9 @@ class OrdinaryKriging:
             block = q[start:start + CHUNK]
             rhs = np.ones((n + 1, len(block)))
             rhs[:n] = self.variogram_.covariance(cdist(self.points_, block))
-            sol = lu_solve(self.lu_, rhs)
-            est[start:start + CHUNK] = sol[:n].T @ self.values_
+            with _BLAS:
+                sol = lu_solve(self.lu_, rhs)
+                est[start:start + CHUNK] = sol[:n].T @ self.values_
             var[start:start + CHUNK] = c0 - np.sum(sol[:n] * rhs[:n], axis=0) - sol[n]
         return (est, np.maximum(var, 0.0)) if return_variance else est
 

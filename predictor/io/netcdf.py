@@ -12,15 +12,21 @@ X_COORDS = ("x", "easting", "east", "projection_x_coordinate")
 Y_COORDS = ("y", "northing", "north", "projection_y_coordinate")
 
 
-def read_netcdf_grid(path: Path) -> xr.Dataset:
-    """Open a NetCDF file holding 2-D variables on x/y coordinates and normalise it to a grid."""
+def read_netcdf_grid(path: Path, lazy: bool = False) -> xr.Dataset:
+    """Open a NetCDF file (or Zarr store) of 2-D variables on x/y coordinates as a grid."""
     from ..grid import check_grid
 
     if not path.exists():
         raise InputError(f"{path}: file not found; check the path")
     try:
-        with xr.open_dataset(path) as handle:
-            ds = handle.load()
+        if path.suffix.lower() == ".zarr":
+            ds = xr.open_zarr(path)
+            ds = ds if lazy else ds.load()
+        elif lazy:
+            ds = xr.open_dataset(path, engine="h5netcdf", chunks={})
+        else:
+            with xr.open_dataset(path) as handle:
+                ds = handle.load()
     except Exception as err:  # netCDF/HDF5 libraries raise many types on a damaged file
         raise InputError(
             f"{path}: not a readable NetCDF file ({err.__class__.__name__}: {str(err)[:120]}); "

@@ -1,0 +1,60 @@
+"""Tiled prediction equals in-memory prediction exactly, on local threads and on a Dask cluster."""
+
+import numpy as np
+import pytest
+import xarray as xr
+from conftest import DEMO
+
+pytest.importorskip("dask.distributed")
+pytest.importorskip("zarr")
+
+from predictor.cli import main  # noqa: E402
+from predictor.errors import InputError, PredictorWarning  # noqa: E402
+from predictor.grid import read_grid  # noqa: E402
+from predictor.predict import predict_maps  # noqa: E402
+
+GRID_NC = str(DEMO / "seismic.nc")
+
+
+@pytest.fixture(scope="module")
+def bundle(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("b") / "bundle"
+    # context features at 250 m need a halo; permeability brings kriging (well ties, baselines) into the blend
+    assert main(["train", "--wells", str(DEMO / "wells.csv"), "--grid", GRID_NC, "--target", "porosity",
+                 "--target", "permeability", "--target", "facies", "--context-radius", "250", "--gradient",
+                 "--out", str(folder)]) == 0
+    return folder
+
+
+@pytest.fixture(scope="module")
+def in_memory(bundle):
+    with pytest.warns(PredictorWarning):
+        return predict_maps(bundle, read_grid(GRID_NC))
+
+
+def _same(store, ref):
+    tiled = xr.open_zarr(store).load()
+    assert set(tiled.data_vars) == set(ref.data_vars)
+    for var in ref.data_vars:
+        assert np.array_equal(tiled[var].to_numpy(), ref[var].to_numpy(), equal_nan=True), var
+    np.testing.assert_array_equal(tiled.x, ref.x)
+
+
+def test_tiles_with_threads_equal_in_memory(bundle, in_memory, tmp_path):
+    out = tmp_path / "maps.zarr"
+    assert main(["predict", str(bundle), "--grid", GRID_NC, "--out", str(out), "--tile", "24", "--threads", "2"]) == 0
+    _same(out, in_memory)
+
+
+def test_dask_local_cluster_with_two_workers_equals_local(bundle, in_memory, tmp_path):
+    out = tmp_path / "maps.zarr"
+    assert main(["predict", str(bundle), "--grid", GRID_NC, "--out", str(out), "--tile", "40", "--workers", "2"]) == 0
+    _same(out, in_memory)
+
+
+def test_tile_that_cannot_fit_in_memory(bundle, tmp_path):
+    from predictor.chunked import predict_to_zarr
+
+    with pytest.raises(InputError, match="use a smaller --tile"):
+        predict_to_zarr(bundle, GRID_NC, tmp_path / "m.zarr", tile=4096, memory_limit=1e8)
+    assert not (tmp_path / "m.zarr").exists()
