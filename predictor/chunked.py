@@ -15,6 +15,7 @@ from __future__ import annotations
 import functools
 import os
 import warnings
+from collections import deque
 from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 
@@ -26,6 +27,7 @@ from .errors import InputError, PredictorWarning
 from .features import halo_cells
 from .grid import read_grid, spacing
 from .io.atomic import atomic_folder
+from .progress import progress
 
 DEFAULT_TILE = 512
 BYTES_PER_NODE = 8 * 64  # generous: features, member predictions and outputs per node, float64
@@ -85,7 +87,8 @@ def predict_to_zarr(bundle_dir, grid_path, out, tile: int = DEFAULT_TILE, thread
     with atomic_folder(out, overwrite=overwrite) as tmp:
         first = predict_tile(folder, grid_path, all_tiles[0])[1]
         _template(first, grid, tile).to_zarr(tmp, compute=False, mode="w", zarr_format=2)
-        for (y0, y1, x0, x1), part in _run(folder, grid_path, all_tiles, threads, workers, scheduler):
+        for (y0, y1, x0, x1), part in progress(_run(folder, grid_path, all_tiles, threads, workers, scheduler),
+                                               "tiles", total=len(all_tiles)):
             part = part.drop_vars(["x", "y"])
             part.attrs = {}
             for var in part.data_vars:
@@ -113,8 +116,17 @@ def _run(folder, grid_path, all_tiles, threads, workers, scheduler):
             if cluster is not None:
                 cluster.close()
         return
-    with ThreadPoolExecutor(max_workers=threads or os.cpu_count() or 1) as pool:
-        for tile, part, _ in pool.map(lambda t: predict_tile(folder, grid_path, t), all_tiles):
+    n = threads or os.cpu_count() or 1
+    with ThreadPoolExecutor(max_workers=n) as pool:
+        # a bounded window of tiles in flight keeps memory flat however many tiles there are
+        pending = deque()
+        for t in all_tiles:
+            pending.append(pool.submit(predict_tile, folder, grid_path, t))
+            if len(pending) >= 2 * n:
+                tile, part, _ = pending.popleft().result()
+                yield tile, part
+        while pending:
+            tile, part, _ = pending.popleft().result()
             yield tile, part
 
 

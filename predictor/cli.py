@@ -26,6 +26,7 @@ def _wells_options(p: argparse.ArgumentParser) -> None:
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(prog="predictor", description=__doc__.splitlines()[0])
     parser.add_argument("--debug", action="store_true", help="show the full traceback on errors")
+    parser.add_argument("--quiet", action="store_true", help="no progress bars")
     sub = parser.add_subparsers(dest="command", required=True)
 
     qc = sub.add_parser("qc", help="check wells and grid: statistics, non-physical values, duplicates, "
@@ -63,6 +64,8 @@ def build_parser() -> argparse.ArgumentParser:
     tr.add_argument("--interval-spread", choices=["none", "features", "kriging"], default="features",
                     help="scale intervals by a local error spread: learnt from the attributes (default), "
                     "the well-tie kriging standard deviation (narrow near wells), or none (constant width)")
+    tr.add_argument("--candidate", action="append",
+                    help="only these candidates (repeatable, e.g. --candidate lightgbm --candidate linear)")
     tr.add_argument("--drop-outside", action="store_true", help="leave out wells off the grid, with a warning")
     tr.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
     tr.add_argument("--threads", type=int, default=1, help="LightGBM threads (default 1; results do not depend on it)")
@@ -127,7 +130,7 @@ def _cmd_train(args) -> int:
                                   block_size=args.block_size, block_angle=args.block_angle, cv=args.cv,
                                   declustering=args.declustering, monotone=args.monotone, well_ties=args.well_ties,
                                   interval_spread=args.interval_spread, drop_outside=args.drop_outside,
-                                  seed=args.seed, n_threads=args.threads, porosity_percent=args.porosity_percent,
+                                  seed=args.seed, n_threads=args.threads, candidates=args.candidate, porosity_percent=args.porosity_percent,
                                   x=args.x_column, y=args.y_column, overwrite=args.overwrite)
     from .workflow import leaderboard_lines
 
@@ -187,6 +190,9 @@ COMMANDS = {"qc": _cmd_qc, "train": _cmd_train, "predict": _cmd_predict, "explai
 def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
+    from .progress import set_quiet
+
+    set_quiet(args.quiet)
     warnings.simplefilter("always", PredictorWarning)
     warnings.showwarning = _show_warning
     sys.unraisablehook = _quiet_unraisable

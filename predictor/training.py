@@ -42,6 +42,7 @@ from .models import (
     combine,
     type_copy,
 )
+from .progress import progress
 from .qc import grid_findings, physical_findings
 from .spatial_cv import (
     BlockKFold,
@@ -75,6 +76,7 @@ class TrainOptions:
     drop_outside: bool = False
     seed: int = 0
     n_threads: int = 1
+    candidates: list[str] | None = None  # restrict the leaderboard to these names (baselines included)
 
     def to_dict(self) -> dict:
         out = asdict(self)
@@ -303,8 +305,14 @@ def train(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> Train
         board = []
         oofs = {}
         candidates = _candidates(task, target, attrs, names, wells, options)
+        if options.candidates:
+            known = [c.name for c in candidates]
+            candidates = [c for c in candidates if c.name in options.candidates]
+            if not candidates:
+                raise InputError(f"none of the candidates {', '.join(options.candidates)} applies to {target!r}; "
+                                 f"choose from {', '.join(known)}")
         random_oofs = {}
-        for cand in candidates:
+        for cand in progress(candidates, f"{target}: cross-validating candidates"):
             oof = cross_validate(cand, data, splitter)
             oofs[cand.name] = (cand, oof)
             random_oofs[cand.name] = cross_validate(cand, data, random_cv)

@@ -23,7 +23,7 @@ def read_netcdf_grid(path: Path, lazy: bool = False) -> xr.Dataset:
             ds = xr.open_zarr(path)
             ds = ds if lazy else ds.load()
         elif lazy:
-            ds = xr.open_dataset(path, engine="h5netcdf", chunks={})
+            ds = xr.open_dataset(path, engine="h5netcdf", chunks={"y": 256, "x": 256})  # read by parts
         else:
             with xr.open_dataset(path) as handle:
                 ds = handle.load()
