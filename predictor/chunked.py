@@ -43,8 +43,9 @@ def _bundle(folder: str):
     return load_bundle(folder)  # once per process: a Dask worker keeps it between tasks
 
 
-def predict_tile(folder: str, grid_path: str, tile: tuple[int, int, int, int]) -> tuple[tuple, xr.Dataset, int]:
-    """Predict one tile (with its halo) and return its interior and its count of out-of-range nodes."""
+def predict_tile(folder: str, grid_path: str, tile: tuple[int, int, int, int]) -> tuple[tuple, xr.Dataset, bool]:
+    """Predict one tile (with its halo): its interior, and whether some of it lies outside the
+    feature range seen at the wells."""
     from .predict import predict_maps
 
     bundle = _bundle(folder)
@@ -56,10 +57,8 @@ def predict_tile(folder: str, grid_path: str, tile: tuple[int, int, int, int]) -
     xa, xb = max(0, x0 - hx), min(grid.sizes["x"], x1 + hx)
     part = grid.isel(y=slice(ya, yb), x=slice(xa, xb)).load()
     part.attrs = dict(grid.attrs)
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always", PredictorWarning)
-        maps = predict_maps(bundle, part)
-    outside = sum(int(str(w.message).split("%")[0].replace(".", "") or 0) for w in caught if "%" in str(w.message))
+    maps = predict_maps(bundle, part, warn=False)  # warnings are not thread-safe: report once, at the end
+    outside = maps.attrs["extrapolated_share"] > 0
     inner = maps.isel(y=slice(y0 - ya, y0 - ya + (y1 - y0)), x=slice(x0 - xa, x0 - xa + (x1 - x0)))
     return tile, inner, outside
 
@@ -87,18 +86,23 @@ def predict_to_zarr(bundle_dir, grid_path, out, tile: int = DEFAULT_TILE, thread
     with atomic_folder(out, overwrite=overwrite) as tmp:
         first = predict_tile(folder, grid_path, all_tiles[0])[1]
         _template(first, grid, tile).to_zarr(tmp, compute=False, mode="w", zarr_format=2)
-        for (y0, y1, x0, x1), part in progress(_run(folder, grid_path, all_tiles, threads, workers, scheduler),
-                                               "tiles", total=len(all_tiles)):
+        extrapolated = 0
+        for (y0, y1, x0, x1), part, outside in progress(_run(folder, grid_path, all_tiles, threads, workers,
+                                                             scheduler), "tiles", total=len(all_tiles)):
+            extrapolated += outside
             part = part.drop_vars(["x", "y"])
             part.attrs = {}
             for var in part.data_vars:
                 part[var].attrs = {}
             part.to_zarr(tmp, region={"y": slice(y0, y1), "x": slice(x0, x1)}, zarr_format=2)
+    if extrapolated:
+        warnings.warn(f"{extrapolated} of {len(all_tiles)} tiles hold nodes with feature values outside the range "
+                      "seen at the wells; predictions there are extrapolations", PredictorWarning, stacklevel=2)
     return out
 
 
 def _run(folder, grid_path, all_tiles, threads, workers, scheduler):
-    """Yield (tile, interior maps) as tiles finish, on local threads or a Dask cluster."""
+    """Yield (tile, interior maps, extrapolated) as tiles finish, on local threads or a Dask cluster."""
     if workers or scheduler:
         from dask.distributed import Client, LocalCluster, as_completed
 
@@ -109,8 +113,7 @@ def _run(folder, grid_path, all_tiles, threads, workers, scheduler):
             futures = client.map(predict_tile, [folder] * len(all_tiles), [grid_path] * len(all_tiles), all_tiles,
                                  pure=False)
             for future in as_completed(futures):
-                tile, part, _ = future.result()
-                yield tile, part
+                yield future.result()
         finally:
             client.close()
             if cluster is not None:
@@ -123,11 +126,9 @@ def _run(folder, grid_path, all_tiles, threads, workers, scheduler):
         for t in all_tiles:
             pending.append(pool.submit(predict_tile, folder, grid_path, t))
             if len(pending) >= 2 * n:
-                tile, part, _ = pending.popleft().result()
-                yield tile, part
+                yield pending.popleft().result()
         while pending:
-            tile, part, _ = pending.popleft().result()
-            yield tile, part
+            yield pending.popleft().result()
 
 
 def _template(first: xr.Dataset, grid: xr.Dataset, tile: int) -> xr.Dataset:

@@ -37,8 +37,13 @@ def local_spread(spread, model, X: pd.DataFrame, xy: np.ndarray) -> np.ndarray:
     return spread.predict(X)
 
 
-def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int = CHUNK_ROWS) -> xr.Dataset:
-    """Predict every target of the bundle on every valid node of ``grid``."""
+def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int = CHUNK_ROWS,
+                 warn: bool = True) -> xr.Dataset:
+    """Predict every target of the bundle on every valid node of ``grid``.
+
+    The share of nodes whose features lie outside the range seen at the wells is kept in
+    ``attrs["extrapolated_share"]`` and, with ``warn``, reported as a warning.
+    """
     if not isinstance(bundle, Bundle):
         bundle = load_bundle(bundle)
     card = bundle.card
@@ -54,7 +59,7 @@ def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int 
     for name in names:
         lo, hi = card["features"]["training_ranges"][name]
         outside |= (X[name] < lo) | (X[name] > hi)
-    if outside.any():
+    if outside.any() and warn:
         warnings.warn(f"{outside.mean():.1%} of the map nodes have feature values outside the range seen at the "
                       "wells; predictions there are extrapolations", PredictorWarning, stacklevel=2)
     shape = (grid.sizes["y"], grid.sizes["x"])
@@ -104,7 +109,8 @@ def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int 
             out[f"{target}_applicable"] = applicable
     out.attrs.update(source="predictor", bundle=str(bundle.folder), grid=str(grid.attrs.get("source", "")),
                      caution="a predicted map is a model, not a measurement",
-                     percentiles="q10/q90 are non-exceedance percentiles")
+                     percentiles="q10/q90 are non-exceedance percentiles",
+                     extrapolated_share=float(outside.mean()))
     return out
 
 

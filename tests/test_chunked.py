@@ -44,6 +44,10 @@ def test_tiles_with_threads_equal_in_memory(bundle, in_memory, tmp_path):
     out = tmp_path / "maps.zarr"
     assert main(["predict", str(bundle), "--grid", GRID_NC, "--out", str(out), "--tile", "24", "--threads", "2"]) == 0
     _same(out, in_memory)
+    from predictor.chunked import predict_to_zarr
+
+    with pytest.warns(PredictorWarning, match="tiles hold nodes with feature values outside"):
+        predict_to_zarr(bundle, GRID_NC, tmp_path / "again.zarr", tile=60)
 
 
 def test_dask_local_cluster_with_two_workers_equals_local(bundle, in_memory, tmp_path):
