@@ -56,12 +56,16 @@ def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int 
     xx, yy = np.meshgrid(grid.x.to_numpy(), grid.y.to_numpy())
     xy = np.column_stack([xx.ravel()[valid], yy.ravel()[valid]])
     outside = np.zeros(len(X), bool)
+    share = {}
     for name in names:
         lo, hi = card["features"]["training_ranges"][name]
-        outside |= (X[name] < lo) | (X[name] > hi)
+        out = (X[name] < lo) | (X[name] > hi)
+        share[name] = float(out.mean())
+        outside |= out
     if outside.any() and warn:
+        worst = ", ".join(f"{n} {v:.1%}" for n, v in sorted(share.items(), key=lambda kv: -kv[1])[:3] if v > 0)
         warnings.warn(f"{outside.mean():.1%} of the map nodes have feature values outside the range seen at the "
-                      "wells; predictions there are extrapolations", PredictorWarning, stacklevel=2)
+                      f"wells (most: {worst}); predictions there are extrapolations", PredictorWarning, stacklevel=2)
     shape = (grid.sizes["y"], grid.sizes["x"])
 
     def on_grid(values) -> np.ndarray:
