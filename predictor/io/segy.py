@@ -1,0 +1,120 @@
+"""SEG-Y volumes through segyio: geometry from trace headers, missing traces as NaN, rotated
+surveys through the affine from (inline, crossline) to CDP x/y.
+
+A volume is an ``xarray.Dataset`` with dims ``("z", "inline", "crossline")``, 1-D coordinates
+``z`` (sample time or depth), ``inline``, ``crossline``, and 2-D coordinates ``cdp_x`` and
+``cdp_y`` (projected metres) for every trace position, missing ones included.  ``attrs["affine"]``
+holds (x0, dx_il, dx_xl, y0, dy_il, dy_xl): x = x0 + dx_il * il + dx_xl * xl, likewise y.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import xarray as xr
+
+from ..errors import InputError, list_rows
+from .atomic import atomic_file
+
+COORD_TOLERANCE = 0.5  # metres a trace's CDP may sit off the survey's affine lattice
+
+
+def _segyio():
+    try:
+        import segyio
+    except ImportError:
+        raise InputError("reading or writing SEG-Y needs segyio: `pip install segyio` (or the [formats] extra)") from None
+    return segyio
+
+
+def _scaled(values: np.ndarray, scalar: np.ndarray) -> np.ndarray:
+    # SEG-Y coordinate scalar: negative divides, positive multiplies, 0 means 1
+    s = scalar.astype(float)
+    factor = np.where(s < 0, -1.0 / np.where(s == 0, 1, s), np.where(s == 0, 1.0, s))
+    return values.astype(float) * factor
+
+
+def read_segy(path: str | Path, name: str = "amplitude") -> xr.Dataset:
+    """Read a 3-D post-stack SEG-Y file (inline 189, crossline 193, CDP x/y 181/185 headers)."""
+    segyio = _segyio()
+    path = Path(path)
+    if not path.exists():
+        raise InputError(f"{path}: file not found; check the path")
+    tf = segyio.TraceField
+    try:
+        with segyio.open(str(path), "r", ignore_geometry=True) as f:
+            il = f.attributes(tf.INLINE_3D)[:].astype(int)
+            xl = f.attributes(tf.CROSSLINE_3D)[:].astype(int)
+            scalar = f.attributes(tf.SourceGroupScalar)[:]
+            cx = _scaled(f.attributes(tf.CDP_X)[:], scalar)
+            cy = _scaled(f.attributes(tf.CDP_Y)[:], scalar)
+            samples = np.asarray(f.samples, float)
+            traces = f.trace.raw[:].astype(float)
+    except InputError:
+        raise
+    except Exception as err:  # segyio raises RuntimeError/OSError on a damaged file
+        raise InputError(f"{path}: not a readable SEG-Y file ({err}); the file may be truncated") from None
+    if il.size == 0:
+        raise InputError(f"{path}: holds no traces")
+    keys = il.astype(np.int64) * 1_000_003 + xl
+    _, first, counts = np.unique(keys, return_index=True, return_counts=True)
+    if (counts > 1).any():
+        dup = [f"inline {il[i]} crossline {xl[i]}" for i in first[counts > 1]]
+        raise InputError(f"{path}: inconsistent geometry: traces repeat at {list_rows(dup)}; keep one trace per "
+                         "position")
+    ils, xls = np.unique(il), np.unique(xl)
+    step_il = int(np.min(np.diff(ils))) if ils.size > 1 else 1
+    step_xl = int(np.min(np.diff(xls))) if xls.size > 1 else 1
+    inlines = np.arange(ils[0], ils[-1] + 1, step_il)
+    crosslines = np.arange(xls[0], xls[-1] + 1, step_xl)
+    if not (np.isin(ils, inlines).all() and np.isin(xls, crosslines).all()):
+        raise InputError(f"{path}: inconsistent geometry: inline/crossline numbers are not on a regular step")
+    # the survey's affine from (inline, crossline) to CDP x/y, fitted on every trace
+    A = np.column_stack([np.ones(il.size), il, xl])
+    (x0, dxi, dxx), *_ = np.linalg.lstsq(A, cx, rcond=None)
+    (y0, dyi, dyx), *_ = np.linalg.lstsq(A, cy, rcond=None)
+    misfit = np.hypot(A @ [x0, dxi, dxx] - cx, A @ [y0, dyi, dyx] - cy)
+    if misfit.max() > COORD_TOLERANCE:
+        bad = [f"inline {il[i]} crossline {xl[i]}" for i in np.flatnonzero(misfit > COORD_TOLERANCE)]
+        raise InputError(f"{path}: inconsistent geometry: CDP coordinates of {list_rows(bad)} are off the survey "
+                         f"lattice by up to {misfit.max():.1f} m; check the coordinate headers and scalar")
+    cube = np.full((samples.size, inlines.size, crosslines.size), np.nan)
+    ii = (il - inlines[0]) // step_il
+    jj = (xl - crosslines[0]) // step_xl
+    cube[:, ii, jj] = traces.T
+    gi, gj = np.meshgrid(inlines, crosslines, indexing="ij")
+    ds = xr.Dataset({name: (("z", "inline", "crossline"), cube)},
+                    coords={"z": samples, "inline": inlines, "crossline": crosslines,
+                            "cdp_x": (("inline", "crossline"), x0 + dxi * gi + dxx * gj),
+                            "cdp_y": (("inline", "crossline"), y0 + dyi * gi + dyx * gj)})
+    ds.attrs.update(source=str(path), affine=[float(v) for v in (x0, dxi, dxx, y0, dyi, dyx)],
+                    missing_traces=int(cube.shape[1] * cube.shape[2] - il.size))
+    return ds
+
+
+def write_segy(ds: xr.Dataset, var: str, target: str | Path, overwrite: bool = True) -> Path:
+    """Write one variable of a volume as SEG-Y (IEEE floats); traces that are all NaN are left out."""
+    segyio = _segyio()
+    cube = ds[var].transpose("z", "inline", "crossline").to_numpy().astype(np.float32)
+    inl, xln = np.meshgrid(ds.inline.to_numpy(), ds.crossline.to_numpy(), indexing="ij")
+    keep = ~np.all(np.isnan(cube), axis=0)
+    z = ds.z.to_numpy().astype(float)
+    interval = float(z[1] - z[0]) if z.size > 1 else 1.0
+    spec = segyio.spec()
+    spec.format = 5
+    spec.samples = z
+    spec.tracecount = int(keep.sum())
+    tf = segyio.TraceField
+    with atomic_file(target, overwrite=overwrite) as tmp:
+        with segyio.create(str(tmp), spec) as f:
+            for n, (i, j) in enumerate(zip(*np.nonzero(keep), strict=True)):
+                f.header[n] = {tf.INLINE_3D: int(inl[i, j]), tf.CROSSLINE_3D: int(xln[i, j]),
+                               tf.SourceGroupScalar: -100,
+                               tf.CDP_X: int(round(float(ds.cdp_x[i, j]) * 100)),
+                               tf.CDP_Y: int(round(float(ds.cdp_y[i, j]) * 100)),
+                               tf.TRACE_SAMPLE_INTERVAL: int(round(interval * 1000)),
+                               tf.TRACE_SAMPLE_COUNT: z.size, tf.DelayRecordingTime: int(round(z[0]))}
+                f.trace[n] = np.nan_to_num(cube[:, i, j], nan=0.0)
+            f.bin.update(hns=z.size, hdt=int(round(interval * 1000)), format=5)
+    return Path(target)
