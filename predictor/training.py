@@ -155,12 +155,12 @@ def _check_inputs(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) 
                                               "run `predictor qc` for the full list)"))
 
 
-def _weights(wells: pd.DataFrame, grid: xr.Dataset, method: str) -> tuple[np.ndarray, np.ndarray, dict]:
-    """Model/score weights (by ``method``), the nearest-node weights for statistics, and a summary."""
+def _weights(wells: pd.DataFrame, grid: xr.Dataset, method: str) -> tuple[np.ndarray, np.ndarray, np.ndarray, dict]:
+    """Model/score weights (by ``method``), nearest-node and cell weights for statistics, and a summary."""
     cell, nearest = decluster(wells, grid)
     model = {"cell": cell.weights, "nearest_node": nearest, "none": np.ones(len(wells))}[method]
     summary = {"model_weights": method, "statistics_weights": "nearest_node", "cell": cell.summary()}
-    return model, nearest, summary
+    return model, nearest, cell.weights, summary
 
 
 def _block_size(data: FitData, options: TrainOptions, attrs: list[str],
@@ -233,7 +233,7 @@ def train(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> Train
         X_all, kept = features_at_wells(features, wells, options.sample_method, options.drop_outside)
     notes += [str(w.message) for w in caught]
     wells = wells.loc[kept].reset_index(drop=True)
-    weights, stat_weights, decl = _weights(wells, grid, options.declustering)
+    weights, stat_weights, cell_weights, decl = _weights(wells, grid, options.declustering)
     xy = wells[["x", "y"]].to_numpy(float)
     ranges = {n: [float(np.nanmin(X_all[n])), float(np.nanmax(X_all[n]))] for n in names}
 
@@ -250,8 +250,7 @@ def train(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> Train
     # experiments/declustering_accuracy.py; the cell-weighted ones are kept beside them
     categorical = [t for t in options.targets if t not in numeric_targets]
     stats = declustered_statistics(wells, stat_weights, numeric_targets, categorical)
-    stats["declustered_cell"] = declustered_statistics(wells, weights if options.declustering == "cell" else
-                                                       decluster(wells, grid)[0].weights, numeric_targets,
+    stats["declustered_cell"] = declustered_statistics(wells, cell_weights, numeric_targets,
                                                        categorical)["declustered"]
     results = {}
     for target in options.targets:
