@@ -69,7 +69,8 @@ def model_card(trained, inputs: dict | None = None) -> dict:
             "calibration": tm.calibration.to_dict() if tm.calibration else None,
             "interval_spread": (tm.spread if isinstance(tm.spread, str) or tm.spread is None
                                 else "features: log|residual| linear in " + ", ".join(tm.spread.features)),
-            "n_wells": int(tm.observed.size),
+            "n_wells": int(tm.observed.size if tm.units is None else np.unique(tm.units).size),
+            "n_samples": int(tm.observed.size),
             "importance": {"measure": "declustering-weighted mean |SHAP| at the wells (raw model output)",
                            "values": tm.importance.round(8).to_dict() if tm.importance is not None else {}},
             "trust": tm.trust,
@@ -82,6 +83,7 @@ def model_card(trained, inputs: dict | None = None) -> dict:
         "versions": package_versions(),
         "inputs": inputs or {},
         "options": trained.options.to_dict(),
+        "space": trained.space,
         "features": {"spec": trained.feature_spec.to_dict(), "names": trained.feature_names,
                      "training_ranges": trained.training_ranges},
         "declustering": trained.declustering,
@@ -90,7 +92,7 @@ def model_card(trained, inputs: dict | None = None) -> dict:
         "declustered_cell": trained.statistics["declustered_cell"],
         "targets": targets,
         "warnings": trained.warnings,
-        "wells": {"count": int(len(trained.wells)),
+        "wells": {"count": int(trained.wells["well_id"].nunique()),
                   "weights": dict(zip(trained.wells["well_id"].astype(str), np.round(trained.weights, 6).tolist(),
                                       strict=True))},
     }

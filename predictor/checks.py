@@ -6,7 +6,7 @@ This is what ``predictor qc`` runs; a notebook user calls :func:`check_data` the
 from __future__ import annotations
 
 import warnings
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import numpy as np
@@ -20,11 +20,12 @@ from .declustering import (
     declustered_statistics,
     nearest_node_weights,
 )
-from .errors import PredictorWarning
-from .grid import read_grid, sample_at
+from .errors import InputError, PredictorWarning
+from .grid import read_seismic, sample_at
 from .io.jsonfile import write_json
 from .io.tables import read_wells
 from .qc import QCReport, numeric_properties, run_qc
+from .volume import is_volume, sample_volume, trace_footprint
 
 
 @dataclass
@@ -46,21 +47,53 @@ class DataCheck:
 
 
 def decluster(wells: pd.DataFrame, grid: xr.Dataset, variable: str | None = None) -> tuple[Declustering, np.ndarray]:
-    """Cell declustering on ``variable`` (porosity by default) and nearest-node weights on the grid."""
+    """Cell declustering on ``variable`` (porosity by default) and nearest-node weights on the grid.
+
+    With a volume, ``wells`` holds one row per well (its mean position and values) and the
+    nearest-node weights share out the survey's live traces.
+    """
     numeric = numeric_properties(wells)
     variable = variable or ("porosity" if "porosity" in wells else (numeric[0] if numeric else None))
     values = wells[variable].to_numpy(dtype=float) if variable else np.ones(len(wells))
     cell = cell_declustering(wells["x"], wells["y"], values, variable=variable)
-    xx, yy = np.meshgrid(grid.x.to_numpy(), grid.y.to_numpy())
-    valid = np.all([np.isfinite(grid[v].to_numpy()) for v in grid.data_vars], axis=0)
+    if is_volume(grid):  # the survey's live traces stand in for the map's nodes
+        xx, yy, valid = trace_footprint(grid)
+    else:
+        xx, yy = np.meshgrid(grid.x.to_numpy(), grid.y.to_numpy())
+        valid = np.all([np.isfinite(grid[v].to_numpy()) for v in grid.data_vars], axis=0)
     nearest = nearest_node_weights(wells["x"], wells["y"], xx, yy, valid)
     return cell, nearest
+
+
+def well_heads(wells: pd.DataFrame) -> tuple[pd.DataFrame, np.ndarray]:
+    """One row per well (mean position and mean numeric values of its samples) and the row of
+    ``heads`` each sample belongs to."""
+    codes, ids = pd.factorize(wells["well_id"])
+    numeric = [c for c in ("porosity", "permeability") if c in wells]
+    heads = wells.groupby(codes, sort=True)[["x", "y", *numeric]].mean().reset_index(drop=True)
+    heads.insert(0, "well_id", np.asarray(ids, dtype=object))
+    heads.attrs = dict(wells.attrs)
+    return heads, codes
+
+
+def decluster_samples(wells: pd.DataFrame, volume: xr.Dataset) -> tuple[Declustering, np.ndarray, np.ndarray]:
+    """Lateral declustering of wells sampled along their paths: (cell declustering of the wells,
+    nearest-node weights of the wells, the well of each sample).  A sample carries its well's
+    weight, so a well counts by the thickness it samples."""
+    heads, codes = well_heads(wells)
+    cell, nearest = decluster(heads, volume)
+    return cell, nearest, codes
 
 
 def check_data(wells: pd.DataFrame, grid: xr.Dataset, tolerance: float = 1.0) -> DataCheck:
     """Run every check and compute the declustering weights (no files written)."""
     qc = run_qc(wells, grid, tolerance)
-    cell, nearest = decluster(wells, grid)
+    if is_volume(grid):
+        cell, nearest, codes = decluster_samples(wells, grid)
+        cell = replace(cell, weights=cell.weights[codes])
+        nearest = nearest[codes]
+    else:
+        cell, nearest = decluster(wells, grid)
     categorical = ["facies"] if "facies" in wells else []
     stats = declustered_statistics(wells, cell.weights, numeric_properties(wells), categorical)
     return DataCheck(wells, grid, qc, cell, nearest, stats)
@@ -77,7 +110,8 @@ def write_check(check: DataCheck, json_path: str | Path | None = None, figures: 
         wells, grid = check.wells, check.grid
         attribute = next(iter(grid.data_vars))
         props = [c for c in ("facies", "porosity", "permeability") if c in wells] or numeric_properties(wells)[:3]
-        written.append(plots.location_maps(wells, grid, attribute, props, folder / "wells_on_map.png"))
+        if not is_volume(grid):  # a volume's survey map is left to the volume figures of the report
+            written.append(plots.location_maps(wells, grid, attribute, props, folder / "wells_on_map.png"))
         for var, bias in check.qc.bias.items():
             at_wells = _at_wells(wells, grid, var)
             written.append(plots.bias_figure(at_wells, grid[var].to_numpy().ravel(), var, bias["verdict"],
@@ -95,20 +129,27 @@ def write_check(check: DataCheck, json_path: str | Path | None = None, figures: 
 
 
 def _at_wells(wells: pd.DataFrame, grid: xr.Dataset, var: str) -> np.ndarray:
-    """Attribute at every well (NaN for wells off the grid)."""
+    """Attribute at every well (volumes: every well sample); NaN for those off the grid."""
     out = np.full(len(wells), np.nan)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", PredictorWarning)
-        sampled, kept = sample_at(grid[[var]], wells["x"], wells["y"], drop_outside=True)
+        if is_volume(grid):
+            sampled, kept = sample_volume(grid[[var]], wells["x"], wells["y"], wells["z"], drop_outside=True)
+        else:
+            sampled, kept = sample_at(grid[[var]], wells["x"], wells["y"], drop_outside=True)
     out[kept] = sampled[var].to_numpy()
     return out
 
 
 def check_files(wells_path, grid_path, json_path=None, figures=None, porosity_percent: bool = False,
-                x: str | None = None, y: str | None = None, tolerance: float = 1.0) -> DataCheck:
+                x: str | None = None, y: str | None = None, tolerance: float = 1.0, z: str | None = None,
+                z_domain: str | None = None, segy_name: str = "amplitude") -> DataCheck:
     """Read the files, run :func:`check_data` and write the outputs."""
-    wells = read_wells(wells_path, x=x, y=y, porosity_percent=porosity_percent)
-    grid = read_grid(grid_path)
+    wells = read_wells(wells_path, x=x, y=y, z=z, porosity_percent=porosity_percent)
+    grid = read_seismic(grid_path, z_domain=z_domain, name=segy_name)
+    if is_volume(grid) and "z" not in wells:
+        raise InputError(f"{wells_path}: a volume needs wells as samples with z (depth or two-way time): add a z, "
+                         "depth or twt column, one row per sample")
     check = check_data(wells, grid, tolerance)
     write_check(check, json_path, figures)
     return check

@@ -25,9 +25,10 @@ import xarray as xr
 from .bundle import load_bundle
 from .errors import InputError, PredictorWarning
 from .features import halo_cells
-from .grid import read_grid, spacing
-from .io.atomic import atomic_folder
+from .grid import read_seismic, spacing
+from .io.atomic import atomic_folder, check_target
 from .progress import progress
+from .volume import SEGY_SUFFIXES, is_volume, lateral_spacing, read_volume
 
 DEFAULT_TILE = 512
 BYTES_PER_NODE = 8 * 64  # generous: features, member predictions and outputs per node, float64
@@ -38,70 +39,117 @@ def tiles(ny: int, nx: int, size: int) -> list[tuple[int, int, int, int]]:
     return [(y0, min(y0 + size, ny), x0, min(x0 + size, nx)) for y0 in range(0, ny, size) for x0 in range(0, nx, size)]
 
 
+def lateral_axes(grid: xr.Dataset) -> tuple[str, str]:
+    """The two lateral dims tiles are cut along: (y, x) for maps, (inline, crossline) for volumes;
+    a volume's tiles hold whole traces."""
+    return ("inline", "crossline") if is_volume(grid) else ("y", "x")
+
+
+def halo(grid: xr.Dataset, spec) -> tuple[int, int]:
+    """Halo (nodes along the first and second lateral axis) a tile needs for exact features."""
+    if is_volume(grid):
+        d_il, d_xl = lateral_spacing(grid)
+        return halo_cells(spec, d_xl, d_il)
+    dx, dy = spacing(grid)
+    return halo_cells(spec, dx, dy)
+
+
 @functools.lru_cache(maxsize=4)
 def _bundle(folder: str):
     return load_bundle(folder)  # once per process: a Dask worker keeps it between tasks
 
 
-def predict_tile(folder: str, grid_path: str, tile: tuple[int, int, int, int]) -> tuple[tuple, xr.Dataset, bool]:
+def predict_tile(folder: str, grid_path: str, tile: tuple[int, int, int, int],
+                 z_domain: str | None = None) -> tuple[tuple, xr.Dataset, bool]:
     """Predict one tile (with its halo): its interior, and whether some of it lies outside the
     feature range seen at the wells."""
     from .predict import predict_maps
 
     bundle = _bundle(folder)
-    grid = read_grid(grid_path, lazy=True)
-    dx, dy = spacing(grid)
-    hy, hx = halo_cells(bundle.feature_spec, dx, dy)
+    grid = _open(grid_path, z_domain)
+    ay, ax = lateral_axes(grid)
+    hy, hx = halo(grid, bundle.feature_spec)
     y0, y1, x0, x1 = tile
-    ya, yb = max(0, y0 - hy), min(grid.sizes["y"], y1 + hy)
-    xa, xb = max(0, x0 - hx), min(grid.sizes["x"], x1 + hx)
-    part = grid.isel(y=slice(ya, yb), x=slice(xa, xb)).load()
+    ya, yb = max(0, y0 - hy), min(grid.sizes[ay], y1 + hy)
+    xa, xb = max(0, x0 - hx), min(grid.sizes[ax], x1 + hx)
+    part = grid.isel({ay: slice(ya, yb), ax: slice(xa, xb)}).load()
     part.attrs = dict(grid.attrs)
     maps = predict_maps(bundle, part, warn=False)  # warnings are not thread-safe: report once, at the end
     outside = maps.attrs["extrapolated_share"] > 0
-    inner = maps.isel(y=slice(y0 - ya, y0 - ya + (y1 - y0)), x=slice(x0 - xa, x0 - xa + (x1 - x0)))
+    inner = maps.isel({ay: slice(y0 - ya, y0 - ya + (y1 - y0)), ax: slice(x0 - xa, x0 - xa + (x1 - x0))})
     return tile, inner, outside
+
+
+def _open(grid_path: str, z_domain: str | None):
+    return read_seismic(grid_path, lazy=True, z_domain=z_domain)
 
 
 def predict_to_zarr(bundle_dir, grid_path, out, tile: int = DEFAULT_TILE, threads: int | None = None,
                     workers: int | None = None, scheduler: str | None = None, overwrite: bool = False,
-                    memory_limit: float | None = None) -> Path:
-    """Predict every target of the bundle over a (possibly larger-than-memory) grid into ``out`` (.zarr)."""
-    folder, grid_path, out = str(Path(bundle_dir).resolve()), str(Path(grid_path).resolve()), Path(out)
+                    memory_limit: float | None = None, z_domain: str | None = None,
+                    segy_name: str = "amplitude") -> Path:
+    """Predict every target of the bundle over a (possibly larger-than-memory) grid or volume
+    into ``out`` (.zarr).  Volume tiles are ``tile`` x ``tile`` traces, each with all its samples.
+
+    A SEG-Y input is first copied into a temporary Zarr store beside ``out`` (SEG-Y has no
+    tiles to read by), so it must fit in memory once; give NetCDF or Zarr for larger volumes.
+    """
+    out = Path(out)
     if out.suffix.lower() != ".zarr":
         raise InputError(f"{out}: tiled maps are written as a Zarr store; name it *.zarr")
     if tile < 8:
         raise InputError(f"tile size {tile} is too small; use 64 or more nodes a side")
+    if Path(grid_path).suffix.lower() in SEGY_SUFFIXES:
+        import tempfile
+
+        from .io.netcdf import write_zarr
+
+        check_target(out, overwrite)
+        volume = read_volume(grid_path, z_domain=z_domain, name=segy_name)
+        with tempfile.TemporaryDirectory(prefix=f".{out.name}.input.", dir=out.parent) as scratch:
+            copy = write_zarr(volume, Path(scratch) / "input.zarr")
+            del volume
+            return predict_to_zarr(bundle_dir, copy, out, tile, threads, workers, scheduler, overwrite,
+                                   memory_limit, z_domain)
+    folder, grid_path = str(Path(bundle_dir).resolve()), str(Path(grid_path).resolve())
     bundle = _bundle(folder)
-    grid = read_grid(grid_path, lazy=True)
-    dx, dy = spacing(grid)
-    hy, hx = halo_cells(bundle.feature_spec, dx, dy)
-    need = (tile + 2 * hy) * (tile + 2 * hx) * BYTES_PER_NODE
+    grid = _open(grid_path, z_domain)
+    from .predict import check_space
+
+    check_space(bundle.card, grid)
+    ay, ax = lateral_axes(grid)
+    hy, hx = halo(grid, bundle.feature_spec)
+    depth = grid.sizes.get("z", 1)
+    need = (tile + 2 * hy) * (tile + 2 * hx) * depth * BYTES_PER_NODE
     limit = memory_limit or _available_memory()
     if limit and need * max(threads or 1, 1) > limit:
-        raise InputError(f"tiles of {tile} nodes (plus a halo of {hy} x {hx}) need about {need / 1e9:.1f} GB each, "
+        what = f"{tile} x {tile} traces of {depth} samples" if depth > 1 else f"{tile} nodes"
+        raise InputError(f"tiles of {what} (plus a halo of {hy} x {hx}) need about {need / 1e9:.1f} GB each, "
                          f"more than the {limit / 1e9:.1f} GB available; use a smaller --tile")
-    ny, nx = grid.sizes["y"], grid.sizes["x"]
+    ny, nx = grid.sizes[ay], grid.sizes[ax]
     all_tiles = tiles(ny, nx, tile)
     with atomic_folder(out, overwrite=overwrite) as tmp:
-        first = predict_tile(folder, grid_path, all_tiles[0])[1]
+        first = predict_tile(folder, grid_path, all_tiles[0], z_domain)[1]
         _template(first, grid, tile).to_zarr(tmp, compute=False, mode="w", zarr_format=2)
         extrapolated = 0
         for (y0, y1, x0, x1), part, outside in progress(_run(folder, grid_path, all_tiles, threads, workers,
-                                                             scheduler), "tiles", total=len(all_tiles)):
+                                                             scheduler, z_domain), "tiles", total=len(all_tiles)):
             extrapolated += outside
-            part = part.drop_vars(["x", "y"])
+            part = part.drop_vars(list(part.coords))
             part.attrs = {}
             for var in part.data_vars:
                 part[var].attrs = {}
-            part.to_zarr(tmp, region={"y": slice(y0, y1), "x": slice(x0, x1)}, zarr_format=2)
+            region = {ay: slice(y0, y1), ax: slice(x0, x1)}
+            if depth > 1:
+                region["z"] = slice(0, depth)
+            part.to_zarr(tmp, region=region, zarr_format=2)
     if extrapolated:
         warnings.warn(f"{extrapolated} of {len(all_tiles)} tiles hold nodes with feature values outside the range "
                       "seen at the wells; predictions there are extrapolations", PredictorWarning, stacklevel=2)
     return out
 
 
-def _run(folder, grid_path, all_tiles, threads, workers, scheduler):
+def _run(folder, grid_path, all_tiles, threads, workers, scheduler, z_domain=None):
     """Yield (tile, interior maps, extrapolated) as tiles finish, on local threads or a Dask cluster."""
     if workers or scheduler:
         from dask.distributed import Client, LocalCluster, as_completed
@@ -110,8 +158,8 @@ def _run(folder, grid_path, all_tiles, threads, workers, scheduler):
                                                       dashboard_address=None)
         client = Client(scheduler or cluster)
         try:
-            futures = client.map(predict_tile, [folder] * len(all_tiles), [grid_path] * len(all_tiles), all_tiles,
-                                 pure=False)
+            n = len(all_tiles)
+            futures = client.map(predict_tile, [folder] * n, [grid_path] * n, all_tiles, [z_domain] * n, pure=False)
             for future in as_completed(futures):
                 yield future.result()
         finally:
@@ -124,7 +172,7 @@ def _run(folder, grid_path, all_tiles, threads, workers, scheduler):
         # a bounded window of tiles in flight keeps memory flat however many tiles there are
         pending = deque()
         for t in all_tiles:
-            pending.append(pool.submit(predict_tile, folder, grid_path, t))
+            pending.append(pool.submit(predict_tile, folder, grid_path, t, z_domain))
             if len(pending) >= 2 * n:
                 yield pending.popleft().result()
         while pending:
@@ -135,17 +183,23 @@ def _template(first: xr.Dataset, grid: xr.Dataset, tile: int) -> xr.Dataset:
     """A lazy dataset of the full output's shape, dtypes and attributes, for the store's layout."""
     import dask.array as da
 
-    ny, nx = grid.sizes["y"], grid.sizes["x"]
+    dims = first[next(iter(first.data_vars))].dims
+    shape = tuple(grid.sizes[d] for d in dims)
+    chunks = tuple(tile if d in lateral_axes(grid) else grid.sizes[d] for d in dims)
     data = {}
     for var in first.data_vars:
         v = first[var]
         fill = v.attrs.get("_FillValue", np.nan)
-        data[var] = xr.Variable(("y", "x"), da.full((ny, nx), fill, dtype=v.dtype, chunks=(tile, tile)),
+        data[var] = xr.Variable(dims, da.full(shape, fill, dtype=v.dtype, chunks=chunks),
                                 attrs={k: a for k, a in v.attrs.items() if k != "_FillValue"})
         if "_FillValue" in v.attrs:
             data[var].encoding["_FillValue"] = v.attrs["_FillValue"]
-    out = xr.Dataset(data, coords={"x": grid.x.to_numpy(), "y": grid.y.to_numpy()})
+    coords = {c: (grid.coords[c].dims, grid.coords[c].to_numpy()) for c in grid.coords
+              if set(grid.coords[c].dims) <= set(dims)}
+    out = xr.Dataset(data, coords=coords)
     out.attrs = {k: v for k, v in first.attrs.items() if isinstance(v, str)}
+    if "affine" in first.attrs:
+        out.attrs["affine"] = [float(a) for a in first.attrs["affine"]]
     return out
 
 

@@ -17,10 +17,22 @@ from .errors import PredictorError, PredictorWarning
 
 def _wells_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--wells", required=True, help="wells table (CSV or Parquet): x, y, facies, porosity, ...")
-    p.add_argument("--grid", required=True, help="seismic attribute grid (CSV long table or NetCDF)")
+    p.add_argument("--grid", required=True, help="seismic attribute map (CSV long table, NetCDF, Zarr) or volume "
+                   "(SEG-Y, or NetCDF/Zarr with a z dimension)")
     p.add_argument("--x-column", help="name of the x (easting) column, when not found automatically")
     p.add_argument("--y-column", help="name of the y (northing) column, when not found automatically")
+    p.add_argument("--z-column", help="(volumes) name of the wells' depth or time column, when not found "
+                   "automatically (z, depth, tvd, tvdss, twt, time)")
+    _volume_options(p)
     p.add_argument("--porosity-percent", action="store_true", help="porosity is given in percent: divide by 100")
+
+
+def _volume_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--z-domain", choices=["depth", "time"],
+                   help="(volumes) the volume's sample axis is depth (m) or two-way time (ms), when the file does "
+                   "not say (SEG-Y)")
+    p.add_argument("--segy-name", default="amplitude",
+                   help="(SEG-Y) name of the attribute the file holds, as the model knows it (default amplitude)")
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -47,6 +59,10 @@ def build_parser() -> argparse.ArgumentParser:
     tr.add_argument("--context-radius", action="append", type=float, default=[],
                     help="add smoothed and local-contrast features at this radius in metres (repeatable)")
     tr.add_argument("--gradient", action="store_true", help="add the gradient magnitude of each attribute")
+    tr.add_argument("--vertical-radius", action="append", type=float, default=[],
+                    help="(volumes) add smoothed and contrast features along z at this radius in z units "
+                    "(m or ms; repeatable)")
+    tr.add_argument("--z-trend", action="store_true", help="(volumes) add z itself as a feature (compaction trend)")
     tr.add_argument("--location", action="store_true",
                     help="add coordinate features (off by default: they let a model memorise the wells)")
     tr.add_argument("--folds", type=int, default=5, help="number of spatial CV folds (default 5)")
@@ -72,9 +88,11 @@ def build_parser() -> argparse.ArgumentParser:
 
     pr = sub.add_parser("predict", help="map every target of a bundle on a grid (CSV or NetCDF by extension)")
     pr.add_argument("bundle", help="bundle folder written by `predictor train`")
-    pr.add_argument("--grid", required=True, help="grid with the attributes the bundle was trained on")
+    pr.add_argument("--grid", required=True, help="map or volume with the attributes the bundle was trained on")
+    _volume_options(pr)
     pr.add_argument("--out", required=True, help="maps file: .csv, .nc (CF NetCDF), .tif (GeoTIFF), or .zarr "
-                    "(tile by tile with bounded memory, for grids larger than memory)")
+                    "(tile by tile with bounded memory, for grids larger than memory); volumes: .csv, .nc, .zarr, "
+                    ".sgy (one SEG-Y file per output variable)")
     pr.add_argument("--tile", type=int, default=512, help="with .zarr: tile side in nodes (default 512)")
     pr.add_argument("--threads", type=int, help="with .zarr: local threads (default: all cores)")
     pr.add_argument("--workers", type=int, help="with .zarr: start a local Dask cluster of this many workers")
@@ -105,7 +123,8 @@ def _cmd_qc(args) -> int:
     from .checks import check_files
 
     check = check_files(args.wells, args.grid, args.json, args.figures, args.porosity_percent,
-                        args.x_column, args.y_column, args.duplicate_distance)
+                        args.x_column, args.y_column, args.duplicate_distance, z=args.z_column,
+                        z_domain=args.z_domain, segy_name=args.segy_name)
     for line in check.qc.lines():
         print(line)
     d = check.declustering
@@ -130,8 +149,11 @@ def _cmd_train(args) -> int:
                                   block_size=args.block_size, block_angle=args.block_angle, cv=args.cv,
                                   declustering=args.declustering, monotone=args.monotone, well_ties=args.well_ties,
                                   interval_spread=args.interval_spread, drop_outside=args.drop_outside,
-                                  seed=args.seed, n_threads=args.threads, candidates=args.candidate, porosity_percent=args.porosity_percent,
-                                  x=args.x_column, y=args.y_column, overwrite=args.overwrite)
+                                  seed=args.seed, n_threads=args.threads, candidates=args.candidate,
+                                  porosity_percent=args.porosity_percent, x=args.x_column, y=args.y_column,
+                                  z=args.z_column, z_domain=args.z_domain, segy_name=args.segy_name,
+                                  vertical_radii=args.vertical_radius, z_trend=args.z_trend,
+                                  overwrite=args.overwrite)
     from .workflow import leaderboard_lines
 
     for line in leaderboard_lines(trained):
@@ -149,9 +171,11 @@ def _cmd_predict(args) -> int:
         from .chunked import predict_to_zarr
 
         path = predict_to_zarr(args.bundle, args.grid, args.out, tile=args.tile, threads=args.threads,
-                               workers=args.workers, scheduler=args.scheduler, overwrite=args.overwrite)
+                               workers=args.workers, scheduler=args.scheduler, overwrite=args.overwrite,
+                               z_domain=args.z_domain, segy_name=args.segy_name)
     else:
-        path = predict_files(args.bundle, args.grid, args.out, overwrite=args.overwrite, crs=args.crs)
+        path = predict_files(args.bundle, args.grid, args.out, overwrite=args.overwrite, crs=args.crs,
+                             z_domain=args.z_domain, segy_name=args.segy_name)
     print(f"maps: {path}")
     return 0
 

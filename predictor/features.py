@@ -15,6 +15,15 @@ from scipy.ndimage import gaussian_filter
 
 from .errors import InputError
 from .grid import sample_at, spacing
+from .volume import (
+    fractional_index,
+    is_volume,
+    lateral_spacing,
+    locate_samples,
+    report_unsampled,
+    values_at,
+    z_step,
+)
 
 
 @dataclass
@@ -29,6 +38,9 @@ class FeatureSpec:
     gradient : add the gradient magnitude of each attribute
     location : add coordinates (x, y and coordinates rotated by ``rotation`` degrees); off by
         default because coordinates let a model memorise where the wells are
+    vertical_radii : (volumes) smoothing radii along z, in z units (m or ms): a smoothed
+        attribute and its contrast per radius, for the layering around each sample
+    z_coordinate : (volumes) add z itself, for a compaction or depth trend
     """
 
     attributes: list[str]
@@ -36,6 +48,8 @@ class FeatureSpec:
     gradient: bool = False
     location: bool = False
     rotation: float = 45.0
+    vertical_radii: list[float] = field(default_factory=list)
+    z_coordinate: bool = False
 
     def to_dict(self) -> dict:
         return asdict(self)
@@ -57,13 +71,18 @@ def _smooth(values: np.ndarray, sigma_cells) -> np.ndarray:
 
 
 def build_features(grid: xr.Dataset, spec: FeatureSpec) -> xr.Dataset:
-    """Every feature of ``spec`` as a variable on the grid (same dims and coordinates)."""
+    """Every feature of ``spec`` as a variable on the grid or volume (same dims and coordinates)."""
     missing = [a for a in spec.attributes if a not in grid.data_vars]
     if missing:
         raise InputError(
             f"grid {grid.attrs.get('source', '')} lacks the attribute(s) {', '.join(missing)} the model needs; "
             f"it has {', '.join(map(str, grid.data_vars))}; give a grid with the same attribute names as in training"
         )
+    if is_volume(grid):
+        return _volume_features(grid, spec)
+    if spec.vertical_radii or spec.z_coordinate:
+        raise InputError(f"grid {grid.attrs.get('source', '')} is a map: vertical features need a volume "
+                         "(z, inline, crossline)")
     dx, dy = spacing(grid)
     out = {}
     for attr in spec.attributes:
@@ -87,6 +106,41 @@ def build_features(grid: xr.Dataset, spec: FeatureSpec) -> xr.Dataset:
     return ds
 
 
+def _volume_features(vol: xr.Dataset, spec: FeatureSpec) -> xr.Dataset:
+    """Features of a volume; lateral context and gradients act within each z slice, vertical
+    context along each trace."""
+    d_il, d_xl = lateral_spacing(vol)
+    dz = z_step(vol)
+    out = {}
+    for attr in spec.attributes:
+        values = vol[attr].to_numpy().astype(float)
+        out[attr] = values
+        for radius in spec.context_radii:
+            smooth = _smooth(values, (0.0, radius / d_il, radius / d_xl))
+            out[f"{attr}_smooth{radius:g}m"] = smooth
+            out[f"{attr}_contrast{radius:g}m"] = values - smooth
+        for radius in spec.vertical_radii:
+            smooth = _smooth(values, (radius / dz, 0.0, 0.0))
+            out[f"{attr}_vsmooth{radius:g}"] = smooth
+            out[f"{attr}_vcontrast{radius:g}"] = values - smooth
+        if spec.gradient:
+            gi, gj = np.gradient(values, d_il, d_xl, axis=(1, 2))
+            out[f"{attr}_gradient"] = np.hypot(gi, gj)
+    shape = tuple(vol.sizes[d] for d in ("z", "inline", "crossline"))
+    if spec.location:
+        xx = np.broadcast_to(vol.cdp_x.to_numpy(), shape)
+        yy = np.broadcast_to(vol.cdp_y.to_numpy(), shape)
+        theta = np.deg2rad(spec.rotation)
+        out["x_coord"], out["y_coord"] = xx, yy
+        out["x_rotated"] = xx * np.cos(theta) + yy * np.sin(theta)
+        out["y_rotated"] = -xx * np.sin(theta) + yy * np.cos(theta)
+    if spec.z_coordinate:
+        out["z_coord"] = np.broadcast_to(vol.z.to_numpy()[:, None, None], shape)
+    ds = xr.Dataset({k: (("z", "inline", "crossline"), v) for k, v in out.items()}, coords=vol.coords)
+    ds.attrs = dict(vol.attrs)
+    return ds
+
+
 TRUNCATE = 4.0  # scipy's default Gaussian truncation, in standard deviations
 
 
@@ -100,6 +154,7 @@ def halo_cells(spec: FeatureSpec, dx: float, dy: float) -> tuple[int, int]:
 
 
 def location_features(names) -> list[str]:
+    """Map-coordinate features (z_coord is a depth trend, not a location, and is not among them)."""
     return [n for n in names if n in ("x_coord", "y_coord", "x_rotated", "y_rotated")]
 
 
@@ -107,6 +162,49 @@ def features_at_wells(features: xr.Dataset, wells: pd.DataFrame, method: str = "
                       drop_outside: bool = False) -> tuple[pd.DataFrame, np.ndarray]:
     """Sample the feature grid at the wells: (table of shape (n_kept, n_features), kept mask)."""
     return sample_at(features, wells["x"], wells["y"], wells["well_id"], method=method, drop_outside=drop_outside)
+
+
+def features_at_samples(volume: xr.Dataset, spec: FeatureSpec, wells: pd.DataFrame, drop_outside: bool = False,
+                        wells_domain: str = "unknown") -> tuple[pd.DataFrame, np.ndarray]:
+    """Features at well samples (x, y, z) of a volume: (table of shape (n_kept, n_features), kept mask).
+
+    Features are built on a window around each well, wide enough (the tiling halo) that they
+    equal the whole volume's, so training never holds the features of a large volume at once.
+    """
+    x, y, z = (wells[c].to_numpy(float) for c in ("x", "y", "z"))
+    labels = wells["well_id"].to_numpy()
+    outside, in_z = locate_samples(volume, x, y, z, labels, wells_domain, wells.attrs.get("source", "wells"))
+    ok = ~outside & in_z
+    d_il, d_xl = lateral_spacing(volume)
+    h_il, h_xl = halo_cells(spec, d_xl, d_il)
+    fi, fj = fractional_index(volume, x, y)
+    ni, nj = volume.sizes["inline"], volume.sizes["crossline"]
+    windows = []
+    for well in pd.unique(labels[ok]):
+        rows = np.flatnonzero(ok & (labels == well))
+        i0 = max(0, int(np.floor(fi[rows].min())) - h_il - 1)
+        i1 = min(ni, int(np.ceil(fi[rows].max())) + h_il + 2)
+        j0 = max(0, int(np.floor(fj[rows].min())) - h_xl - 1)
+        j1 = min(nj, int(np.ceil(fj[rows].max())) + h_xl + 2)
+        windows.append((rows, slice(i0, i1), slice(j0, j1)))
+    whole = sum((w[1].stop - w[1].start) * (w[2].stop - w[2].start) for w in windows) >= ni * nj
+    if whole:  # the windows would cover the survey more than once: build the features once
+        windows = [(np.flatnonzero(ok), slice(0, ni), slice(0, nj))]
+    names, parts = None, []
+    gap = np.zeros(x.size, bool)
+    for rows, si, sj in windows:
+        part = volume.isel(inline=si, crossline=sj).load()
+        part.attrs = dict(volume.attrs)
+        values, holes = values_at(build_features(part, spec), x[rows], y[rows], z[rows])
+        names = list(values.columns)
+        parts.append(values.set_index(rows))
+        gap[rows] = holes
+    report_unsampled(outside, gap, labels, drop_outside, volume.attrs.get("source", ""))
+    kept = ok & ~gap
+    if names is None:
+        return pd.DataFrame(), kept
+    table = pd.concat(parts).sort_index()
+    return table.loc[np.flatnonzero(kept)].reset_index(drop=True), kept
 
 
 def feature_matrix(features: xr.Dataset, names: list[str]) -> tuple[np.ndarray, np.ndarray]:

@@ -133,6 +133,33 @@ def read_grid(path: str | Path, x: str | None = None, y: str | None = None, lazy
     return grid_from_table(read_table(path), x=x, y=y)
 
 
+def read_seismic(path: str | Path, lazy: bool = False, z_domain: str | None = None, name: str = "amplitude",
+                 x: str | None = None, y: str | None = None) -> xr.Dataset:
+    """Read a map (CSV/Parquet long table, NetCDF, Zarr) or a volume (SEG-Y, or NetCDF/Zarr with
+    a ``z`` dimension), whichever the file holds; see :mod:`predictor.volume` for volumes.
+
+    ``z_domain`` ("depth" or "time") names a volume's sample axis when the file does not;
+    ``name`` is the attribute a SEG-Y file holds.
+    """
+    from .volume import SEGY_SUFFIXES, read_volume
+
+    path = Path(path)
+    suffix = path.suffix.lower()
+    if suffix in SEGY_SUFFIXES:
+        return read_volume(path, lazy=lazy, z_domain=z_domain, name=name)
+    if suffix in (".nc", ".nc4", ".netcdf", ".cdf", ".zarr") and path.exists():
+        try:
+            with (xr.open_zarr(path) if suffix == ".zarr" else xr.open_dataset(path, engine="h5netcdf")) as peek:
+                volume = "z" in peek.dims
+        except Exception:  # unreadable: the grid reader below names the problem
+            volume = False
+        if volume:
+            return read_volume(path, lazy=lazy, z_domain=z_domain)
+    if z_domain:
+        raise InputError(f"{path}: holds a map; --z-domain applies to volumes only")
+    return read_grid(path, x=x, y=y, lazy=lazy)
+
+
 def spacing(ds: xr.Dataset) -> tuple[float, float]:
     """Node spacing (dx, dy) in coordinate units."""
     return float(ds.x[1] - ds.x[0]), float(ds.y[1] - ds.y[0])

@@ -20,6 +20,7 @@ from .errors import InputError, PredictorWarning
 from .features import build_features, feature_matrix
 from .io.atomic import atomic_file, check_target
 from .io.netcdf import write_netcdf
+from .volume import is_volume
 
 CHUNK_ROWS = 250_000
 
@@ -47,14 +48,15 @@ def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int 
     if not isinstance(bundle, Bundle):
         bundle = load_bundle(bundle)
     card = bundle.card
+    check_space(card, grid)
     features = build_features(grid, bundle.feature_spec)
     names = card["features"]["names"]
     matrix, valid = feature_matrix(features, names)
     if not valid.any():
         raise InputError(f"grid {grid.attrs.get('source', '')}: no node has every feature the model needs")
     X = pd.DataFrame(matrix, columns=names)
-    xx, yy = np.meshgrid(grid.x.to_numpy(), grid.y.to_numpy())
-    xy = np.column_stack([xx.ravel()[valid], yy.ravel()[valid]])
+    xx, yy = node_xy(grid)
+    xy = np.column_stack([xx[valid], yy[valid]])
     outside = np.zeros(len(X), bool)
     share = {}
     for name in names:
@@ -64,16 +66,17 @@ def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int 
         outside |= out
     if outside.any() and warn:
         worst = ", ".join(f"{n} {v:.1%}" for n, v in sorted(share.items(), key=lambda kv: -kv[1])[:3] if v > 0)
-        warnings.warn(f"{outside.mean():.1%} of the map nodes have feature values outside the range seen at the "
+        warnings.warn(f"{outside.mean():.1%} of the {'volume samples' if is_volume(grid) else 'map nodes'} have feature values outside the range seen at the "
                       f"wells (most: {worst}); predictions there are extrapolations", PredictorWarning, stacklevel=2)
-    shape = (grid.sizes["y"], grid.sizes["x"])
+    dims = features[names[0]].dims
+    shape = features[names[0]].shape
 
     def on_grid(values) -> np.ndarray:
         full = np.full(valid.size, np.nan)
         full[valid] = values
         return full.reshape(shape)
 
-    out = xr.Dataset(coords={"x": grid.x, "y": grid.y})
+    out = xr.Dataset(coords={c: grid.coords[c] for c in grid.coords if set(grid.coords[c].dims) <= set(dims)})
     for target, info in card["targets"].items():
         model = bundle.models[target]
         raw = _predict_chunks(model, X, xy, chunk_rows)
@@ -82,7 +85,7 @@ def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int 
         if aoa is not None:
             flags = np.full(valid.size, -1, dtype=np.int8)
             flags[valid] = (aoa.index(X) <= aoa.threshold).astype(np.int8)
-            applicable = xr.DataArray(flags.reshape(shape), dims=("y", "x"), attrs={
+            applicable = xr.DataArray(flags.reshape(shape), dims=dims, attrs={
                 "long_name": f"inside the area of applicability of the {target} model (1) or not (0)",
                 "flag_values": np.array([0, 1], dtype=np.int8), "_FillValue": np.int8(-1),
                 "comment": "Meyer & Pebesma (2021) dissimilarity index against the training wells"})
@@ -90,12 +93,12 @@ def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int 
             classes = info["classes"]
             codes = np.full(valid.size, -1, dtype=np.int16)
             codes[valid] = np.argmax(raw, axis=1)
-            out[target] = (("y", "x"), codes.reshape(shape))
+            out[target] = (dims, codes.reshape(shape))
             out[target].attrs.update(flag_values=np.arange(len(classes), dtype=np.int16),
                                      flag_meanings=" ".join(c.replace(" ", "_") for c in classes),
                                      _FillValue=np.int16(-1), long_name=f"most probable {target}")
             for i, cls in enumerate(classes):
-                out[f"{target}_prob_{cls}"] = (("y", "x"), on_grid(raw[:, i]))
+                out[f"{target}_prob_{cls}"] = (dims, on_grid(raw[:, i]))
                 out[f"{target}_prob_{cls}"].attrs.update(units="1", long_name=f"probability of {target} {cls}")
             if applicable is not None:
                 out[f"{target}_applicable"] = applicable
@@ -107,7 +110,7 @@ def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int 
         units = "mD" if target == "permeability" else ("1" if target == "porosity" else "")
         for suffix, values, label in (("", raw, "median (q50)"), ("_q10", q10, "10th percentile (q10)"),
                                       ("_q90", q90, "90th percentile (q90)")):
-            out[f"{target}{suffix}"] = (("y", "x"), on_grid(back(values)))
+            out[f"{target}{suffix}"] = (dims, on_grid(back(values)))
             out[f"{target}{suffix}"].attrs.update(units=units, long_name=f"{target} {label}")
         if applicable is not None:
             out[f"{target}_applicable"] = applicable
@@ -115,13 +118,52 @@ def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int 
                      caution="a predicted map is a model, not a measurement",
                      percentiles="q10/q90 are non-exceedance percentiles",
                      extrapolated_share=float(outside.mean()))
+    for key in ("affine", "z_domain", "crs_wkt"):
+        if key in grid.attrs:
+            out.attrs[key] = grid.attrs[key]
     return out
 
 
+def check_space(card: dict, grid: xr.Dataset) -> None:
+    """A map model predicts maps and a volume model volumes, in the z domain it was trained in."""
+    space = card.get("space", {"kind": "map"})
+    source = grid.attrs.get("source", "")
+    if space["kind"] == "volume" and not is_volume(grid):
+        raise InputError(f"{source}: this model was trained on a volume; give a volume (z, inline, crossline)")
+    if space["kind"] == "map" and is_volume(grid):
+        raise InputError(f"{source}: this model was trained on a map; give a map (y, x), or train on the volume")
+    if space["kind"] == "volume":
+        trained, given = space.get("z_domain", "unknown"), grid.attrs.get("z_domain", "unknown")
+        if "unknown" not in (trained, given) and trained != given:
+            raise InputError(f"{source}: the volume is in {given} but the model was trained in {trained}; "
+                             "give a volume in the same z domain")
+        lo, hi = space["z_range"]
+        z = grid.z.to_numpy()
+        if z[-1] < lo or z[0] > hi:
+            raise InputError(f"{source}: the volume's sample axis ({z[0]:g} to {z[-1]:g}) does not overlap the z of "
+                             f"the training wells ({lo:g} to {hi:g}); check the volume's z domain and units")
+
+
+def node_xy(grid: xr.Dataset) -> tuple[np.ndarray, np.ndarray]:
+    """Map coordinates of every node of a grid or volume, flattened in the variables' order."""
+    if is_volume(grid):
+        shape = (grid.sizes["z"], grid.sizes["inline"], grid.sizes["crossline"])
+        return (np.broadcast_to(grid.cdp_x.to_numpy(), shape).ravel(),
+                np.broadcast_to(grid.cdp_y.to_numpy(), shape).ravel())
+    xx, yy = np.meshgrid(grid.x.to_numpy(), grid.y.to_numpy())
+    return xx.ravel(), yy.ravel()
+
+
 def maps_table(maps: xr.Dataset) -> pd.DataFrame:
-    """Long table of the maps: x, y, then per target its columns; classes as labels."""
-    xx, yy = np.meshgrid(maps.x.to_numpy(), maps.y.to_numpy())
-    table = {"x": xx.ravel(), "y": yy.ravel()}
+    """Long table of the maps: x, y (volumes: inline, crossline, z, x, y), then per target its
+    columns; classes as labels."""
+    xx, yy = node_xy(maps)
+    table = {}
+    if is_volume(maps):
+        zz, ii, jj = np.meshgrid(maps.z.to_numpy(), maps.inline.to_numpy(), maps.crossline.to_numpy(),
+                                 indexing="ij")
+        table = {"inline": ii.ravel(), "crossline": jj.ravel(), "z": zz.ravel()}
+    table.update(x=xx, y=yy)
     for var in maps.data_vars:
         values = maps[var].to_numpy().ravel()
         meanings = maps[var].attrs.get("flag_meanings")
@@ -134,20 +176,41 @@ def maps_table(maps: xr.Dataset) -> pd.DataFrame:
     return pd.DataFrame(table)
 
 
-def write_maps(maps: xr.Dataset, path: str | Path, overwrite: bool = False, crs_wkt: str | None = None) -> Path:
-    """Write maps to CSV (.csv), CF NetCDF (.nc) or GeoTIFF (.tif), atomically."""
+def check_format(path: str | Path, volume: bool) -> Path:
+    """The output path, if its extension names a format maps (or volumes) can be written in."""
     path = Path(path)
     suffix = path.suffix.lower()
-    if suffix not in (".csv", ".nc", ".tif", ".tiff"):
-        raise InputError(f"{path}: unknown map format {suffix!r}; use .csv, .nc or .tif")
+    formats = (".csv", ".nc", ".zarr", ".sgy", ".segy") if volume else (".csv", ".nc", ".tif", ".tiff")
+    if suffix not in formats:
+        what = "volume" if volume else "map"
+        hint = " (GeoTIFF holds maps, not volumes)" if suffix in (".tif", ".tiff") else ""
+        raise InputError(f"{path}: unknown {what} format {suffix!r}{hint}; use {', '.join(formats)}")
+    return path
+
+
+def write_maps(maps: xr.Dataset, path: str | Path, overwrite: bool = False, crs_wkt: str | None = None) -> Path:
+    """Write maps to CSV (.csv), CF NetCDF (.nc) or GeoTIFF (.tif), atomically; volumes to
+    CSV, NetCDF, Zarr (.zarr) or SEG-Y (.sgy: one file per variable, ``<stem>_<variable>.sgy``)."""
+    path = check_format(path, is_volume(maps))
+    suffix = path.suffix.lower()
+    volume = is_volume(maps)
     check_target(path, overwrite)
     if suffix in (".tif", ".tiff"):
         from .io.geotiff import write_geotiff
 
         return write_geotiff(maps, path, crs_wkt, overwrite=overwrite)
+    if suffix in (".sgy", ".segy"):
+        from .io.segy import write_segy_set
+
+        return write_segy_set(maps, path, overwrite=overwrite)
+    if suffix == ".zarr":
+        from .io.netcdf import write_zarr
+
+        return write_zarr(maps, path, overwrite=overwrite, crs_wkt=crs_wkt)
     if suffix == ".csv":
         table = maps_table(maps)
-        for col in table.columns[2:]:  # about 6 significant digits; coordinates are kept exact
+        n_coords = 5 if volume else 2
+        for col in table.columns[n_coords:]:  # about 6 significant digits; coordinates are kept exact
             if pd.api.types.is_float_dtype(table[col]):
                 top = np.nanmax(np.abs(table[col].to_numpy())) if table[col].notna().any() else 1.0
                 table[col] = table[col].round(max(0, 6 - int(np.ceil(np.log10(max(top, 1e-12))))))

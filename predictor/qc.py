@@ -19,6 +19,7 @@ from scipy.spatial import cKDTree
 
 from .errors import InputError, PredictorWarning, list_rows
 from .grid import sample_at
+from .volume import is_volume, sample_volume, wells_z_domain
 
 Severity = Literal["error", "warning", "note"]
 POSITIVE_HINTS = ("imped", "velocity", "vp", "vs", "density", "rho")
@@ -164,6 +165,19 @@ def duplicate_findings(wells: pd.DataFrame, tolerance: float = 1.0) -> list[Find
     return found
 
 
+def sample_duplicate_findings(wells: pd.DataFrame, tolerance: float = 1.0) -> list[Finding]:
+    """Wells sampled along their paths: a sample given twice (same well and z), or two wells
+    whose mean positions are closer than ``tolerance`` metres."""
+    found = []
+    twice = wells[wells.duplicated(["well_id", "z"], keep=False)]
+    if len(twice):
+        names = [f"{w} at z {z:g}" for w, z in twice[["well_id", "z"]].drop_duplicates().itertuples(index=False)]
+        found.append(Finding("warning", "duplicates", "well_id,z", f"samples given twice: {list_rows(names)}; "
+                             "keep one row per well and z", names))
+    heads = wells.groupby("well_id", sort=False)[["x", "y"]].mean()
+    return found + [f for f in duplicate_findings(heads.reset_index(), tolerance) if f.column == "x,y"]
+
+
 def outlier_findings(wells: pd.DataFrame, columns: list[str], facies: str | None = "facies",
                      k: float = 1.5) -> list[Finding]:
     """Values outside the Tukey fences of their own facies (flagged, not removed)."""
@@ -181,6 +195,8 @@ def outlier_findings(wells: pd.DataFrame, columns: list[str], facies: str | None
             out = (v < lo) | (v > hi)
             if out.any():
                 names = list(frame["well_id"].astype(str).to_numpy()[out])
+                if "z" in frame:  # samples along wells: say where along the well
+                    names = [f"{n} at z {z:g}" for n, z in zip(names, frame["z"].to_numpy()[out], strict=True)]
                 scale = " (log10)" if col == "permeability" else ""
                 found.append(Finding("warning", "outliers", col,
                                      f"{col}{scale} outside the Tukey fences [{lo:.4g}, {hi:.4g}] of facies "
@@ -256,7 +272,9 @@ def run_qc(wells: pd.DataFrame, grid: xr.Dataset, tolerance: float = 1.0) -> QCR
     """All checks on a wells table and its seismic grid."""
     source = wells.attrs.get("source", "wells")
     columns = numeric_properties(wells)
-    findings = physical_findings(wells, source) + grid_findings(grid) + duplicate_findings(wells, tolerance)
+    volume = is_volume(grid)
+    duplicates = sample_duplicate_findings(wells, tolerance) if volume else duplicate_findings(wells, tolerance)
+    findings = physical_findings(wells, source) + grid_findings(grid) + duplicates
     findings += outlier_findings(wells, columns)
     if "facies" in wells:
         counts = wells["facies"].dropna().astype(str).value_counts()
@@ -270,7 +288,11 @@ def run_qc(wells: pd.DataFrame, grid: xr.Dataset, tolerance: float = 1.0) -> QCR
                                     "spatial CV cannot score them reliably"))
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", PredictorWarning)
-        sampled, _ = sample_at(grid, wells["x"], wells["y"], wells["well_id"], drop_outside=True)
+        if volume:
+            sampled, _ = sample_volume(grid, wells["x"], wells["y"], wells["z"], wells["well_id"], drop_outside=True,
+                                       wells_domain=wells_z_domain(wells))
+        else:
+            sampled, _ = sample_at(grid, wells["x"], wells["y"], wells["well_id"], drop_outside=True)
     findings += [Finding("warning", "wells vs grid", None, str(w.message)) for w in caught]
     bias = {var: bias_test(sampled[var], grid[var].to_numpy().ravel(), var) for var in grid.data_vars}
     return QCReport(findings, summarise(wells, columns), bias, wells.attrs.get("columns_taken", {}))

@@ -87,25 +87,36 @@ class BlockKFold(BaseCrossValidator):
 
 
 class BufferedLeaveOneOut(BaseCrossValidator):
-    """Leave one well out, and drop from training every well within ``radius`` of it."""
+    """Leave one well out, and drop from training every well within ``radius`` of it.
 
-    def __init__(self, radius: float, coordinates=None):
+    With ``groups`` (the well of each row, for wells sampled along their path) all rows of a
+    well are held out together and the buffer is measured from every one of them.
+    """
+
+    def __init__(self, radius: float, coordinates=None, groups=None):
         if not radius >= 0:
             raise ModelError(f"radius must be >= 0, got {radius!r}")
         self.radius = radius
         self.coordinates = coordinates
+        self.groups = groups
+
+    def _units(self, n: int, groups) -> np.ndarray:
+        units = groups if groups is not None else self.groups
+        return np.arange(n) if units is None else np.asarray(units)
 
     def split(self, X, y=None, groups=None):
         coords = _coordinates(self, X, len(X))
+        units = self._units(len(coords), groups)
         tree = cKDTree(coords)
         everyone = np.arange(len(coords))
-        for i in everyone:
-            near = tree.query_ball_point(coords[i], self.radius)
-            train = np.setdiff1d(everyone, np.union1d(near, [i]))
-            yield train, np.array([i])
+        for unit in np.unique(units):
+            test = np.flatnonzero(units == unit)
+            near = np.unique(np.concatenate([tree.query_ball_point(coords[i], self.radius) for i in test]))
+            train = np.setdiff1d(everyone, np.union1d(near, test))
+            yield train, test
 
     def get_n_splits(self, X=None, y=None, groups=None) -> int:
-        return len(X) if X is not None else 0
+        return 0 if X is None else np.unique(self._units(len(X), groups)).size
 
 
 def regression_scores(y, pred, weights=None) -> dict[str, float]:

@@ -187,3 +187,158 @@ def demo_files(folder, spec: FieldSpec | None = None) -> dict[str, str]:
     write_netcdf(seismic, paths["seismic.nc"])
     write_netcdf(truth, paths["truth.nc"])
     return {k: str(v) for k, v in paths.items()}
+
+
+@dataclass
+class VolumeSpec:
+    """A synthetic 3-D field: the Tarnwick lower sands, in depth, on a rotated survey."""
+
+    seed: int = 11
+    n_inlines: int = 48
+    n_crosslines: int = 56
+    n_samples: int = 60
+    trace_spacing: float = 25.0
+    z_step: float = 4.0  # metres
+    z0: float = 2100.0  # depth of the first sample (m)
+    rotation: float = 30.0  # degrees from east of the crossline direction
+    x0: float = 512_000.0
+    y0: float = 7_204_000.0
+    first_inline: int = 1001
+    first_crossline: int = 2001
+    sand_fraction: float = 0.3
+    lateral_correlation: float = 350.0  # metres
+    vertical_correlation: float = 14.0  # metres
+    compaction: float = 8e-5  # porosity lost per metre of depth
+    n_preferential: int = 24
+    drilling_strength: float = 1.5
+    regular_pattern: tuple[int, int] = (3, 3)
+    deviated_share: float = 0.3  # share of wells that drift sideways with depth
+    seismic_blur: tuple[float, float] = (1.5, 1.0)  # vertical, lateral blur of the impedance, in samples/traces
+    seismic_noise: float = 0.03
+
+
+def _field3d(rng, shape, sigma) -> np.ndarray:
+    field = gaussian_filter(rng.standard_normal(shape), sigma=sigma, mode="reflect")
+    return (field - field.mean()) / field.std()
+
+
+def make_volume_field(spec: VolumeSpec | None = None) -> tuple[xr.Dataset, xr.Dataset, pd.DataFrame]:
+    """Build one 3-D field.
+
+    Returns
+    -------
+    seismic : volume (z, inline, crossline) with the observed ``impedance``
+    truth : volume with ``facies`` codes, ``porosity``, ``permeability`` (mD)
+    wells : DataFrame, one row per well sample: well_id, x, y, depth, facies, porosity,
+        permeability (samples every ``z_step`` along each well, like upscaled logs)
+    """
+    spec = spec or VolumeSpec()
+    rng = np.random.default_rng(spec.seed)
+    shape = (spec.n_samples, spec.n_inlines, spec.n_crosslines)
+    lateral = spec.lateral_correlation / spec.trace_spacing / 2.0
+    vertical = spec.vertical_correlation / spec.z_step / 2.0
+    body = _field3d(rng, shape, (vertical, lateral, lateral))
+    codes = np.zeros(shape, np.int8)
+    codes[body > np.quantile(body, 1 - spec.sand_fraction - 0.15)] = 1
+    codes[body > np.quantile(body, 1 - spec.sand_fraction)] = 2
+    texture = _field3d(rng, shape, (vertical / 2, lateral / 2, lateral / 2))
+    z = spec.z0 + spec.z_step * np.arange(spec.n_samples)
+    porosity = np.zeros(shape)
+    v_matrix, rho_matrix = np.zeros(shape), np.zeros(shape)
+    for code, name in enumerate(FACIES):
+        mean, sd, vm, rm = ROCK[name]
+        here = codes == code
+        porosity[here] = mean + sd * texture[here]
+        v_matrix[here], rho_matrix[here] = vm, rm
+    porosity = np.clip(porosity - spec.compaction * (z - spec.z0)[:, None, None], 0.01, 0.35)
+    impedance_true = raymer_velocity(porosity, v_matrix, V_BRINE) * mass_balance_density(porosity, rho_matrix,
+                                                                                          RHO_BRINE)
+    vb, lb = spec.seismic_blur
+    blurred = gaussian_filter(impedance_true, sigma=(vb, lb, lb), mode="nearest")
+    noise = gaussian_filter(rng.standard_normal(shape), sigma=(1.0, 1.0, 1.0))
+    impedance = blurred + noise / noise.std() * spec.seismic_noise * impedance_true.mean()
+    log_perm = -1.3 + 13.0 * porosity - 0.4 * (codes == 0) + 0.25 * _field3d(rng, shape, (1.0, 1.0, 1.0))
+    permeability = 10.0 ** log_perm
+
+    theta = np.deg2rad(spec.rotation)
+    s = spec.trace_spacing
+    dxx, dyx = s * np.cos(theta), s * np.sin(theta)  # one crossline step
+    dxi, dyi = -s * np.sin(theta), s * np.cos(theta)  # one inline step
+    il = spec.first_inline + np.arange(spec.n_inlines)
+    xl = spec.first_crossline + np.arange(spec.n_crosslines)
+    x0 = spec.x0 - dxi * il[0] - dxx * xl[0]
+    y0 = spec.y0 - dyi * il[0] - dyx * xl[0]
+    affine = [float(v) for v in (x0, dxi, dxx, y0, dyi, dyx)]
+    gi, gj = np.meshgrid(il, xl, indexing="ij")
+    coords = {"z": z, "inline": il, "crossline": xl,
+              "cdp_x": (("inline", "crossline"), x0 + dxi * gi + dxx * gj),
+              "cdp_y": (("inline", "crossline"), y0 + dyi * gi + dyx * gj)}
+    attrs = {"field": "Tarnwick lower sands (synthetic)", "generator": "predictor.synthetic.make_volume_field",
+             "spec": str(asdict(spec)), "affine": affine, "z_domain": "depth"}
+    dims = ("z", "inline", "crossline")
+    seismic = xr.Dataset({"impedance": (dims, np.round(impedance, 2))}, coords=coords, attrs=dict(attrs))
+    seismic["impedance"].attrs.update(units="m/s*g/cm3", long_name="acoustic impedance (inverted)")
+    seismic.z.attrs.update(units="m", long_name="depth")
+    truth = xr.Dataset({"facies": (dims, codes), "porosity": (dims, porosity), "permeability": (dims, permeability)},
+                       coords=coords, attrs=dict(attrs))
+    truth["facies"].attrs.update(flag_values=np.arange(len(FACIES), dtype=np.int8), flag_meanings=" ".join(FACIES))
+    wells = _drill_volume(spec, rng, porosity, codes, permeability, affine, il, xl, z)
+    return seismic, truth, wells
+
+
+def _drill_volume(spec: VolumeSpec, rng, porosity, codes, permeability, affine, il, xl, z) -> pd.DataFrame:
+    """Wells preferentially where the column's porosity is high, plus a regular pattern; a share
+    of them deviated; one sample per ``z_step`` along each well with a little measurement noise."""
+    column = gaussian_filter(porosity.mean(axis=0), sigma=2)
+    score = (column - column.mean()) / column.std()
+    prob = np.exp(spec.drilling_strength * score).ravel()
+    picks = rng.choice(prob.size, size=spec.n_preferential, replace=False, p=prob / prob.sum())
+    ii, jj = (a.astype(float) for a in np.unravel_index(picks, column.shape))
+    ri, rj = spec.regular_pattern
+    gi, gj = (a.ravel() for a in np.meshgrid(np.linspace(0, il.size - 1, ri + 2)[1:-1],
+                                             np.linspace(0, xl.size - 1, rj + 2)[1:-1], indexing="ij"))
+    ii, jj = np.concatenate([ii, gi]), np.concatenate([jj, gj])
+    x0, dxi, dxx, y0, dyi, dyx = affine
+    rows = []
+    n = z.size
+    for w, (i, j) in enumerate(zip(ii, jj, strict=True)):
+        # the head, and a drift (in traces over the whole interval) for the deviated ones
+        drift = rng.uniform(-6, 6, 2) if rng.uniform() < spec.deviated_share else np.zeros(2)
+        t = np.linspace(0, 1, n)
+        fi = np.clip(i + rng.uniform(-0.4, 0.4) + drift[0] * t, 0, il.size - 1)
+        fj = np.clip(j + rng.uniform(-0.4, 0.4) + drift[1] * t, 0, xl.size - 1)
+        lines_i, lines_j = il[0] + fi, xl[0] + fj
+        ni, nj = np.round(fi).astype(int), np.round(fj).astype(int)
+        k = np.arange(n)
+        rows.append(pd.DataFrame({
+            "well_id": f"TL-{w + 1:02d}",
+            "x": np.round(x0 + dxi * lines_i + dxx * lines_j, 1),
+            "y": np.round(y0 + dyi * lines_i + dyx * lines_j, 1),
+            "depth": z,
+            "facies": [FACIES[c] for c in codes[k, ni, nj]],
+            "porosity": np.round(np.clip(porosity[k, ni, nj] + rng.normal(0, 0.005, n), 0.005, 0.4), 4),
+            "permeability": np.round(permeability[k, ni, nj] * 10 ** rng.normal(0, 0.05, n), 3),
+        }))
+    return pd.concat(rows, ignore_index=True)
+
+
+def volume_demo_files(folder, spec: VolumeSpec | None = None) -> dict[str, str]:
+    """Write a 3-D scenario into ``folder``: well_samples.csv (one row per sample, a ``depth``
+    column), impedance.sgy (SEG-Y on the rotated survey), impedance.nc and truth_volume.nc."""
+    from pathlib import Path
+
+    from .io.atomic import atomic_file
+    from .io.netcdf import write_netcdf
+    from .io.segy import write_segy
+
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    seismic, truth, wells = make_volume_field(spec)
+    paths = {name: folder / name for name in ("well_samples.csv", "impedance.sgy", "impedance.nc",
+                                              "truth_volume.nc")}
+    with atomic_file(paths["well_samples.csv"]) as tmp:
+        wells.to_csv(tmp, index=False, lineterminator="\n")
+    write_segy(seismic, "impedance", paths["impedance.sgy"])
+    write_netcdf(seismic, paths["impedance.nc"])
+    write_netcdf(truth, paths["truth_volume.nc"])
+    return {k: str(v) for k, v in paths.items()}

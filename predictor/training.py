@@ -15,7 +15,7 @@ import pandas as pd
 import xarray as xr
 from sklearn.model_selection import KFold
 
-from .checks import decluster
+from .checks import decluster, decluster_samples
 from .declustering import declustered_statistics
 from .errors import InputError, ModelError, PredictorWarning
 from .explain import (
@@ -26,7 +26,13 @@ from .explain import (
     importance,
     trust_warnings,
 )
-from .features import FeatureSpec, build_features, features_at_wells, location_features
+from .features import (
+    FeatureSpec,
+    build_features,
+    features_at_samples,
+    features_at_wells,
+    location_features,
+)
 from .intervals import IntervalCalibration, SpreadModel, calibrate, effective_size
 from .models import (
     Blend,
@@ -52,9 +58,11 @@ from .spatial_cv import (
     regression_scores,
 )
 from .variogram import auto_variogram
+from .volume import is_volume, wells_z_domain
 
 Task = Literal["regression", "classification"]
 BASELINES = ("linear", "logistic", "ordinary_kriging", "regression_kriging")
+MAP_ONLY = ("ordinary_kriging", "regression_kriging")  # kriging of a 2-D map; not offered for volumes
 LOG_TARGETS = ("permeability",)
 
 
@@ -109,6 +117,7 @@ class TargetModel:
     applicability: Applicability | None = None
     applicability_cv: dict = field(default_factory=dict)
     trust: dict = field(default_factory=dict)
+    units: np.ndarray | None = None  # the well of each training row (volumes: several samples per well)
 
     def refit(self, candidate: str):
         """Fit the named leaderboard candidate (a baseline, say) on all wells, for comparison maps."""
@@ -131,6 +140,7 @@ class TrainedModels:
     targets: dict[str, TargetModel]
     warnings: list[str] = field(default_factory=list)
     well_features: pd.DataFrame | None = None  # features at the kept wells, same row order as ``wells``
+    space: dict = field(default_factory=lambda: {"kind": "map"})  # map, or volume with its z domain and range
 
 
 def task_of(wells: pd.DataFrame, target: str) -> Task:
@@ -163,20 +173,36 @@ def _weights(wells: pd.DataFrame, grid: xr.Dataset, method: str) -> tuple[np.nda
     return model, nearest, cell.weights, summary
 
 
-def _block_size(data: FitData, options: TrainOptions, attrs: list[str],
-                baseline_y: np.ndarray) -> tuple[float, str, dict | None]:
-    """The fitted variogram range of the linear baseline's residuals, shrunk if too few blocks result."""
+def _volume_weights(wells: pd.DataFrame, volume: xr.Dataset, method: str):
+    """Per-sample weights from the lateral declustering of the wells (their mean positions):
+    each sample carries its well's weight, so a well counts by the thickness it samples."""
+    cell, nearest, codes = decluster_samples(wells, volume)
+    model = {"cell": cell.weights, "nearest_node": nearest, "none": np.ones(len(nearest))}[method]
+    summary = {"model_weights": method, "statistics_weights": "nearest_node", "cell": cell.summary(),
+               "per_sample": "each sample carries the lateral declustering weight of its well"}
+    head_xy = wells[["x", "y"]].groupby(codes).transform("mean").to_numpy(float)
+    return model[codes], nearest[codes], cell.weights[codes], summary, codes, head_xy
+
+
+def _block_size(data: FitData, options: TrainOptions, attrs: list[str], baseline_y: np.ndarray,
+                cv_xy: np.ndarray, units: np.ndarray) -> tuple[float, str, dict | None]:
+    """The fitted variogram range of the linear baseline's residuals, shrunk if too few blocks result.
+
+    ``cv_xy`` are the positions the blocks are cut by and ``units`` the well of each row; with
+    several samples per well (volumes) the residuals are averaged per well first.
+    """
     if options.block_size:
         size, source, vario = float(options.block_size), "given by the user", None
     else:
         linear = Linear(attrs).fit(FitData(data.X, baseline_y, data.weights, data.xy, data.groups))
-        resid = baseline_y - linear.predict(data.X)
-        model = auto_variogram(data.xy[:, 0], data.xy[:, 1], resid)
+        resid = pd.Series(baseline_y - linear.predict(data.X)).groupby(units).mean().to_numpy()
+        heads = pd.DataFrame(cv_xy).groupby(units).mean().to_numpy()
+        model = auto_variogram(heads[:, 0], heads[:, 1], resid)
         size, vario = model.range, model.to_dict()
         source = f"fitted {model.kind} variogram range of the linear baseline's residuals"
-    extent = max(np.ptp(data.xy[:, 0]), np.ptp(data.xy[:, 1]))
+    extent = max(np.ptp(cv_xy[:, 0]), np.ptp(cv_xy[:, 1]))
     shrunk = False
-    while np.unique(block_labels(data.xy[:, 0], data.xy[:, 1], size, options.block_angle)).size < 2 * options.n_splits:
+    while np.unique(block_labels(cv_xy[:, 0], cv_xy[:, 1], size, options.block_angle)).size < 2 * options.n_splits:
         size *= 0.8
         shrunk = True
         if size < extent / 100:
@@ -197,7 +223,9 @@ def cross_validate(candidate, data: FitData, splitter) -> np.ndarray:
 
 
 def _candidates(task: Task, target: str, attrs: list[str], names: list[str], wells: pd.DataFrame,
-                options: TrainOptions) -> list:
+                options: TrainOptions, volume: bool = False) -> list:
+    if volume:
+        return [c for c in _candidates(task, target, attrs, names, wells, options) if c.name not in MAP_ONLY]
     if task == "classification":
         out = [Logistic(attrs), LightGBM("classification", names)]
         if names != attrs:
@@ -222,19 +250,39 @@ def _score(task: Task, y, oof, w, classes) -> dict:
 
 
 def train(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> TrainedModels:
-    """Train, cross-validate and select a model per target."""
+    """Train, cross-validate and select a model per target.
+
+    ``grid`` is a map (y, x) with one row of ``wells`` per well, or a volume (z, inline,
+    crossline) with one row per well sample (a ``z`` column; ``well_id`` ties the samples of a
+    well together).  With a volume, CV folds hold out whole wells (never single samples of a
+    well: samples along one well are strongly alike) and the kriging candidates are not offered.
+    """
     _check_inputs(wells, grid, options)
     notes: list[str] = []
+    volume = is_volume(grid)
     spec = options.features or FeatureSpec(attributes=[str(v) for v in grid.data_vars])
-    features = build_features(grid, spec)
-    names = [str(v) for v in features.data_vars]
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", PredictorWarning)
-        X_all, kept = features_at_wells(features, wells, options.sample_method, options.drop_outside)
+        if volume:
+            if "z" not in wells:
+                raise InputError(f"{wells.attrs.get('source', 'wells')}: a volume needs wells as samples with z "
+                                 "(depth or two-way time): add a z, depth or twt column, one row per sample")
+            X_all, kept = features_at_samples(grid, spec, wells, options.drop_outside, wells_z_domain(wells))
+        else:
+            features = build_features(grid, spec)
+            X_all, kept = features_at_wells(features, wells, options.sample_method, options.drop_outside)
     notes += [str(w.message) for w in caught]
+    names = [str(c) for c in X_all.columns]
     wells = wells.loc[kept].reset_index(drop=True)
-    weights, stat_weights, cell_weights, decl = _weights(wells, grid, options.declustering)
     xy = wells[["x", "y"]].to_numpy(float)
+    if volume:
+        weights, stat_weights, cell_weights, decl, units_all, cv_xy_all = _volume_weights(wells, grid,
+                                                                                          options.declustering)
+        if options.well_ties == "always":
+            notes.append("well ties krige a map's residuals; they are not offered for volumes")
+    else:
+        weights, stat_weights, cell_weights, decl = _weights(wells, grid, options.declustering)
+        units_all, cv_xy_all = np.arange(len(wells)), xy
     ranges = {n: [float(np.nanmin(X_all[n])), float(np.nanmax(X_all[n]))] for n in names}
 
     facies_classes: list[str] = []
@@ -259,9 +307,11 @@ def train(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> Train
         has = raw.notna().to_numpy() & (raw.astype("string").str.strip() != "").fillna(False).to_numpy()
         idx = np.flatnonzero(has)
         need = 3 * options.n_splits
-        if idx.size < need:
+        units, cv_xy = units_all[idx], cv_xy_all[idx]
+        n_wells = np.unique(units).size
+        if n_wells < need:
             raise ModelError(
-                f"block CV with {options.n_splits} folds needs at least {need} wells with {target!r}; got {idx.size}; "
+                f"block CV with {options.n_splits} folds needs at least {need} wells with {target!r}; got {n_wells}; "
                 "use fewer folds (--folds) or add wells"
             )
         classes: list[str] = []
@@ -269,7 +319,7 @@ def train(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> Train
         if task == "classification":
             labels = raw.astype("string").to_numpy()[idx].astype(str)
             classes = sorted(set(labels))
-            counts = pd.Series(labels).value_counts()
+            counts = pd.DataFrame({"c": labels, "u": units}).groupby("c")["u"].nunique()
             if len(classes) < 2:
                 raise ModelError(f"target {target!r} has a single class ({classes[0]}); a classifier needs two or more")
             rare = counts[counts < 2]
@@ -294,16 +344,16 @@ def train(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> Train
                        None if facies_codes is None else facies_codes[idx], facies_classes,
                        options.seed, options.n_threads)
         attrs = list(spec.attributes)
-        block, block_source, vario = _block_size(data, options, attrs, baseline_y)
-        data.groups = block_labels(data.xy[:, 0], data.xy[:, 1], block, options.block_angle)
+        block, block_source, vario = _block_size(data, options, attrs, baseline_y, cv_xy, units)
+        data.groups = block_labels(cv_xy[:, 0], cv_xy[:, 1], block, options.block_angle)
         if options.cv == "buffered":
-            splitter = BufferedLeaveOneOut(block, coordinates=data.xy)
+            splitter = BufferedLeaveOneOut(block, coordinates=cv_xy, groups=units if volume else None)
         else:
-            splitter = BlockKFold(block, options.n_splits, options.block_angle, coordinates=data.xy)
+            splitter = BlockKFold(block, options.n_splits, options.block_angle, coordinates=cv_xy)
         random_cv = _RandomSplits(options.n_splits, options.seed)
         board = []
         oofs = {}
-        candidates = _candidates(task, target, attrs, names, wells, options)
+        candidates = _candidates(task, target, attrs, names, wells, options, volume)
         if options.candidates:
             known = [c.name for c in candidates]
             candidates = [c for c in candidates if c.name in options.candidates]
@@ -331,10 +381,10 @@ def train(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> Train
         if "blend" in oofs and best["candidate"] != "blend":
             # the blend averages the candidates and is the stable default; a single one must clearly beat it
             if not _clearly_better(_losses(y, oofs[best["candidate"]][1]), _losses(y, oofs["blend"][1]),
-                                   data.weights):
+                                   data.weights, units):
                 best = next(r for r in board if r["candidate"] == "blend")
         chosen = best["candidate"]
-        if task == "regression" and options.well_ties != "never" and not isinstance(
+        if task == "regression" and options.well_ties != "never" and not volume and not isinstance(
                 oofs[chosen][0], Kriging | RegressionKriging):
             tied = WellTies(type_copy(oofs[chosen][0]))
             oof = cross_validate(tied, data, splitter)
@@ -344,7 +394,7 @@ def train(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> Train
                    "cv_random": _score(task, y, cross_validate(tied, data, random_cv), data.weights, classes)}
             board.append(row)
             if options.well_ties == "always" or _clearly_better(_losses(y, oof), _losses(y, oofs[chosen][1]),
-                                                                data.weights):
+                                                                data.weights, units):
                 chosen = tied.name
         model, oof = oofs[chosen]
         calibration, spread_model = None, None
@@ -370,7 +420,7 @@ def train(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> Train
         aoa_cv = _inside_outside(task, y, oof, data.weights, classes, di <= aoa.threshold)
         warned, facts = trust_warnings(target, task, imp, data.X[names], values[..., :-1] if values.ndim == 2 else
                                        values, chosen_row["cv"], chosen_row["cv_random"], len(classes),
-                                       np.bincount(folds).tolist())
+                                       pd.Series(units).groupby(folds).nunique().tolist())
         notes += warned
         facts["warnings"] = warned
         results[target] = TargetModel(name=target, task=task, transform=transform, classes=classes, model=final,
@@ -378,12 +428,17 @@ def train(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> Train
                                       leaderboard=board, chosen=chosen, oof=oof, observed=y, weights=data.weights,
                                       variogram=vario, data=data, candidates={k: v[0] for k, v in oofs.items()},
                                       spread=spread_model, importance=imp, applicability=aoa,
-                                      applicability_cv=aoa_cv, trust=facts)
+                                      applicability_cv=aoa_cv, trust=facts, units=units)
     loc = location_features(names)
     if loc:
         notes.append(f"location features {', '.join(loc)} are in use: they let a model memorise where the wells are; "
                      "compare with the attributes-only candidate in the leaderboard")
-    return TrainedModels(options, spec, names, ranges, wells, weights, decl, stats, results, notes, X_all)
+    space = {"kind": "map"}
+    if volume:
+        space = {"kind": "volume", "z_domain": grid.attrs.get("z_domain", "unknown"),
+                 "wells_z_domain": wells_z_domain(wells), "z_range": [float(wells["z"].min()), float(wells["z"].max())],
+                 "samples": int(len(wells)), "wells": int(wells["well_id"].nunique())}
+    return TrainedModels(options, spec, names, ranges, wells, weights, decl, stats, results, notes, X_all, space)
 
 
 def _inside_outside(task, y, oof, weights, classes, inside) -> dict:
@@ -404,15 +459,21 @@ def _losses(y: np.ndarray, oof: np.ndarray) -> np.ndarray:
     return -np.log(np.clip(oof[np.arange(len(y)), y.astype(int)], 1e-15, None))
 
 
-def _clearly_better(challenger: np.ndarray, incumbent: np.ndarray, weights) -> bool:
+def _clearly_better(challenger: np.ndarray, incumbent: np.ndarray, weights, units=None) -> bool:
     """True when the challenger's per-well out-of-fold losses beat the incumbent's by more than
     one standard error of the (declustering-weighted) paired difference.
+
+    ``units`` names the well of each row: samples of one well are averaged first, since they
+    are not independent evidence.
 
     Picking the lowest CV score among many candidates rewards luck on a few dozen wells; the
     one-standard-error rule (Breiman et al. 1984; Hastie et al., Elements of Statistical
     Learning, section 7.10) keeps the more stable choice unless the data say otherwise.
     """
     diff = challenger - incumbent
+    if units is not None and np.unique(units).size < len(diff):
+        frame = pd.DataFrame({"d": diff * weights, "w": weights, "u": units}).groupby("u").sum()
+        diff, weights = (frame["d"] / frame["w"]).to_numpy(), frame["w"].to_numpy()
     w = weights / weights.sum()
     mean = float(np.sum(w * diff))
     se = float(np.sqrt(np.sum(w * (diff - mean) ** 2) / max(effective_size(weights) - 1, 1)))

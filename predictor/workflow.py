@@ -10,36 +10,42 @@ from pathlib import Path
 
 from .bundle import save_bundle, sha256
 from .features import FeatureSpec
-from .grid import read_grid
+from .grid import read_seismic
 from .io.atomic import check_target
 from .io.tables import read_wells
-from .predict import predict_maps, write_maps
+from .predict import check_format, predict_maps, write_maps
 from .training import TrainedModels, TrainOptions, train
+from .volume import is_volume
 
 
 def train_files(wells_path, grid_path, out, targets, attributes=None, context_radii=(), gradient=False,
-                location=False, porosity_percent=False, x=None, y=None, overwrite=False, **options):
-    """Read wells and grid, train, and write the bundle to ``out``; returns (trained, folder)."""
+                location=False, porosity_percent=False, x=None, y=None, overwrite=False, vertical_radii=(),
+                z_trend=False, z=None, z_domain=None, segy_name="amplitude", **options):
+    """Read wells and a map or volume, train, and write the bundle to ``out``; returns (trained, folder)."""
     check_target(out, overwrite)  # fail before the long work, not after it
-    wells = read_wells(wells_path, x=x, y=y, porosity_percent=porosity_percent)
-    grid = read_grid(grid_path)
+    wells = read_wells(wells_path, x=x, y=y, z=z, porosity_percent=porosity_percent)
+    grid = read_seismic(grid_path, z_domain=z_domain, name=segy_name)
     spec = FeatureSpec(attributes=list(attributes) if attributes else [str(v) for v in grid.data_vars],
-                       context_radii=list(context_radii), gradient=gradient, location=location)
+                       context_radii=list(context_radii), gradient=gradient, location=location,
+                       vertical_radii=list(vertical_radii), z_coordinate=z_trend)
     trained = train(wells, grid, TrainOptions(targets=list(targets), features=spec, **options))
     inputs = {"wells": {"path": str(wells_path), "sha256": sha256(Path(wells_path)),
                         "columns_taken": wells.attrs.get("columns_taken", {}), "porosity_percent": porosity_percent},
-              "grid": {"path": str(grid_path), "sha256": sha256(Path(grid_path))}}
+              "grid": {"path": str(grid_path), "sha256": sha256(Path(grid_path)) if Path(grid_path).is_file() else None,
+                       "z_domain": z_domain, "segy_name": segy_name}}
     return trained, save_bundle(trained, out, inputs, overwrite=overwrite)
 
 
-def predict_files(bundle, grid_path, out, overwrite=False, crs: str | None = None) -> Path:
+def predict_files(bundle, grid_path, out, overwrite=False, crs: str | None = None, z_domain: str | None = None,
+                  segy_name: str = "amplitude") -> Path:
     """Predict the bundle's targets on a grid file and write the maps (CSV, NetCDF or GeoTIFF).
 
     ``crs`` (e.g. "EPSG:32631") labels NetCDF and GeoTIFF outputs; without it a CRS carried by
     the input grid is kept.
     """
     check_target(out, overwrite)
-    grid = read_grid(grid_path)
+    grid = read_seismic(grid_path, z_domain=z_domain, name=segy_name)
+    check_format(out, is_volume(grid))  # before the long work, not after it
     maps = predict_maps(bundle, grid)
     crs = crs or grid.attrs.get("crs_wkt")
     if crs and Path(out).suffix.lower() == ".nc":

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
+import numpy as np
 import xarray as xr
 
 from ..errors import InputError
@@ -48,19 +49,48 @@ def read_netcdf_grid(path: Path, lazy: bool = False) -> xr.Dataset:
     return check_grid(ds, str(path))
 
 
-def write_netcdf(ds: xr.Dataset, target: str | Path, overwrite: bool = True, crs_wkt: str | None = None) -> Path:
-    """Write a grid as CF-1.8 NetCDF-4, atomically (temporary name, then rename)."""
-    from .atomic import atomic_file
-
+def _cf(ds: xr.Dataset, crs_wkt: str | None) -> xr.Dataset:
+    """A copy with CF-1.8 attributes on the coordinates, a grid mapping and storable attributes."""
     out = ds.copy()
-    out.attrs = {k: (str(v) if not isinstance(v, int | float | str) else v) for k, v in out.attrs.items()}
+    out.attrs = {k: (np.asarray(v, float) if k == "affine" else v if isinstance(v, int | float | str) else str(v))
+                 for k, v in out.attrs.items()}
     out.attrs["Conventions"] = "CF-1.8"
-    out["x"].attrs.update(standard_name="projection_x_coordinate", units="m", long_name="easting")
-    out["y"].attrs.update(standard_name="projection_y_coordinate", units="m", long_name="northing")
+    for name, axis in (("x", "x"), ("cdp_x", "x"), ("y", "y"), ("cdp_y", "y")):
+        if name in out.coords:
+            east = axis == "x"
+            out[name].attrs.update(standard_name=f"projection_{axis}_coordinate", units="m",
+                                   long_name=("easting" if east else "northing") + (" of the trace" if "cdp" in name
+                                                                                    else ""))
+    if "z" in out.coords:
+        domain = ds.attrs.get("z_domain", "unknown")
+        out["z"].attrs.setdefault("units", {"depth": "m", "time": "ms"}.get(domain, "1"))
+        out["z"].attrs.update(long_name={"depth": "depth", "time": "two-way time"}.get(domain, "sample axis"),
+                              positive="down", axis="Z")
     if crs_wkt:
         out["crs"] = xr.DataArray(0, attrs={"crs_wkt": crs_wkt, "spatial_ref": crs_wkt})
         for var in ds.data_vars:
             out[var].attrs["grid_mapping"] = "crs"
+    return out
+
+
+def write_netcdf(ds: xr.Dataset, target: str | Path, overwrite: bool = True, crs_wkt: str | None = None) -> Path:
+    """Write a grid or volume as CF-1.8 NetCDF-4, atomically (temporary name, then rename)."""
+    from .atomic import atomic_file
+
+    out = _cf(ds, crs_wkt)
     with atomic_file(target, overwrite=overwrite) as tmp:
         out.to_netcdf(tmp, engine="h5netcdf")
+    return Path(target)
+
+
+def write_zarr(ds: xr.Dataset, target: str | Path, overwrite: bool = True, crs_wkt: str | None = None) -> Path:
+    """Write a grid or volume as a Zarr store with the same CF attributes, atomically."""
+    from .atomic import atomic_folder
+
+    out = _cf(ds, crs_wkt)
+    out.attrs["affine"] = [float(v) for v in out.attrs["affine"]] if "affine" in out.attrs else None
+    if out.attrs["affine"] is None:
+        del out.attrs["affine"]
+    with atomic_folder(target, overwrite=overwrite) as tmp:
+        out.to_zarr(tmp, mode="w", zarr_format=2)
     return Path(target)

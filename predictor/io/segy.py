@@ -118,3 +118,24 @@ def write_segy(ds: xr.Dataset, var: str, target: str | Path, overwrite: bool = T
                 f.trace[n] = np.nan_to_num(cube[:, i, j], nan=0.0)
             f.bin.update(hns=z.size, hdt=int(round(interval * 1000)), format=5)
     return Path(target)
+
+
+def write_segy_set(ds: xr.Dataset, target: str | Path, overwrite: bool = False) -> Path:
+    """Every variable of a volume as its own SEG-Y file, ``<stem>_<variable><suffix>`` beside
+    ``target``; all are committed together or none.  Returns the pattern of their names."""
+    from contextlib import ExitStack
+
+    target = Path(target)
+    paths = {var: target.with_name(f"{target.stem}_{var}{target.suffix}") for var in ds.data_vars}
+    if not overwrite:
+        there = [str(p) for p in paths.values() if p.exists()]
+        if there:
+            raise InputError(f"{there[0]}: already exists; pass --overwrite (overwrite=True) to replace it")
+    with ExitStack() as stack:
+        for var, path in paths.items():
+            tmp = stack.enter_context(atomic_file(path, overwrite=True))
+            values = ds[var].astype(np.float32)
+            if "_FillValue" in ds[var].attrs:  # flags and class codes: the fill becomes NaN, then a dead sample
+                values = values.where(ds[var] != ds[var].attrs["_FillValue"])
+            write_segy(ds.assign({var: values}), var, tmp, overwrite=True)
+    return target.with_name(f"{target.stem}_*{target.suffix}")
