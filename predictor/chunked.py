@@ -87,7 +87,7 @@ def _open(grid_path: str, z_domain: str | None):
 def predict_to_zarr(bundle_dir, grid_path, out, tile: int = DEFAULT_TILE, threads: int | None = None,
                     workers: int | None = None, scheduler: str | None = None, overwrite: bool = False,
                     memory_limit: float | None = None, z_domain: str | None = None,
-                    segy_name: str = "amplitude") -> Path:
+                    segy_name: str | None = None) -> Path:
     """Predict every target of the bundle over a (possibly larger-than-memory) grid or volume
     into ``out`` (.zarr).  Volume tiles are ``tile`` x ``tile`` traces, each with all its samples.
 
@@ -105,7 +105,7 @@ def predict_to_zarr(bundle_dir, grid_path, out, tile: int = DEFAULT_TILE, thread
         from .io.netcdf import write_zarr
 
         check_target(out, overwrite)
-        volume = read_volume(grid_path, z_domain=z_domain, name=segy_name)
+        volume = read_volume(grid_path, z_domain=z_domain, name=segy_name or "amplitude")
         with tempfile.TemporaryDirectory(prefix=f".{out.name}.input.", dir=out.parent) as scratch:
             copy = write_zarr(volume, Path(scratch) / "input.zarr")
             del volume

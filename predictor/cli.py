@@ -31,7 +31,7 @@ def _volume_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--z-domain", choices=["depth", "time"],
                    help="(volumes) the volume's sample axis is depth (m) or two-way time (ms), when the file does "
                    "not say (SEG-Y)")
-    p.add_argument("--segy-name", default="amplitude",
+    p.add_argument("--segy-name",
                    help="(SEG-Y) name of the attribute the file holds, as the model knows it (default amplitude)")
 
 
@@ -103,7 +103,8 @@ def build_parser() -> argparse.ArgumentParser:
     ex = sub.add_parser("explain", help="SHAP importance, summary and dependence plots, SHAP at the wells and "
                         "contribution maps for every target of a bundle")
     ex.add_argument("bundle", help="bundle folder written by `predictor train`")
-    ex.add_argument("--grid", help="grid for contribution maps (optional)")
+    ex.add_argument("--grid", help="grid for contribution maps (optional; a volume is shown at the wells' middle z)")
+    _volume_options(ex)
     ex.add_argument("--out", default="explanations", help="output folder (default explanations)")
     ex.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
 
@@ -111,6 +112,7 @@ def build_parser() -> argparse.ArgumentParser:
     rp.add_argument("bundle", help="bundle folder written by `predictor train`")
     rp.add_argument("--out", default="report.html", help="HTML file to write (default report.html)")
     rp.add_argument("--grid", help="grid to map (default: the grid the bundle was trained on)")
+    _volume_options(rp)
     rp.add_argument("--overwrite", action="store_true", help="replace an existing report")
 
     demo = sub.add_parser("demo", help="run the whole job on the bundled synthetic Tarnwick field")
@@ -182,9 +184,9 @@ def _cmd_predict(args) -> int:
 
 def _cmd_explain(args) -> int:
     from .explanations import explain_bundle
-    from .grid import read_grid
+    from .grid import read_seismic
 
-    grid = read_grid(args.grid) if args.grid else None
+    grid = read_seismic(args.grid, z_domain=args.z_domain, name=args.segy_name) if args.grid else None
     for line in explain_bundle(args.bundle, args.out, grid, overwrite=args.overwrite):
         print(line)
     print(f"explanations: {args.out}")
@@ -194,7 +196,9 @@ def _cmd_explain(args) -> int:
 def _cmd_report(args) -> int:
     from .report import build_report
 
-    print(f"report: {build_report(args.bundle, args.out, args.grid, overwrite=args.overwrite)}")
+    path = build_report(args.bundle, args.out, args.grid, overwrite=args.overwrite, z_domain=args.z_domain,
+                        segy_name=args.segy_name)
+    print(f"report: {path}")
     return 0
 
 

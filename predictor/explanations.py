@@ -12,6 +12,7 @@ from .explain import KRIGING, contributions, importance
 from .features import build_features, feature_matrix
 from .io.atomic import atomic_folder
 from .io.netcdf import write_netcdf
+from .volume import is_volume, map_view, view_depth, wells_in_view
 
 CHUNK = 20_000
 
@@ -32,11 +33,20 @@ def explain_wells(bundle: Bundle, target: str) -> tuple[np.ndarray, np.ndarray, 
     return values, base, wells, features
 
 
-def contribution_maps(bundle: Bundle, grid: xr.Dataset, target: str, chunk: int = CHUNK) -> xr.Dataset:
-    """Per-feature contribution maps (chunked), named ``<target>[_<class>]_shap_<feature>``."""
+def contribution_maps(bundle: Bundle, grid: xr.Dataset, target: str, chunk: int = CHUNK,
+                      z: float | None = None) -> xr.Dataset:
+    """Per-feature contribution maps (chunked), named ``<target>[_<class>]_shap_<feature>``.
+
+    For a volume: the map view at ``z`` (default: the middle of the training wells' samples),
+    from features built on whole traces.
+    """
     names = bundle.card["features"]["names"]
     info = bundle.card["targets"][target]
-    matrix, valid = feature_matrix(build_features(grid, bundle.feature_spec), names)
+    features = build_features(grid, bundle.feature_spec)
+    if is_volume(grid):
+        features = map_view(features, view_depth(grid, bundle.training_wells()[0]) if z is None else z)
+        grid = features
+    matrix, valid = feature_matrix(features, names)
     xx, yy = np.meshgrid(grid.x.to_numpy(), grid.y.to_numpy())
     xy = np.column_stack([xx.ravel()[valid], yy.ravel()[valid]])
     _, wells_features = bundle.training_wells()
@@ -45,7 +55,8 @@ def contribution_maps(bundle: Bundle, grid: xr.Dataset, target: str, chunk: int 
         X = pd.DataFrame(matrix[s:s + chunk], columns=names)
         parts.append(contributions(bundle.models[target], X, xy[s:s + chunk], names, background=wells_features)[0])
     values = np.concatenate(parts)
-    out = xr.Dataset(coords={"x": grid.x, "y": grid.y})
+    out = xr.Dataset(coords={"x": grid.x, "y": grid.y},
+                     attrs={k: grid.attrs[k] for k in ("z_shown", "axis_labels", "z_domain") if k in grid.attrs})
     shape = (grid.sizes["y"], grid.sizes["x"])
     for label, k in _class_slices(info):
         v = values if k is None else values[:, k, :]
@@ -96,7 +107,8 @@ def explain_bundle(bundle_dir, out, grid: xr.Dataset | None = None, overwrite: b
                 maps = contribution_maps(bundle, grid, target)
                 write_netcdf(maps, tmp / f"{target}_shap_maps.nc")
                 ranked = sorted(maps.data_vars, key=lambda v: -float(np.nanmean(np.abs(maps[v].to_numpy()))))
-                plots.shap_maps(maps, [str(v) for v in ranked[:3]], wells, tmp / f"{target}_shap_maps.png")
+                shown = wells_in_view(wells, grid, maps.attrs["z_shown"]) if is_volume(grid) else wells
+                plots.shap_maps(maps, [str(v) for v in ranked[:3]], shown, tmp / f"{target}_shap_maps.png")
         for warning in bundle.card.get("warnings", []):
             lines.append(f"warning: {warning}")
     return lines

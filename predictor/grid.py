@@ -133,20 +133,20 @@ def read_grid(path: str | Path, x: str | None = None, y: str | None = None, lazy
     return grid_from_table(read_table(path), x=x, y=y)
 
 
-def read_seismic(path: str | Path, lazy: bool = False, z_domain: str | None = None, name: str = "amplitude",
+def read_seismic(path: str | Path, lazy: bool = False, z_domain: str | None = None, name: str | None = None,
                  x: str | None = None, y: str | None = None) -> xr.Dataset:
     """Read a map (CSV/Parquet long table, NetCDF, Zarr) or a volume (SEG-Y, or NetCDF/Zarr with
     a ``z`` dimension), whichever the file holds; see :mod:`predictor.volume` for volumes.
 
     ``z_domain`` ("depth" or "time") names a volume's sample axis when the file does not;
-    ``name`` is the attribute a SEG-Y file holds.
+    ``name`` is the attribute a SEG-Y file holds (default "amplitude").
     """
     from .volume import SEGY_SUFFIXES, read_volume
 
     path = Path(path)
     suffix = path.suffix.lower()
     if suffix in SEGY_SUFFIXES:
-        return read_volume(path, lazy=lazy, z_domain=z_domain, name=name)
+        return read_volume(path, lazy=lazy, z_domain=z_domain, name=name or "amplitude")
     if suffix in (".nc", ".nc4", ".netcdf", ".cdf", ".zarr") and path.exists():
         try:
             with (xr.open_zarr(path) if suffix == ".zarr" else xr.open_dataset(path, engine="h5netcdf")) as peek:

@@ -38,8 +38,9 @@ def _extent(grid: xr.Dataset) -> list[float]:
 def _background(ax, grid: xr.Dataset, var: str, cmap="Greys", **kw):
     im = ax.imshow(grid[var].to_numpy(), origin="lower", extent=_extent(grid), cmap=cmap, **kw)
     ax.set_aspect("equal")
-    ax.set_xlabel("x (m)")
-    ax.set_ylabel("y (m)")
+    xlabel, ylabel = grid.attrs.get("axis_labels", ("x (m)", "y (m)"))  # a volume's map view is in line numbers
+    ax.set_xlabel(xlabel)
+    ax.set_ylabel(ylabel)
     ax.ticklabel_format(useOffset=False, style="plain")
     ax.tick_params(labelsize=7)
     ax.xaxis.set_major_locator(matplotlib.ticker.MaxNLocator(4))

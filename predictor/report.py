@@ -20,9 +20,10 @@ from .checks import check_data, write_check
 from .errors import InputError, PredictorWarning
 from .explain import KRIGING
 from .explanations import contribution_maps, explain_wells
-from .grid import read_grid
+from .grid import read_seismic
 from .io.atomic import atomic_file
 from .predict import predict_maps
+from .volume import is_volume, map_view, view_depth, wells_in_view
 
 CAUTION = ("A predicted map is a model, not a measurement: it is only as good as the wells, the seismic and the "
            "assumptions behind it, and it can be confidently wrong away from the wells. Drilling, reserves and "
@@ -55,16 +56,24 @@ def _section(key: str, title: str, body: str, css: str = "") -> tuple[str, str]:
     return key, f'<section id="{key}" class="{css}"><h2>{html.escape(title)}</h2>{body}</section>'
 
 
-def build_report(bundle_dir, out, grid_path=None, overwrite: bool = False) -> Path:
-    """Write the HTML report of a bundle; the grid defaults to the one the bundle was trained on."""
+def build_report(bundle_dir, out, grid_path=None, overwrite: bool = False, z_domain: str | None = None,
+                 segy_name: str | None = None) -> Path:
+    """Write the HTML report of a bundle; the grid defaults to the one the bundle was trained on.
+
+    A volume is shown as its map view at the middle z of the training samples (axes in survey
+    line numbers); every statistic and score covers the whole volume.
+    """
     bundle = load_bundle(bundle_dir)
     card = bundle.card
-    grid_path = grid_path or card.get("inputs", {}).get("grid", {}).get("path")
+    recorded = card.get("inputs", {}).get("grid", {})
+    if not grid_path:
+        z_domain, segy_name = z_domain or recorded.get("z_domain"), segy_name or recorded.get("segy_name")
+    grid_path = grid_path or recorded.get("path")
     if not grid_path:
         raise InputError(f"{bundle_dir}: the bundle does not record its training grid; give one with --grid")
     if not Path(grid_path).exists():
         raise InputError(f"{bundle_dir}: the training grid {grid_path} is not there any more; give it with --grid")
-    grid = read_grid(grid_path)
+    grid = read_seismic(grid_path, z_domain=z_domain, name=segy_name or "amplitude")
     wells, _ = bundle.training_wells()
     wells = wells.drop(columns=["weight"])
     wells["well_id"] = wells["well_id"].astype(str)
@@ -75,8 +84,15 @@ def build_report(bundle_dir, out, grid_path=None, overwrite: bool = False) -> Pa
         check = check_data(wells, grid)
         write_check(check, None, fig)
         maps = predict_maps(bundle, grid)
+        shown_wells = wells
+        if is_volume(grid):  # the figures show the map view at the middle of the wells' samples
+            z = view_depth(grid, wells)
+            maps, shown_wells = map_view(maps, z), wells_in_view(wells, grid, z)
+            attribute = next(iter(grid.data_vars))
+            props = [c for c in ("facies", "porosity", "permeability") if c in wells]
+            plots.location_maps(shown_wells, map_view(grid, z), attribute, props, fig / "wells_on_map.png")
         sections = [_summary(card, check), _data(check, fig), _bias(check, card, fig), _leaderboard(card, fig),
-                    _maps(maps, wells, card, fig), _intervals(card), _why(bundle, grid, wells, fig),
+                    _maps(maps, shown_wells, card, fig), _intervals(card), _why(bundle, grid, shown_wells, fig),
                     _warnings(card, [str(w.message) for w in caught]), _provenance(card)]
     nav = " ".join(f'<a href="#{k}">{html.escape(t)}</a>' for k, t in NAV)
     template = Template(resources.files("predictor").joinpath("templates/report.html").read_text(encoding="utf-8"))
@@ -162,6 +178,11 @@ def _leaderboard(card, fig):
 
 def _maps(maps, wells, card, fig):
     body = ""
+    if "z_shown" in maps.attrs:
+        domain = maps.attrs.get("z_domain", "unknown")
+        body = (f"<p>The volume seen at z = {maps.attrs['z_shown']:g} ({html.escape(domain)}), the middle of the "
+                "training samples; axes are survey line numbers and each well is drawn at its sample nearest to "
+                "that z. The predicted volume itself comes from <code>predictor predict</code>.</p>")
     for t, info in card["targets"].items():
         if info["task"] == "classification":
             plots.facies_maps(maps, t, wells, fig / f"map_{t}.png")

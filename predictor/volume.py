@@ -307,3 +307,32 @@ def _trilinear(arr: np.ndarray, fk, fi, fj) -> np.ndarray:
                 weight += np.where(ok, w, 0.0)
     with np.errstate(invalid="ignore", divide="ignore"):
         return np.where(weight > 0, total / weight, np.nan)
+
+
+def view_depth(vol: xr.Dataset, wells: pd.DataFrame | None = None) -> float:
+    """The z a map view of the volume shows: the middle of the wells' samples, else of the volume."""
+    if wells is not None and "z" in wells and len(wells):
+        return float(np.median(wells["z"]))
+    return float(vol.z[vol.sizes["z"] // 2])
+
+
+def map_view(vol: xr.Dataset, z: float) -> xr.Dataset:
+    """The slice of a volume nearest to ``z`` as a map on survey lines: dims (y, x) with y the
+    inline and x the crossline numbers, so the map figures can show it (axes in line numbers)."""
+    part = vol.sel(z=z, method="nearest")
+    z_shown = float(part.z)
+    part = part.drop_vars([c for c in ("z", "cdp_x", "cdp_y") if c in part.coords])
+    part = part.rename({"inline": "y", "crossline": "x"}).transpose("y", "x")
+    part = part.assign_coords(x=part.x.astype(float), y=part.y.astype(float))
+    part.attrs = {**vol.attrs, "axis_labels": ["crossline", "inline"], "z_shown": z_shown}
+    return part
+
+
+def wells_in_view(wells: pd.DataFrame, vol: xr.Dataset, z: float) -> pd.DataFrame:
+    """Each well's sample nearest to ``z``, placed in survey line numbers as :func:`map_view` draws."""
+    nearest = wells.assign(_dz=(wells["z"] - z).abs()).sort_values("_dz").drop_duplicates("well_id")
+    fi, fj = fractional_index(vol, nearest["x"], nearest["y"])
+    il, xl = vol.inline.to_numpy().astype(float), vol.crossline.to_numpy().astype(float)
+    step_il = il[1] - il[0] if il.size > 1 else 1.0
+    step_xl = xl[1] - xl[0] if xl.size > 1 else 1.0
+    return nearest.drop(columns="_dz").assign(x=xl[0] + fj * step_xl, y=il[0] + fi * step_il).sort_index()

@@ -20,7 +20,7 @@ from .volume import is_volume
 
 def train_files(wells_path, grid_path, out, targets, attributes=None, context_radii=(), gradient=False,
                 location=False, porosity_percent=False, x=None, y=None, overwrite=False, vertical_radii=(),
-                z_trend=False, z=None, z_domain=None, segy_name="amplitude", **options):
+                z_trend=False, z=None, z_domain=None, segy_name=None, **options):
     """Read wells and a map or volume, train, and write the bundle to ``out``; returns (trained, folder)."""
     check_target(out, overwrite)  # fail before the long work, not after it
     wells = read_wells(wells_path, x=x, y=y, z=z, porosity_percent=porosity_percent)
@@ -37,7 +37,7 @@ def train_files(wells_path, grid_path, out, targets, attributes=None, context_ra
 
 
 def predict_files(bundle, grid_path, out, overwrite=False, crs: str | None = None, z_domain: str | None = None,
-                  segy_name: str = "amplitude") -> Path:
+                  segy_name: str | None = None) -> Path:
     """Predict the bundle's targets on a grid file and write the maps (CSV, NetCDF or GeoTIFF).
 
     ``crs`` (e.g. "EPSG:32631") labels NetCDF and GeoTIFF outputs; without it a CRS carried by

@@ -243,3 +243,17 @@ def test_bad_volume_predictions(case, files, bundle, tmp_path, capsys, monkeypat
         monkeypatch.setattr(predictor.chunked, "_available_memory", lambda: 50e6)
         argv += ["--tile", "4000"]
     _check(tmp_path, capsys, monkeypatch, argv, PREDICT_CASES[case][1])
+
+
+def test_explain_and_report_show_a_volume_at_the_wells_middle_depth(bundle, files, tmp_path):
+    assert main(["--quiet", "explain", str(bundle), "--grid", files["impedance.nc"], "--out",
+                 str(tmp_path / "ex")]) == 0
+    shap = xr.open_dataset(tmp_path / "ex" / "porosity_shap_maps.nc")
+    wells = pd.read_csv(files["well_samples.csv"])
+    z = float(np.median(wells.depth))
+    assert abs(shap.attrs["z_shown"] - z) <= 2.0  # the sample nearest to the wells' middle depth (4 m steps)
+    assert shap["porosity_shap_impedance"].dims == ("y", "x") and np.isfinite(shap["porosity_shap_impedance"]).all()
+    assert main(["--quiet", "report", str(bundle), "--out", str(tmp_path / "r.html")]) == 0
+    page = (tmp_path / "r.html").read_text()
+    assert f"The volume seen at z = {shap.attrs['z_shown']:g} (depth)" in page
+    assert page.count("data:image/png;base64,") >= 8
