@@ -13,6 +13,7 @@ and predicts with one LightGBM thread per task, so LightGBM and Dask never overs
 from __future__ import annotations
 
 import functools
+import itertools
 import os
 import warnings
 from collections import deque
@@ -31,6 +32,7 @@ from .progress import progress
 from .volume import SEGY_SUFFIXES, is_volume, lateral_spacing, read_volume
 
 DEFAULT_TILE = 512
+SAMPLES_PER_TILE = 1_000_000
 BYTES_PER_NODE = 8 * 64  # generous: features, member predictions and outputs per node, float64
 
 
@@ -74,17 +76,22 @@ def predict_tile(folder: str, grid_path: str, tile: tuple[int, int, int, int],
     xa, xb = max(0, x0 - hx), min(grid.sizes[ax], x1 + hx)
     part = grid.isel({ay: slice(ya, yb), ax: slice(xa, xb)}).load()
     part.attrs = dict(grid.attrs)
-    maps = predict_maps(bundle, part, warn=False)  # warnings are not thread-safe: report once, at the end
-    outside = maps.attrs["extrapolated_share"] > 0
-    inner = maps.isel({ay: slice(y0 - ya, y0 - ya + (y1 - y0)), ax: slice(x0 - xa, x0 - xa + (x1 - x0))})
-    return tile, inner, outside
+    interior = {ay: slice(y0 - ya, y0 - ya + (y1 - y0)), ax: slice(x0 - xa, x0 - xa + (x1 - x0))}
+    inner = predict_maps(bundle, part, warn=False, interior=interior)  # warnings are not thread-safe: reported
+    return tile, inner, inner.attrs["extrapolated_share"] > 0  # once, at the end
 
 
 def _open(grid_path: str, z_domain: str | None):
     return read_seismic(grid_path, lazy=True, z_domain=z_domain)
 
 
-def predict_to_zarr(bundle_dir, grid_path, out, tile: int = DEFAULT_TILE, threads: int | None = None,
+def default_tile(grid: xr.Dataset) -> int:
+    """Tile side: 512 nodes for maps; for volumes about a million samples per tile (whole traces)."""
+    depth = grid.sizes.get("z", 1)
+    return DEFAULT_TILE if depth == 1 else max(16, int(np.sqrt(SAMPLES_PER_TILE / depth)))
+
+
+def predict_to_zarr(bundle_dir, grid_path, out, tile: int | None = None, threads: int | None = None,
                     workers: int | None = None, scheduler: str | None = None, overwrite: bool = False,
                     memory_limit: float | None = None, z_domain: str | None = None,
                     segy_name: str | None = None) -> Path:
@@ -97,7 +104,7 @@ def predict_to_zarr(bundle_dir, grid_path, out, tile: int = DEFAULT_TILE, thread
     out = Path(out)
     if out.suffix.lower() != ".zarr":
         raise InputError(f"{out}: tiled maps are written as a Zarr store; name it *.zarr")
-    if tile < 8:
+    if tile is not None and tile < 8:
         raise InputError(f"tile size {tile} is too small; use 64 or more nodes a side")
     if Path(grid_path).suffix.lower() in SEGY_SUFFIXES:
         import tempfile
@@ -120,6 +127,7 @@ def predict_to_zarr(bundle_dir, grid_path, out, tile: int = DEFAULT_TILE, thread
     ay, ax = lateral_axes(grid)
     hy, hx = halo(grid, bundle.feature_spec)
     depth = grid.sizes.get("z", 1)
+    tile = tile or default_tile(grid)
     need = (tile + 2 * hy) * (tile + 2 * hx) * depth * BYTES_PER_NODE
     limit = memory_limit or _available_memory()
     if limit and need * max(threads or 1, 1) > limit:
@@ -129,11 +137,11 @@ def predict_to_zarr(bundle_dir, grid_path, out, tile: int = DEFAULT_TILE, thread
     ny, nx = grid.sizes[ay], grid.sizes[ax]
     all_tiles = tiles(ny, nx, tile)
     with atomic_folder(out, overwrite=overwrite) as tmp:
-        first = predict_tile(folder, grid_path, all_tiles[0], z_domain)[1]
-        _template(first, grid, tile).to_zarr(tmp, compute=False, mode="w", zarr_format=2)
+        first = predict_tile(folder, grid_path, all_tiles[0], z_domain)  # it also gives the store's layout
+        _template(first[1], grid, tile).to_zarr(tmp, compute=False, mode="w", zarr_format=2)
         extrapolated = 0
-        for (y0, y1, x0, x1), part, outside in progress(_run(folder, grid_path, all_tiles, threads, workers,
-                                                             scheduler, z_domain), "tiles", total=len(all_tiles)):
+        done = itertools.chain([first], _run(folder, grid_path, all_tiles[1:], threads, workers, scheduler, z_domain))
+        for (y0, y1, x0, x1), part, outside in progress(done, "tiles", total=len(all_tiles)):
             extrapolated += outside
             part = part.drop_vars(list(part.coords))
             part.attrs = {}

@@ -93,7 +93,8 @@ def build_parser() -> argparse.ArgumentParser:
     pr.add_argument("--out", required=True, help="maps file: .csv, .nc (CF NetCDF), .tif (GeoTIFF), or .zarr "
                     "(tile by tile with bounded memory, for grids larger than memory); volumes: .csv, .nc, .zarr, "
                     ".sgy (one SEG-Y file per output variable)")
-    pr.add_argument("--tile", type=int, default=512, help="with .zarr: tile side in nodes (default 512)")
+    pr.add_argument("--tile", type=int, help="with .zarr: tile side in nodes or traces (default 512 for maps; "
+                    "for volumes about a million samples per tile)")
     pr.add_argument("--threads", type=int, help="with .zarr: local threads (default: all cores)")
     pr.add_argument("--workers", type=int, help="with .zarr: start a local Dask cluster of this many workers")
     pr.add_argument("--scheduler", help="with .zarr: address of an existing dask.distributed scheduler")
@@ -118,6 +119,8 @@ def build_parser() -> argparse.ArgumentParser:
     demo = sub.add_parser("demo", help="run the whole job on the bundled synthetic Tarnwick field")
     demo.add_argument("--out", default="demo_output", help="output folder (default demo_output)")
     demo.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
+    demo.add_argument("--volume", action="store_true",
+                      help="the 3-D scenario instead: well samples and a SEG-Y impedance volume (generated)")
     return parser
 
 
@@ -203,9 +206,9 @@ def _cmd_report(args) -> int:
 
 
 def _cmd_demo(args) -> int:
-    from .demo import run_demo
+    from .demo import run_demo, run_volume_demo
 
-    summary = run_demo(Path(args.out), overwrite=args.overwrite)
+    summary = (run_volume_demo if args.volume else run_demo)(Path(args.out), overwrite=args.overwrite)
     for line in summary:
         print(line)
     return 0

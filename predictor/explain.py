@@ -202,6 +202,20 @@ class Applicability:
             out[s:s + chunk] = tree.query(q[s:s + chunk])[0]
         return out / self.mean_distance
 
+    def inside(self, X, chunk: int = 50_000) -> np.ndarray:
+        """Whether each row's index is within the threshold; the same as ``index(X) <= threshold``
+        but faster, since the nearest-neighbour search stops at the threshold distance."""
+        from scipy.spatial import cKDTree
+
+        tree = cKDTree(self.points)
+        q = self._space(X)
+        bound = self.threshold * self.mean_distance * (1 + 1e-12)  # the bound is strict; the threshold is not
+        out = np.empty(len(q), bool)
+        for s in range(0, len(q), chunk):
+            out[s:s + chunk] = tree.query(q[s:s + chunk], distance_upper_bound=bound)[0] / self.mean_distance \
+                <= self.threshold
+        return out
+
     def to_dict(self) -> dict:
         return {"features": self.features, "mean": self.mean.tolist(), "scale": self.scale.tolist(),
                 "weights": self.weights.tolist(), "points": self.points.tolist(),

@@ -39,17 +39,21 @@ def local_spread(spread, model, X: pd.DataFrame, xy: np.ndarray) -> np.ndarray:
 
 
 def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int = CHUNK_ROWS,
-                 warn: bool = True) -> xr.Dataset:
+                 warn: bool = True, interior: dict | None = None) -> xr.Dataset:
     """Predict every target of the bundle on every valid node of ``grid``.
 
     The share of nodes whose features lie outside the range seen at the wells is kept in
-    ``attrs["extrapolated_share"]`` and, with ``warn``, reported as a warning.
+    ``attrs["extrapolated_share"]`` and, with ``warn``, reported as a warning.  ``interior``
+    (dim -> slice) predicts only that part, with features built on the whole of ``grid``: a
+    tile's halo gives context to the features and is not predicted.
     """
     if not isinstance(bundle, Bundle):
         bundle = load_bundle(bundle)
     card = bundle.card
     check_space(card, grid)
     features = build_features(grid, bundle.feature_spec)
+    if interior:
+        features, grid = features.isel(interior), grid.isel(interior)
     names = card["features"]["names"]
     matrix, valid = feature_matrix(features, names)
     if not valid.any():
@@ -84,7 +88,7 @@ def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int 
         applicable = None
         if aoa is not None:
             flags = np.full(valid.size, -1, dtype=np.int8)
-            flags[valid] = (aoa.index(X) <= aoa.threshold).astype(np.int8)
+            flags[valid] = aoa.inside(X).astype(np.int8)
             applicable = xr.DataArray(flags.reshape(shape), dims=dims, attrs={
                 "long_name": f"inside the area of applicability of the {target} model (1) or not (0)",
                 "flag_values": np.array([0, 1], dtype=np.int8), "_FillValue": np.int8(-1),

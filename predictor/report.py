@@ -69,6 +69,9 @@ def build_report(bundle_dir, out, grid_path=None, overwrite: bool = False, z_dom
     if not grid_path:
         z_domain, segy_name = z_domain or recorded.get("z_domain"), segy_name or recorded.get("segy_name")
     grid_path = grid_path or recorded.get("path")
+    moved = bundle.folder / recorded.get("from_bundle", "")
+    if grid_path == recorded.get("path") and not Path(grid_path).exists() and moved.exists():
+        grid_path = str(moved)  # the bundle and its inputs moved together
     if not grid_path:
         raise InputError(f"{bundle_dir}: the bundle does not record its training grid; give one with --grid")
     if not Path(grid_path).exists():

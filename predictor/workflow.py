@@ -6,6 +6,7 @@ Each reads its inputs, calls the API (:func:`predictor.training.train`,
 
 from __future__ import annotations
 
+import os
 from pathlib import Path
 
 from .bundle import save_bundle, sha256
@@ -32,6 +33,7 @@ def train_files(wells_path, grid_path, out, targets, attributes=None, context_ra
     inputs = {"wells": {"path": str(wells_path), "sha256": sha256(Path(wells_path)),
                         "columns_taken": wells.attrs.get("columns_taken", {}), "porosity_percent": porosity_percent},
               "grid": {"path": str(grid_path), "sha256": sha256(Path(grid_path)) if Path(grid_path).is_file() else None,
+                       "from_bundle": os.path.relpath(Path(grid_path).resolve(), Path(out).resolve()),
                        "z_domain": z_domain, "segy_name": segy_name}}
     return trained, save_bundle(trained, out, inputs, overwrite=overwrite)
 

@@ -1,0 +1,84 @@
+"""Tiled prediction of a 3-D volume: time against bare LightGBM, peak memory, Dask workers.
+
+    python experiments/scale_volume.py [--size 400 400 300] [--workers 0 1 2]
+
+A synthetic volume (inlines x crosslines x samples, 25 m traces, 4 m samples) is written as a
+Zarr store, a LightGBM-only porosity bundle is trained on its wells (samples along each well;
+features: impedance, lateral context at 50 m, vertical context at 12 m), and
+`predict_to_zarr` runs in a fresh process (peak resident memory from the OS).  The bare
+reference is LightGBM's own predict of the whole volume's feature matrix, in memory, in the
+same run, with the same two threads.
+"""
+
+import argparse
+import json
+import subprocess
+import sys
+import tempfile
+import time
+import warnings
+from pathlib import Path
+
+from predictor.bundle import save_bundle
+from predictor.errors import PredictorWarning
+from predictor.features import FeatureSpec, build_features, feature_matrix
+from predictor.io.netcdf import write_zarr
+from predictor.synthetic import VolumeSpec, make_volume_field
+from predictor.training import TrainOptions, train
+from predictor.volume import check_volume
+
+CHILD = """
+import json, sys, time, warnings
+from predictor.errors import PredictorWarning
+warnings.simplefilter("ignore", PredictorWarning)
+from predictor.chunked import predict_to_zarr
+t0 = time.perf_counter()
+workers = int(sys.argv[4]) or None
+predict_to_zarr(sys.argv[1], sys.argv[2], sys.argv[3], threads=2, workers=workers)
+# VmHWM: this process's own peak (ru_maxrss would carry the parent's peak across exec)
+hwm = next(int(l.split()[1]) for l in open("/proc/self/status") if l.startswith("VmHWM"))
+print(json.dumps({"seconds": time.perf_counter() - t0, "peak_mb": hwm / 1024}))
+"""
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser()
+    parser.add_argument("--size", type=int, nargs=3, default=[400, 400, 300], metavar=("INLINES", "CROSSLINES",
+                                                                                     "SAMPLES"))
+    parser.add_argument("--workers", type=int, nargs="+", default=[0])
+    args = parser.parse_args()
+    warnings.simplefilter("ignore", PredictorWarning)
+    ni, nj, nk = args.size
+    with tempfile.TemporaryDirectory(dir=".") as tmp:
+        tmp = Path(tmp)
+        t0 = time.perf_counter()
+        seismic, _, wells = make_volume_field(VolumeSpec(seed=3, n_inlines=ni, n_crosslines=nj, n_samples=nk,
+                                                         n_preferential=40, regular_pattern=(4, 4)))
+        seismic = check_volume(seismic)
+        wells = wells.rename(columns={"depth": "z"})
+        volume_path = write_zarr(seismic, tmp / "volume.zarr")
+        print(f"volume {ni} x {nj} x {nk} ({ni * nj * nk / 1e6:.0f}M samples), {wells.well_id.nunique()} wells, "
+              f"{len(wells)} samples; made in {time.perf_counter() - t0:.0f} s")
+        spec = FeatureSpec(["impedance"], context_radii=[50.0], vertical_radii=[12.0])
+        trained = train(wells, seismic, TrainOptions(targets=["porosity"], features=spec, candidates=["lightgbm"]))
+        bundle = save_bundle(trained, tmp / "bundle")
+        matrix, _ = feature_matrix(build_features(seismic, spec), trained.feature_names)
+        booster = trained.targets["porosity"].model.booster_
+        t0 = time.perf_counter()
+        booster.predict(matrix, num_threads=2)
+        bare = time.perf_counter() - t0
+        del seismic, matrix
+        print(f"bare LightGBM predict of the {len(trained.feature_names)}-feature matrix ({booster.num_trees()} "
+              f"trees): {bare:.1f} s")
+        for workers in args.workers:
+            out = tmp / f"predicted{workers}.zarr"
+            proc = subprocess.run([sys.executable, "-c", CHILD, str(bundle), str(volume_path), str(out),
+                                   str(workers)], capture_output=True, text=True, check=True)
+            result = json.loads(proc.stdout.strip().splitlines()[-1])
+            how = f"{workers} Dask workers" if workers else "2 local threads"
+            print(f"{how}: tiled predict (read, features, q10/q50/q90, applicability, write) {result['seconds']:.1f} s, "
+                  f"ratio to bare {result['seconds'] / bare:.2f}; peak memory {result['peak_mb']:.0f} MB")
+
+
+if __name__ == "__main__":
+    main()
