@@ -13,7 +13,6 @@ and predicts with one LightGBM thread per task, so LightGBM and Dask never overs
 from __future__ import annotations
 
 import functools
-import itertools
 import os
 import warnings
 from collections import deque
@@ -137,10 +136,11 @@ def predict_to_zarr(bundle_dir, grid_path, out, tile: int | None = None, threads
     ny, nx = grid.sizes[ay], grid.sizes[ax]
     all_tiles = tiles(ny, nx, tile)
     with atomic_folder(out, overwrite=overwrite) as tmp:
-        first = predict_tile(folder, grid_path, all_tiles[0], z_domain)  # it also gives the store's layout
-        _template(first[1], grid, tile).to_zarr(tmp, compute=False, mode="w", zarr_format=2)
+        # a corner of a few nodes gives the store's layout (variables, dtypes, attributes) cheaply
+        corner = predict_tile(folder, grid_path, (0, min(8, ny), 0, min(8, nx)), z_domain)[1]
+        _template(corner, grid, tile).to_zarr(tmp, compute=False, mode="w", zarr_format=2)
         extrapolated = 0
-        done = itertools.chain([first], _run(folder, grid_path, all_tiles[1:], threads, workers, scheduler, z_domain))
+        done = _run(folder, grid_path, all_tiles, threads, workers, scheduler, z_domain)
         for (y0, y1, x0, x1), part, outside in progress(done, "tiles", total=len(all_tiles)):
             extrapolated += outside
             part = part.drop_vars(list(part.coords))

@@ -106,7 +106,7 @@ VERTICAL_RADII = [12.0]  # metres along the wells: the layering around each samp
 VOLUME_CONTEXT = [100.0]
 
 
-def run_volume_demo(out: Path, overwrite: bool = False) -> list[str]:
+def run_volume_demo(out: Path, overwrite: bool = False, spec=None) -> list[str]:
     """The whole job on the 3-D scenario (Tarnwick lower sands, in depth, on a rotated survey):
     SEG-Y volume and well samples generated into ``out/data``, then qc, train, predicted
     volumes (NetCDF and SEG-Y), explanations and the report."""
@@ -115,7 +115,7 @@ def run_volume_demo(out: Path, overwrite: bool = False) -> list[str]:
 
     lines = []
     with atomic_folder(out, overwrite=overwrite) as tmp:
-        inputs = {k: Path(v) for k, v in volume_demo_files(tmp / "data").items()}
+        inputs = {k: Path(v) for k, v in volume_demo_files(tmp / "data", spec).items()}
         wells = read_wells(inputs["well_samples.csv"])
         volume = read_volume(inputs["impedance.sgy"], z_domain="depth", name="impedance")
         check = check_data(wells, volume)

@@ -193,21 +193,24 @@ class Applicability:
         return (np.asarray(X[self.features], float) - self.mean) / self.scale * self.weights
 
     def index(self, X, chunk: int = 50_000) -> np.ndarray:
-        from scipy.spatial import cKDTree
-
-        tree = cKDTree(self.points)
+        tree = self._tree()
         q = self._space(X)
         out = np.empty(len(q))
         for s in range(0, len(q), chunk):
             out[s:s + chunk] = tree.query(q[s:s + chunk])[0]
         return out / self.mean_distance
 
+    def _tree(self):
+        from scipy.spatial import cKDTree
+
+        if getattr(self, "tree_", None) is None:  # built once per loaded model, reused by every tile
+            self.tree_ = cKDTree(self.points)
+        return self.tree_
+
     def inside(self, X, chunk: int = 50_000) -> np.ndarray:
         """Whether each row's index is within the threshold; the same as ``index(X) <= threshold``
         but faster, since the nearest-neighbour search stops at the threshold distance."""
-        from scipy.spatial import cKDTree
-
-        tree = cKDTree(self.points)
+        tree = self._tree()
         q = self._space(X)
         bound = self.threshold * self.mean_distance * (1 + 1e-12)  # the bound is strict; the threshold is not
         out = np.empty(len(q), bool)

@@ -59,6 +59,17 @@ def _random_field(rng, shape, length_cells):
     return (field - field.mean()) / field.std()
 
 
+def _rock(codes: np.ndarray, texture: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Porosity (facies mean + sd x texture), matrix velocity and grain density at every cell."""
+    porosity, v_matrix, rho_matrix = np.zeros(codes.shape), np.zeros(codes.shape), np.zeros(codes.shape)
+    for code, name in enumerate(FACIES):
+        mean, sd, vm, rm = ROCK[name]
+        here = codes == code
+        porosity[here] = mean + sd * texture[here]
+        v_matrix[here], rho_matrix[here] = vm, rm
+    return porosity, v_matrix, rho_matrix
+
+
 def _facies(spec: FieldSpec, rng, xx, yy) -> np.ndarray:
     theta = np.deg2rad(spec.azimuth)
     u = (xx - xx.mean()) * np.cos(theta) + (yy - yy.mean()) * np.sin(theta)
@@ -98,14 +109,7 @@ def make_field(spec: FieldSpec | None = None) -> tuple[xr.Dataset, xr.Dataset, p
     xx, yy = np.meshgrid(xs, ys)
     codes = _facies(spec, rng, xx, yy)
     texture = _random_field(rng, xx.shape, spec.correlation_length / spec.spacing)
-    porosity = np.zeros(xx.shape)
-    v_matrix = np.zeros(xx.shape)
-    rho_matrix = np.zeros(xx.shape)
-    for code, name in enumerate(FACIES):
-        mean, sd, vm, rm = ROCK[name]
-        here = codes == code
-        porosity[here] = mean + sd * texture[here]
-        v_matrix[here], rho_matrix[here] = vm, rm
+    porosity, v_matrix, rho_matrix = _rock(codes, texture)
     porosity = np.clip(porosity, 0.01, 0.35)
     velocity = raymer_velocity(porosity, v_matrix, V_BRINE)
     density = mass_balance_density(porosity, rho_matrix, RHO_BRINE)
@@ -243,13 +247,7 @@ def make_volume_field(spec: VolumeSpec | None = None) -> tuple[xr.Dataset, xr.Da
     codes[body > np.quantile(body, 1 - spec.sand_fraction)] = 2
     texture = _field3d(rng, shape, (vertical / 2, lateral / 2, lateral / 2))
     z = spec.z0 + spec.z_step * np.arange(spec.n_samples)
-    porosity = np.zeros(shape)
-    v_matrix, rho_matrix = np.zeros(shape), np.zeros(shape)
-    for code, name in enumerate(FACIES):
-        mean, sd, vm, rm = ROCK[name]
-        here = codes == code
-        porosity[here] = mean + sd * texture[here]
-        v_matrix[here], rho_matrix[here] = vm, rm
+    porosity, v_matrix, rho_matrix = _rock(codes, texture)
     porosity = np.clip(porosity - spec.compaction * (z - spec.z0)[:, None, None], 0.01, 0.35)
     impedance_true = raymer_velocity(porosity, v_matrix, V_BRINE) * mass_balance_density(porosity, rho_matrix,
                                                                                           RHO_BRINE)

@@ -257,3 +257,19 @@ def test_explain_and_report_show_a_volume_at_the_wells_middle_depth(bundle, file
     page = (tmp_path / "r.html").read_text()
     assert f"The volume seen at z = {shap.attrs['z_shown']:g} (depth)" in page
     assert page.count("data:image/png;base64,") >= 8
+
+
+def test_volume_demo_runs_end_to_end_and_its_report_follows_the_moved_folder(tmp_path):
+    import warnings
+
+    from predictor.demo import run_volume_demo
+    from predictor.errors import PredictorWarning
+
+    with warnings.catch_warnings():  # the demo reports its notes itself; whether one fires depends on the field
+        warnings.simplefilter("ignore", PredictorWarning)
+        lines = run_volume_demo(tmp_path / "demo", spec=SMALL)
+    assert any(line.startswith("  porosity RMSE over the volume") for line in lines)
+    for name in ("report.html", "qc.json", "volume.nc", "volume_porosity.sgy", "bundle/model_card.json"):
+        assert (tmp_path / "demo" / name).exists(), name
+    # the bundle recorded its input inside the temporary folder the demo was built in
+    assert main(["--quiet", "report", str(tmp_path / "demo" / "bundle"), "--out", str(tmp_path / "again.html")]) == 0
