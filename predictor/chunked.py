@@ -81,6 +81,13 @@ def predict_tile(folder: str, grid_path: str, tile: tuple[int, int, int, int],
 
 
 def _open(grid_path: str, z_domain: str | None):
+    stat = os.stat(grid_path)  # a file replaced under the same name is opened afresh
+    return _opened(grid_path, z_domain, stat.st_mtime_ns, stat.st_ino)
+
+
+@functools.lru_cache(maxsize=4)
+def _opened(grid_path: str, z_domain: str | None, mtime: int, inode: int):
+    # opened lazily once per process; tiles read their parts through xarray's locked file access
     return read_seismic(grid_path, lazy=True, z_domain=z_domain)
 
 

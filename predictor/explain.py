@@ -193,8 +193,10 @@ class Applicability:
         return (np.asarray(X[self.features], float) - self.mean) / self.scale * self.weights
 
     def index(self, X, chunk: int = 50_000) -> np.ndarray:
-        tree = self._tree()
         q = self._space(X)
+        if q.shape[1] == 1:
+            return self._nearest_1d(q) / self.mean_distance
+        tree = self._tree()
         out = np.empty(len(q))
         for s in range(0, len(q), chunk):
             out[s:s + chunk] = tree.query(q[s:s + chunk])[0]
@@ -207,11 +209,21 @@ class Applicability:
             self.tree_ = cKDTree(self.points)
         return self.tree_
 
+    def _nearest_1d(self, q: np.ndarray) -> np.ndarray:
+        """Distance to the nearest training point for a single feature: a sorted search, exact."""
+        points = np.sort(self.points[:, 0])
+        i = np.searchsorted(points, q[:, 0])
+        below = np.abs(q[:, 0] - points[np.clip(i - 1, 0, points.size - 1)])
+        above = np.abs(points[np.clip(i, 0, points.size - 1)] - q[:, 0])
+        return np.minimum(below, above)
+
     def inside(self, X, chunk: int = 50_000) -> np.ndarray:
         """Whether each row's index is within the threshold; the same as ``index(X) <= threshold``
         but faster, since the nearest-neighbour search stops at the threshold distance."""
-        tree = self._tree()
         q = self._space(X)
+        if q.shape[1] == 1:
+            return self._nearest_1d(q) / self.mean_distance <= self.threshold
+        tree = self._tree()
         bound = self.threshold * self.mean_distance * (1 + 1e-12)  # the bound is strict; the threshold is not
         out = np.empty(len(q), bool)
         for s in range(0, len(q), chunk):

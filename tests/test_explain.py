@@ -160,3 +160,21 @@ def test_applicability_flags_far_nodes_not_the_wells():
     assert np.all(aoa.index(far) > aoa.threshold)
     back = Applicability.from_dict(aoa.to_dict())
     np.testing.assert_array_equal(back.index(X), aoa.index(X))
+
+
+@pytest.mark.parametrize("n_features", [1, 3])
+def test_applicability_index_and_flags_equal_a_plain_nearest_neighbour_search(n_features):
+    # reference: scipy.spatial.cKDTree nearest-neighbour distances (the 1-feature case uses a sorted search)
+    from scipy.spatial import cKDTree
+
+    rng = np.random.default_rng(n_features)
+    names = [f"f{i}" for i in range(n_features)]
+    points = rng.normal(size=(60, n_features))
+    threshold = 0.4 if n_features == 1 else 2.0  # some nodes on each side of it
+    aoa = Applicability(names, np.zeros(n_features), np.ones(n_features), np.ones(n_features), points, 0.5,
+                        threshold)
+    X = pd.DataFrame(rng.normal(size=(5000, n_features)) * 2.5, columns=names)
+    reference = cKDTree(points).query(X.to_numpy())[0] / 0.5
+    np.testing.assert_allclose(aoa.index(X), reference, rtol=1e-12)
+    np.testing.assert_array_equal(aoa.inside(X), reference <= threshold)
+    assert 0.05 < aoa.inside(X).mean() < 0.95
