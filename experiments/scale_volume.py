@@ -49,7 +49,7 @@ def main() -> None:
     args = parser.parse_args()
     warnings.simplefilter("ignore", PredictorWarning)
     ni, nj, nk = args.size
-    with tempfile.TemporaryDirectory(dir=".") as tmp:
+    with tempfile.TemporaryDirectory() as tmp:
         tmp = Path(tmp)
         t0 = time.perf_counter()
         seismic, _, wells = make_volume_field(VolumeSpec(seed=3, n_inlines=ni, n_crosslines=nj, n_samples=nk,

@@ -64,7 +64,7 @@ def predict_tile(folder: str, grid_path: str, tile: tuple[int, int, int, int],
                  z_domain: str | None = None) -> tuple[tuple, xr.Dataset, bool]:
     """Predict one tile (with its halo): its interior, and whether some of it lies outside the
     feature range seen at the wells."""
-    from .predict import predict_maps
+    from .predict import NoValidNodes, predict_maps
 
     bundle = _bundle(folder)
     grid = _open(grid_path, z_domain)
@@ -76,8 +76,11 @@ def predict_tile(folder: str, grid_path: str, tile: tuple[int, int, int, int],
     part = grid.isel({ay: slice(ya, yb), ax: slice(xa, xb)}).load()
     part.attrs = dict(grid.attrs)
     interior = {ay: slice(y0 - ya, y0 - ya + (y1 - y0)), ax: slice(x0 - xa, x0 - xa + (x1 - x0))}
-    inner = predict_maps(bundle, part, warn=False, interior=interior)  # warnings are not thread-safe: reported
-    return tile, inner, inner.attrs["extrapolated_share"] > 0  # once, at the end
+    try:
+        inner = predict_maps(bundle, part, warn=False, interior=interior)  # warnings are not thread-safe:
+    except NoValidNodes:  # a tile in a hole of the survey: its region keeps the store's fill values
+        return tile, None, False
+    return tile, inner, inner.attrs["extrapolated_share"] > 0  # reported once, at the end
 
 
 def _open(grid_path: str, z_domain: str | None):
@@ -143,13 +146,14 @@ def predict_to_zarr(bundle_dir, grid_path, out, tile: int | None = None, threads
     ny, nx = grid.sizes[ay], grid.sizes[ax]
     all_tiles = tiles(ny, nx, tile)
     with atomic_folder(out, overwrite=overwrite) as tmp:
-        # a corner of a few nodes gives the store's layout (variables, dtypes, attributes) cheaply
-        corner = predict_tile(folder, grid_path, (0, min(8, ny), 0, min(8, nx)), z_domain)[1]
-        _template(corner, grid, tile).to_zarr(tmp, compute=False, mode="w", zarr_format=2)
+        _template(_layout(folder, grid_path, all_tiles, ny, nx, z_domain), grid, tile).to_zarr(
+            tmp, compute=False, mode="w", zarr_format=2)
         extrapolated = 0
         done = _run(folder, grid_path, all_tiles, threads, workers, scheduler, z_domain)
         for (y0, y1, x0, x1), part, outside in progress(done, "tiles", total=len(all_tiles)):
             extrapolated += outside
+            if part is None:
+                continue
             part = part.drop_vars(list(part.coords))
             part.attrs = {}
             for var in part.data_vars:
@@ -162,6 +166,16 @@ def predict_to_zarr(bundle_dir, grid_path, out, tile: int | None = None, threads
         warnings.warn(f"{extrapolated} of {len(all_tiles)} tiles hold nodes with feature values outside the range "
                       "seen at the wells; predictions there are extrapolations", PredictorWarning, stacklevel=2)
     return out
+
+
+def _layout(folder, grid_path, all_tiles, ny, nx, z_domain) -> xr.Dataset:
+    """A predicted part that shows the store's layout (variables, dtypes, attributes): a corner
+    of a few nodes when it holds data (cheap), else the first tile that does."""
+    for part in [(0, min(8, ny), 0, min(8, nx)), *all_tiles]:
+        predicted = predict_tile(folder, grid_path, part, z_domain)[1]
+        if predicted is not None:
+            return predicted
+    raise InputError(f"{grid_path}: no node has every feature the model needs")
 
 
 def _run(folder, grid_path, all_tiles, threads, workers, scheduler, z_domain=None):

@@ -25,6 +25,10 @@ from .volume import is_volume
 CHUNK_ROWS = 250_000
 
 
+class NoValidNodes(InputError):
+    """No node of the grid (or of a tile of it) has every feature the model needs."""
+
+
 def _predict_chunks(model, X: pd.DataFrame, xy: np.ndarray, chunk_rows: int) -> np.ndarray:
     parts = [model.predict(X.iloc[s:s + chunk_rows].reset_index(drop=True), xy[s:s + chunk_rows])
              for s in range(0, len(X), chunk_rows)]
@@ -57,7 +61,7 @@ def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int 
     names = card["features"]["names"]
     matrix, valid = feature_matrix(features, names)
     if not valid.any():
-        raise InputError(f"grid {grid.attrs.get('source', '')}: no node has every feature the model needs")
+        raise NoValidNodes(f"grid {grid.attrs.get('source', '')}: no node has every feature the model needs")
     X = pd.DataFrame(matrix, columns=names)
     xx, yy = node_xy(grid)
     xy = np.column_stack([xx[valid], yy[valid]])

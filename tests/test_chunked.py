@@ -62,3 +62,19 @@ def test_tile_that_cannot_fit_in_memory(bundle, tmp_path):
     with pytest.raises(InputError, match="use a smaller --tile"):
         predict_to_zarr(bundle, GRID_NC, tmp_path / "m.zarr", tile=4096, memory_limit=1e8)
     assert not (tmp_path / "m.zarr").exists()
+
+
+def test_tiles_equal_in_memory_when_the_first_corner_holds_no_data(bundle, tmp_path):
+    grid = read_grid(GRID_NC)
+    grid["impedance"][:30, :30] = np.nan  # a survey whose corner was never shot
+    from predictor.io.netcdf import write_netcdf
+
+    write_netcdf(grid, tmp_path / "holed.nc")
+    with pytest.warns(PredictorWarning):
+        ref = predict_maps(bundle, read_grid(tmp_path / "holed.nc"))
+    assert main(["--quiet", "predict", str(bundle), "--grid", str(tmp_path / "holed.nc"), "--out",
+                 str(tmp_path / "m.zarr"), "--tile", "24"]) == 0
+    tiled = xr.open_zarr(tmp_path / "m.zarr", mask_and_scale=False).load()  # flags keep their -1 fill
+    for var in ref.data_vars:
+        assert np.array_equal(tiled[var].to_numpy(), ref[var].to_numpy(), equal_nan=True), var
+    assert (tiled["facies"].to_numpy()[:24, :24] == -1).all()  # the tile in the hole was never predicted
