@@ -25,7 +25,7 @@ from .grid import read_seismic, sample_at
 from .io.jsonfile import write_json
 from .io.tables import read_wells
 from .qc import QCReport, numeric_properties, run_qc
-from .volume import is_volume, sample_volume, trace_footprint
+from .volume import is_volume, map_view, sample_volume, trace_footprint, view_depth, wells_in_view
 
 
 @dataclass
@@ -110,7 +110,11 @@ def write_check(check: DataCheck, json_path: str | Path | None = None, figures: 
         wells, grid = check.wells, check.grid
         attribute = next(iter(grid.data_vars))
         props = [c for c in ("facies", "porosity", "permeability") if c in wells] or numeric_properties(wells)[:3]
-        if not is_volume(grid):  # a volume's survey map is left to the volume figures of the report
+        if is_volume(grid):  # the map view at the wells' middle z, in survey line numbers
+            z = view_depth(grid, wells)
+            written.append(plots.location_maps(wells_in_view(wells, grid, z), map_view(grid, z), attribute, props,
+                                               folder / "wells_on_map.png"))
+        else:
             written.append(plots.location_maps(wells, grid, attribute, props, folder / "wells_on_map.png"))
         for var, bias in check.qc.bias.items():
             at_wells = _at_wells(wells, grid, var)

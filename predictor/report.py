@@ -91,9 +91,6 @@ def build_report(bundle_dir, out, grid_path=None, overwrite: bool = False, z_dom
         if is_volume(grid):  # the figures show the map view at the middle of the wells' samples
             z = view_depth(grid, wells)
             maps, shown_wells = map_view(maps, z), wells_in_view(wells, grid, z)
-            attribute = next(iter(grid.data_vars))
-            props = [c for c in ("facies", "porosity", "permeability") if c in wells]
-            plots.location_maps(shown_wells, map_view(grid, z), attribute, props, fig / "wells_on_map.png")
         sections = [_summary(card, check), _data(check, fig), _bias(check, card, fig), _leaderboard(card, fig),
                     _maps(maps, shown_wells, card, fig), _intervals(card), _why(bundle, grid, shown_wells, fig),
                     _warnings(card, [str(w.message) for w in caught]), _provenance(card)]
