@@ -25,7 +25,15 @@ from .grid import read_seismic, sample_at
 from .io.jsonfile import write_json
 from .io.tables import read_wells
 from .qc import QCReport, numeric_properties, run_qc
-from .volume import is_volume, map_view, sample_volume, trace_footprint, view_depth, wells_in_view
+from .volume import (
+    is_volume,
+    map_view,
+    sample_volume,
+    trace_footprint,
+    view_depth,
+    well_heads,
+    wells_in_view,
+)
 
 
 @dataclass
@@ -63,17 +71,6 @@ def decluster(wells: pd.DataFrame, grid: xr.Dataset, variable: str | None = None
         valid = np.all([np.isfinite(grid[v].to_numpy()) for v in grid.data_vars], axis=0)
     nearest = nearest_node_weights(wells["x"], wells["y"], xx, yy, valid)
     return cell, nearest
-
-
-def well_heads(wells: pd.DataFrame) -> tuple[pd.DataFrame, np.ndarray]:
-    """One row per well (mean position and mean numeric values of its samples) and the row of
-    ``heads`` each sample belongs to."""
-    codes, ids = pd.factorize(wells["well_id"])
-    numeric = [c for c in ("porosity", "permeability") if c in wells]
-    heads = wells.groupby(codes, sort=True)[["x", "y", *numeric]].mean().reset_index(drop=True)
-    heads.insert(0, "well_id", np.asarray(ids, dtype=object))
-    heads.attrs = dict(wells.attrs)
-    return heads, codes
 
 
 def decluster_samples(wells: pd.DataFrame, volume: xr.Dataset) -> tuple[Declustering, np.ndarray, np.ndarray]:

@@ -56,10 +56,8 @@ def run_demo(out: Path, overwrite: bool = False) -> list[str]:
         trained, bundle = train_files(inputs["wells.csv"], inputs["seismic.csv"], tmp / "bundle", TARGETS,
                                       context_radii=CONTEXT_RADII, gradient=True)
         lines += leaderboard_lines(trained)
-        with warnings.catch_warnings(record=True) as caught:
-            warnings.simplefilter("always", PredictorWarning)
-            maps = predict_maps(bundle, grid)
-        lines += [f"note: {w.message}" for w in caught]
+        maps, notes = _predict_noting(bundle, grid)
+        lines += notes
         write_maps(maps, tmp / "maps.csv")
         write_maps(maps, tmp / "maps.nc")
         plots.facies_maps(maps, "facies", wells, figures / "facies_maps.png")
@@ -78,6 +76,14 @@ def run_demo(out: Path, overwrite: bool = False) -> list[str]:
     lines.append(f"results in {out}/: report.html, qc.json, bundle/, maps.csv, maps.nc, figures/, explanations/")
     lines.append("a predicted map is a model, not a measurement; decisions rest with qualified professionals")
     return lines
+
+
+def _predict_noting(bundle, grid) -> tuple[xr.Dataset, list[str]]:
+    """Predict, keeping the warnings as notes for the printed summary."""
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", PredictorWarning)
+        maps = predict_maps(bundle, grid)
+    return maps, [f"note: {w.message}" for w in caught]
 
 
 def _against_truth(wells, check, maps: xr.Dataset, truth: xr.Dataset) -> list[str]:
@@ -125,10 +131,8 @@ def run_volume_demo(out: Path, overwrite: bool = False, spec=None) -> list[str]:
                                       context_radii=VOLUME_CONTEXT, vertical_radii=VERTICAL_RADII, z_domain="depth",
                                       segy_name="impedance")
         lines += leaderboard_lines(trained)
-        with warnings.catch_warnings(record=True) as caught:
-            warnings.simplefilter("always", PredictorWarning)
-            predicted = predict_maps(bundle, volume)
-        lines += [f"note: {w.message}" for w in caught]
+        predicted, notes = _predict_noting(bundle, volume)
+        lines += notes
         write_maps(predicted, tmp / "volume.nc")
         write_maps(predicted, tmp / "volume.sgy")
         lines += explain_bundle(bundle, tmp / "explanations", volume)

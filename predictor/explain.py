@@ -192,15 +192,8 @@ class Applicability:
     def _space(self, X) -> np.ndarray:
         return (np.asarray(X[self.features], float) - self.mean) / self.scale * self.weights
 
-    def index(self, X, chunk: int = 50_000) -> np.ndarray:
-        q = self._space(X)
-        if q.shape[1] == 1:
-            return self._nearest_1d(q) / self.mean_distance
-        tree = self._tree()
-        out = np.empty(len(q))
-        for s in range(0, len(q), chunk):
-            out[s:s + chunk] = tree.query(q[s:s + chunk])[0]
-        return out / self.mean_distance
+    def index(self, X) -> np.ndarray:
+        return self._distance(X) / self.mean_distance
 
     def _tree(self):
         from scipy.spatial import cKDTree
@@ -217,19 +210,22 @@ class Applicability:
         above = np.abs(points[np.clip(i, 0, points.size - 1)] - q[:, 0])
         return np.minimum(below, above)
 
-    def inside(self, X, chunk: int = 50_000) -> np.ndarray:
+    def _distance(self, X, bound: float = np.inf, chunk: int = 50_000) -> np.ndarray:
+        """Distance to the nearest training point in the weighted feature space (inf beyond ``bound``)."""
+        q = self._space(X)
+        if q.shape[1] == 1:  # a sorted search: exact, and much faster than a tree in one dimension
+            return self._nearest_1d(q)
+        tree = self._tree()
+        out = np.empty(len(q))
+        for s in range(0, len(q), chunk):
+            out[s:s + chunk] = tree.query(q[s:s + chunk], distance_upper_bound=bound)[0]
+        return out
+
+    def inside(self, X) -> np.ndarray:
         """Whether each row's index is within the threshold; the same as ``index(X) <= threshold``
         but faster, since the nearest-neighbour search stops at the threshold distance."""
-        q = self._space(X)
-        if q.shape[1] == 1:
-            return self._nearest_1d(q) / self.mean_distance <= self.threshold
-        tree = self._tree()
         bound = self.threshold * self.mean_distance * (1 + 1e-12)  # the bound is strict; the threshold is not
-        out = np.empty(len(q), bool)
-        for s in range(0, len(q), chunk):
-            out[s:s + chunk] = tree.query(q[s:s + chunk], distance_upper_bound=bound)[0] / self.mean_distance \
-                <= self.threshold
-        return out
+        return self._distance(X, bound) / self.mean_distance <= self.threshold
 
     def to_dict(self) -> dict:
         return {"features": self.features, "mean": self.mean.tolist(), "scale": self.scale.tolist(),

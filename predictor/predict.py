@@ -199,9 +199,9 @@ def check_format(path: str | Path, volume: bool) -> Path:
 def write_maps(maps: xr.Dataset, path: str | Path, overwrite: bool = False, crs_wkt: str | None = None) -> Path:
     """Write maps to CSV (.csv), CF NetCDF (.nc) or GeoTIFF (.tif), atomically; volumes to
     CSV, NetCDF, Zarr (.zarr) or SEG-Y (.sgy: one file per variable, ``<stem>_<variable>.sgy``)."""
-    path = check_format(path, is_volume(maps))
-    suffix = path.suffix.lower()
     volume = is_volume(maps)
+    path = check_format(path, volume)
+    suffix = path.suffix.lower()
     check_target(path, overwrite)
     if suffix in (".tif", ".tiff"):
         from .io.geotiff import write_geotiff

@@ -19,7 +19,7 @@ from scipy.spatial import cKDTree
 
 from .errors import InputError, PredictorWarning, list_rows
 from .grid import sample_at
-from .volume import is_volume, sample_volume, wells_z_domain
+from .volume import is_volume, sample_volume, well_heads, wells_z_domain
 
 Severity = Literal["error", "warning", "note"]
 POSITIVE_HINTS = ("imped", "velocity", "vp", "vs", "density", "rho")
@@ -174,8 +174,7 @@ def sample_duplicate_findings(wells: pd.DataFrame, tolerance: float = 1.0) -> li
         names = [f"{w} at z {z:g}" for w, z in twice[["well_id", "z"]].drop_duplicates().itertuples(index=False)]
         found.append(Finding("warning", "duplicates", "well_id,z", f"samples given twice: {list_rows(names)}; "
                              "keep one row per well and z", names))
-    heads = wells.groupby("well_id", sort=False)[["x", "y"]].mean()
-    return found + [f for f in duplicate_findings(heads.reset_index(), tolerance) if f.column == "x,y"]
+    return found + [f for f in duplicate_findings(well_heads(wells)[0], tolerance) if f.column == "x,y"]
 
 
 def outlier_findings(wells: pd.DataFrame, columns: list[str], facies: str | None = "facies",

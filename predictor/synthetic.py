@@ -152,14 +152,18 @@ def make_field(spec: FieldSpec | None = None) -> tuple[xr.Dataset, xr.Dataset, p
     return seismic, truth, wells
 
 
+def _preferential(rng, smooth: np.ndarray, n: int, strength: float) -> tuple[np.ndarray, np.ndarray]:
+    """Indices of ``n`` distinct cells drawn with probability growing as exp(strength x the
+    standardised smoothed porosity): wells crowd the best rock."""
+    score = (smooth - smooth.mean()) / smooth.std()
+    prob = np.exp(strength * score).ravel()
+    picks = rng.choice(prob.size, size=n, replace=False, p=prob / prob.sum())
+    return np.unravel_index(picks, smooth.shape)
+
+
 def _drill(spec: FieldSpec, rng, xs, ys, porosity) -> pd.DataFrame:
     """Preferential wells where (smoothed) porosity is high, plus a sparse regular pattern."""
-    smooth = gaussian_filter(porosity, sigma=3)
-    score = (smooth - smooth.mean()) / smooth.std()
-    prob = np.exp(spec.drilling_strength * score).ravel()
-    prob /= prob.sum()
-    picks = rng.choice(prob.size, size=spec.n_preferential, replace=False, p=prob)
-    iy, ix = np.unravel_index(picks, porosity.shape)
+    iy, ix = _preferential(rng, gaussian_filter(porosity, sigma=3), spec.n_preferential, spec.drilling_strength)
     px = xs[ix] + rng.uniform(-0.4, 0.4, ix.size) * spec.spacing
     py = ys[iy] + rng.uniform(-0.4, 0.4, iy.size) * spec.spacing
     nrx, nry = spec.regular_pattern
@@ -288,10 +292,7 @@ def _drill_volume(spec: VolumeSpec, rng, porosity, codes, permeability, affine, 
     """Wells preferentially where the column's porosity is high, plus a regular pattern; a share
     of them deviated; one sample per ``z_step`` along each well with a little measurement noise."""
     column = gaussian_filter(porosity.mean(axis=0), sigma=2)
-    score = (column - column.mean()) / column.std()
-    prob = np.exp(spec.drilling_strength * score).ravel()
-    picks = rng.choice(prob.size, size=spec.n_preferential, replace=False, p=prob / prob.sum())
-    ii, jj = (a.astype(float) for a in np.unravel_index(picks, column.shape))
+    ii, jj = (a.astype(float) for a in _preferential(rng, column, spec.n_preferential, spec.drilling_strength))
     ri, rj = spec.regular_pattern
     gi, gj = (a.ravel() for a in np.meshgrid(np.linspace(0, il.size - 1, ri + 2)[1:-1],
                                              np.linspace(0, xl.size - 1, rj + 2)[1:-1], indexing="ij"))

@@ -165,11 +165,16 @@ def _check_inputs(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) 
                                               "run `predictor qc` for the full list)"))
 
 
+def _chosen(cell, nearest: np.ndarray, method: str) -> tuple[np.ndarray, dict]:
+    """Model/score weights by ``method`` and the summary the card records."""
+    model = {"cell": cell.weights, "nearest_node": nearest, "none": np.ones(len(nearest))}[method]
+    return model, {"model_weights": method, "statistics_weights": "nearest_node", "cell": cell.summary()}
+
+
 def _weights(wells: pd.DataFrame, grid: xr.Dataset, method: str) -> tuple[np.ndarray, np.ndarray, np.ndarray, dict]:
     """Model/score weights (by ``method``), nearest-node and cell weights for statistics, and a summary."""
     cell, nearest = decluster(wells, grid)
-    model = {"cell": cell.weights, "nearest_node": nearest, "none": np.ones(len(wells))}[method]
-    summary = {"model_weights": method, "statistics_weights": "nearest_node", "cell": cell.summary()}
+    model, summary = _chosen(cell, nearest, method)
     return model, nearest, cell.weights, summary
 
 
@@ -177,9 +182,8 @@ def _volume_weights(wells: pd.DataFrame, volume: xr.Dataset, method: str):
     """Per-sample weights from the lateral declustering of the wells (their mean positions):
     each sample carries its well's weight, so a well counts by the thickness it samples."""
     cell, nearest, codes = decluster_samples(wells, volume)
-    model = {"cell": cell.weights, "nearest_node": nearest, "none": np.ones(len(nearest))}[method]
-    summary = {"model_weights": method, "statistics_weights": "nearest_node", "cell": cell.summary(),
-               "per_sample": "each sample carries the lateral declustering weight of its well"}
+    model, summary = _chosen(cell, nearest, method)
+    summary["per_sample"] = "each sample carries the lateral declustering weight of its well"
     head_xy = wells[["x", "y"]].groupby(codes).transform("mean").to_numpy(float)
     return model[codes], nearest[codes], cell.weights[codes], summary, codes, head_xy
 

@@ -136,12 +136,16 @@ def read_volume(path: str | Path, lazy: bool = False, z_domain: ZDomain | None =
     return check_volume(ds, str(path), z_domain)
 
 
+def _lines(vol: xr.Dataset) -> tuple[float, float, float, float]:
+    """(first inline, inline step, first crossline, crossline step) of the volume's lattice."""
+    il, xl = vol.inline.to_numpy().astype(float), vol.crossline.to_numpy().astype(float)
+    return il[0], il[1] - il[0] if il.size > 1 else 1.0, xl[0], xl[1] - xl[0] if xl.size > 1 else 1.0
+
+
 def lateral_spacing(vol: xr.Dataset) -> tuple[float, float]:
     """Distance in metres between neighbouring inlines and between neighbouring crosslines."""
     _, dxi, dxx, _, dyi, dyx = vol.attrs["affine"]
-    il, xl = vol.inline.to_numpy(), vol.crossline.to_numpy()
-    step_il = float(il[1] - il[0]) if il.size > 1 else 1.0
-    step_xl = float(xl[1] - xl[0]) if xl.size > 1 else 1.0
+    _, step_il, _, step_xl = _lines(vol)
     return float(np.hypot(dxi, dyi) * step_il), float(np.hypot(dxx, dyx) * step_xl)
 
 
@@ -154,10 +158,8 @@ def fractional_index(vol: xr.Dataset, x, y) -> tuple[np.ndarray, np.ndarray]:
     x0, dxi, dxx, y0, dyi, dyx = vol.attrs["affine"]
     M = np.array([[dxi, dxx], [dyi, dyx]])
     lines = np.linalg.solve(M, np.vstack([np.asarray(x, float) - x0, np.asarray(y, float) - y0]))
-    il, xl = vol.inline.to_numpy().astype(float), vol.crossline.to_numpy().astype(float)
-    step_il = il[1] - il[0] if il.size > 1 else 1.0
-    step_xl = xl[1] - xl[0] if xl.size > 1 else 1.0
-    return (lines[0] - il[0]) / step_il, (lines[1] - xl[0]) / step_xl
+    il0, step_il, xl0, step_xl = _lines(vol)
+    return (lines[0] - il0) / step_il, (lines[1] - xl0) / step_xl
 
 
 def trace_footprint(vol: xr.Dataset) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -176,6 +178,17 @@ def domain_of_column(column: str | None) -> ZDomain:
     if any(name == w or name.startswith(w + "_") for w in DEPTH_WORDS):
         return "depth"
     return "unknown"
+
+
+def well_heads(wells: pd.DataFrame) -> tuple[pd.DataFrame, np.ndarray]:
+    """One row per well (mean position and mean numeric values of its samples) and the row of
+    ``heads`` each sample belongs to."""
+    codes, ids = pd.factorize(wells["well_id"])
+    numeric = [c for c in ("porosity", "permeability") if c in wells]
+    heads = wells.groupby(codes, sort=True)[["x", "y", *numeric]].mean().reset_index(drop=True)
+    heads.insert(0, "well_id", np.asarray(ids, dtype=object))
+    heads.attrs = dict(wells.attrs)
+    return heads, codes
 
 
 def wells_z_domain(wells: pd.DataFrame) -> ZDomain:
@@ -332,7 +345,5 @@ def wells_in_view(wells: pd.DataFrame, vol: xr.Dataset, z: float) -> pd.DataFram
     """Each well's sample nearest to ``z``, placed in survey line numbers as :func:`map_view` draws."""
     nearest = wells.assign(_dz=(wells["z"] - z).abs()).sort_values("_dz").drop_duplicates("well_id")
     fi, fj = fractional_index(vol, nearest["x"], nearest["y"])
-    il, xl = vol.inline.to_numpy().astype(float), vol.crossline.to_numpy().astype(float)
-    step_il = il[1] - il[0] if il.size > 1 else 1.0
-    step_xl = xl[1] - xl[0] if xl.size > 1 else 1.0
-    return nearest.drop(columns="_dz").assign(x=xl[0] + fj * step_xl, y=il[0] + fi * step_il).sort_index()
+    il0, step_il, xl0, step_xl = _lines(vol)
+    return nearest.drop(columns="_dz").assign(x=xl0 + fj * step_xl, y=il0 + fi * step_il).sort_index()

@@ -88,9 +88,8 @@ def write_zarr(ds: xr.Dataset, target: str | Path, overwrite: bool = True, crs_w
     from .atomic import atomic_folder
 
     out = _cf(ds, crs_wkt)
-    out.attrs["affine"] = [float(v) for v in out.attrs["affine"]] if "affine" in out.attrs else None
-    if out.attrs["affine"] is None:
-        del out.attrs["affine"]
+    if "affine" in out.attrs:  # Zarr attributes are JSON: a plain list, not an array
+        out.attrs["affine"] = [float(v) for v in out.attrs["affine"]]
     # chunks a tiled reader can take one at a time: whole traces of 64 x 64 for volumes, 512 x 512 for maps
     sizes = {"z": -1, "inline": 64, "crossline": 64} if "z" in out.dims else {"y": 512, "x": 512}
     out = out.chunk({d: c for d, c in sizes.items() if d in out.dims})
