@@ -35,7 +35,18 @@ def _volume_options(p: argparse.ArgumentParser) -> None:
                    help="(SEG-Y) name of the attribute the file holds, as the model knows it (default amplitude)")
 
 
+def _monotone(text: str) -> tuple[str, int]:
+    """``ATTR:-1`` or ``ATTR:1`` for --monotone."""
+    name, _, direction = text.rpartition(":")
+    if not name or direction not in ("-1", "1", "+1"):
+        raise argparse.ArgumentTypeError(f"{text!r}: give an attribute and a direction, e.g. impedance:-1 "
+                                         "(non-increasing) or impedance:1 (non-decreasing)")
+    return name, int(direction)
+
+
 def build_parser() -> argparse.ArgumentParser:
+    from .cv_design import DESIGNS
+
     parser = argparse.ArgumentParser(prog="predictor", description=__doc__.splitlines()[0])
     parser.add_argument("--debug", action="store_true", help="show the full traceback on errors")
     parser.add_argument("--quiet", action="store_true", help="no progress bars")
@@ -68,13 +79,16 @@ def build_parser() -> argparse.ArgumentParser:
     tr.add_argument("--folds", type=int, default=5, help="number of spatial CV folds (default 5)")
     tr.add_argument("--block-size", type=float, help="CV block side in metres (default: fitted variogram range)")
     tr.add_argument("--block-angle", type=float, default=0.0, help="rotation of the CV blocks in degrees")
-    tr.add_argument("--cv", choices=["blocks", "buffered"], default="blocks",
-                    help="block k-fold, or buffered leave-one-out with the block size as exclusion radius")
+    tr.add_argument("--cv", choices=list(DESIGNS), default="matched",
+                    help="fold design: matched to the map's prediction distances (default, kNNDM), nndm "
+                    "(leave-one-out matched to the map, for small well sets), blocks (block k-fold), buffered "
+                    "(leave-one-out with the block size as exclusion radius) or random (contrast only)")
     tr.add_argument("--declustering", choices=["cell", "nearest_node", "none"], default="cell",
                     help="declustering weights used as sample weights and score weights (default cell); "
                     "declustered statistics always use nearest-node weights")
-    tr.add_argument("--monotone", action="store_true",
-                    help="also try LightGBM constrained to be non-increasing in impedance")
+    tr.add_argument("--monotone", action="append", type=_monotone, metavar="ATTR:DIR",
+                    help="also try LightGBM constrained in this attribute: -1 non-increasing, 1 non-decreasing "
+                    "(e.g. --monotone impedance:-1; repeatable)")
     tr.add_argument("--well-ties", choices=["auto", "always", "never"], default="auto",
                     help="krige out-of-fold residuals onto the map: when CV shows it helps (auto), always, never")
     tr.add_argument("--interval-spread", choices=["none", "features", "kriging"], default="features",
@@ -152,7 +166,8 @@ def _cmd_train(args) -> int:
                                   attributes=args.attribute, context_radii=args.context_radius,
                                   gradient=args.gradient, location=args.location, n_splits=args.folds,
                                   block_size=args.block_size, block_angle=args.block_angle, cv=args.cv,
-                                  declustering=args.declustering, monotone=args.monotone, well_ties=args.well_ties,
+                                  declustering=args.declustering,
+                                  monotone=dict(args.monotone) if args.monotone else None, well_ties=args.well_ties,
                                   interval_spread=args.interval_spread, drop_outside=args.drop_outside,
                                   seed=args.seed, n_threads=args.threads, candidates=args.candidate,
                                   porosity_percent=args.porosity_percent, x=args.x_column, y=args.y_column,

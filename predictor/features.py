@@ -41,6 +41,7 @@ class FeatureSpec:
     vertical_radii : (volumes) smoothing radii along z, in z units (m or ms): a smoothed
         attribute and its contrast per radius, for the layering around each sample
     z_coordinate : (volumes) add z itself, for a compaction or depth trend
+    chosen_by : how this set was chosen (recorded in the card)
     """
 
     attributes: list[str]
@@ -50,6 +51,7 @@ class FeatureSpec:
     rotation: float = 45.0
     vertical_radii: list[float] = field(default_factory=list)
     z_coordinate: bool = False
+    chosen_by: str = "given by the user"
 
     def to_dict(self) -> dict:
         return asdict(self)

@@ -1,13 +1,16 @@
-"""Prediction intervals calibrated on spatial-CV out-of-fold residuals (conformal style).
+"""Prediction intervals calibrated on spatial-CV out-of-fold residuals (weighted conformal).
 
-The q10 and q90 offsets are weighted quantiles of the out-of-fold residuals, with the
-declustering weights, so that about 80 % of *map cells* (not of drilled spots) fall inside
-[q10, q90].  Split-conformal reasoning (Lei et al. 2018, JASA; Barber et al. 2021, Annals of
-Statistics for the cross-validation variant) gives coverage of at least the nominal level
-under exchangeability; the levels are widened by the usual finite-sample correction, using
-the effective sample size of the weights.  With ``spread`` the residuals are first divided
-by a local spread (for instance the kriging standard deviation of the well ties), so
-intervals narrow near wells and widen away from them.
+The q10 and q90 offsets are weighted quantiles of the out-of-fold residuals of the fold design
+that matches the map's prediction distances, weighted by the declustering weights, so that
+about 80 % of *map cells* (not of drilled spots) fall inside [q10, q90].  Weighted
+split-conformal prediction (Tibshirani, Barber, Candes & Ramdas 2019, NeurIPS; Barber et al.
+2021, Annals of Statistics for the cross-validation variant): the calibration residuals carry
+masses w_i / (sum w + w_test) and the test point's own mass w_test / (sum w + w_test) sits at
++infinity (at -infinity for the lower bound); leaving it out would break coverage.  The
+weights are normalised to the effective number of wells, so the test point counts as one
+well.  With ``spread`` the residuals are first divided by a local spread, so intervals are
+wider where the model errs more.  ``bounds`` keeps a target in its physical range (porosity
+in [0, 1]).
 """
 
 from __future__ import annotations
@@ -16,9 +19,8 @@ from dataclasses import asdict, dataclass
 
 import numpy as np
 
-from .stats import weighted_quantile
-
 LOW, HIGH = 0.1, 0.9
+PHYSICAL_BOUNDS = {"porosity": (0.0, 1.0)}  # a fraction (common practice); permeability is mapped as log10
 
 
 @dataclass
@@ -29,38 +31,60 @@ class IntervalCalibration:
     high: float = HIGH
     scaled: bool = False
     n_effective: float = 0.0
+    bounds: tuple[float, float] | None = None
+    method: str = "weighted split-conformal"
 
     def to_dict(self) -> dict:
         return asdict(self)
 
+    def clip(self, values) -> np.ndarray:
+        values = np.asarray(values, float)
+        return values if self.bounds is None else np.clip(values, *self.bounds)
+
     def apply(self, q50, spread=None) -> tuple[np.ndarray, np.ndarray]:
-        """q10 and q90 around ``q50``; q10 <= q50 <= q90 everywhere."""
+        """q10 and q90 around ``q50``, inside the physical bounds; q10 <= q50 <= q90 everywhere
+        once ``q50`` is clipped to the same bounds (see :meth:`clip`)."""
         q50 = np.asarray(q50, float)
         scale = np.asarray(spread, float) if (self.scaled and spread is not None) else 1.0
-        return q50 + self.lower * scale, q50 + self.upper * scale
+        return self.clip(q50 + self.lower * scale), self.clip(q50 + self.upper * scale)
 
 
-def effective_size(weights) -> float:
+def effective_size(weights, units=None) -> float:
+    """Kish's effective sample size (sum w)^2 / sum w^2; with ``units`` (the well of each row)
+    the weights are summed per well first: samples along one well are not independent."""
     w = np.asarray(weights, float)
+    if units is not None:
+        w = np.bincount(np.unique(np.asarray(units), return_inverse=True)[1], weights=w)
     return float(w.sum() ** 2 / np.sum(w**2))
 
 
-def calibrate(residuals, weights=None, low: float = LOW, high: float = HIGH, spread=None) -> IntervalCalibration:
+def conformal_quantile(scores, weights, level: float, test_mass: float) -> float:
+    """The ``level`` quantile of sum_i p_i delta(score_i) + p_test delta(+inf) with p_i = w_i /
+    (sum w + test_mass) (Tibshirani et al. 2019); +inf when the residuals' mass cannot reach it."""
+    order = np.argsort(scores)
+    s, w = np.asarray(scores, float)[order], np.asarray(weights, float)[order]
+    cdf = np.cumsum(w) / (w.sum() + test_mass)
+    k = int(np.searchsorted(cdf, level - 1e-12))
+    return float(s[k]) if k < len(s) else np.inf
+
+
+def calibrate(residuals, weights=None, low: float = LOW, high: float = HIGH, spread=None, units=None,
+              bounds: tuple[float, float] | None = None) -> IntervalCalibration:
     """Offsets from out-of-fold residuals (observed minus predicted)."""
     r = np.asarray(residuals, float)
     w = np.ones_like(r) if weights is None else np.asarray(weights, float)
     scaled = spread is not None
     if scaled:
         r = r / np.maximum(np.asarray(spread, float), 1e-12)
-    n = effective_size(w)
-    # finite-sample widening: the k-th smallest of n residuals is exceeded by a new one with
-    # probability 1 - k/(n + 1), so take k = ceil((n + 1) high) and floor((n + 1) low)
-    # (the small epsilon keeps k/n from rounding past the k-th value)
-    hi_level = min(1.0, np.ceil((n + 1) * high - 1e-9) / n) - 1e-9
-    lo_level = max(0.0, np.floor((n + 1) * low + 1e-9) / n - 1e-9)
-    lower = min(float(weighted_quantile(r, lo_level, w)), 0.0)
-    upper = max(float(weighted_quantile(r, hi_level, w)), 0.0)
-    return IntervalCalibration(lower, upper, low, high, scaled, n)
+    n = effective_size(w, units)
+    mass = w * n / w.sum()  # the weights in effective wells; the test point weighs one
+    upper = conformal_quantile(r, mass, high, 1.0)
+    lower = -conformal_quantile(-r, mass, 1.0 - low, 1.0)
+    # too few wells to reach the level: the widest residual seen (said in the card by n_effective)
+    upper = float(np.max(r)) if not np.isfinite(upper) else upper
+    lower = float(np.min(r)) if not np.isfinite(lower) else lower
+    return IntervalCalibration(min(lower, 0.0), max(upper, 0.0), low, high, scaled, n,
+                               None if bounds is None else tuple(bounds))
 
 
 class SpreadModel:

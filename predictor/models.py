@@ -35,8 +35,11 @@ class FitData:
 
     X : table of shape (n_wells, n_features); y : target of shape (n_wells,) (class codes
     0..K-1 for classification); weights : declustering weights; xy : coordinates (n_wells, 2);
-    groups : spatial block labels (for early stopping and inner folds); facies : facies codes
-    or -1 where unknown (for the facies mixture).
+    groups : spatial block labels (for early stopping); facies : facies codes or -1 where
+    unknown (for the facies mixture); units : the well of each row (several rows per well in a
+    volume); map_distances : the map's nearest-well distances, which inner folds (well ties)
+    are matched to; rows : each row's index in the target's full training table (a blend
+    refits its weights on the out-of-fold predictions of exactly these rows).
     """
 
     X: pd.DataFrame
@@ -49,11 +52,36 @@ class FitData:
     facies_classes: list[str] = field(default_factory=list)
     seed: int = 0
     n_threads: int = 1
+    units: np.ndarray | None = None
+    map_distances: np.ndarray | None = None
+    rows: np.ndarray | None = None
+    n_splits: int = 5
+
+    def __post_init__(self):
+        n = len(self.y)
+        self.units = np.arange(n) if self.units is None else np.asarray(self.units)
+        self.rows = np.arange(n) if self.rows is None else np.asarray(self.rows)
 
     def subset(self, index) -> FitData:
         return FitData(self.X.iloc[index].reset_index(drop=True), self.y[index], self.weights[index], self.xy[index],
                        self.groups[index], self.classes, None if self.facies is None else self.facies[index],
-                       self.facies_classes, self.seed, self.n_threads)
+                       self.facies_classes, self.seed, self.n_threads, self.units[index], self.map_distances,
+                       self.rows[index], self.n_splits)
+
+    def inner_splits(self) -> list[tuple[np.ndarray, np.ndarray]]:
+        """Folds over these rows for a nested CV: matched to the map's distances when known
+        (kNNDM), else whole spatial blocks."""
+        from .cv_design import design_folds
+
+        codes, heads_index = np.unique(self.units, return_inverse=True)
+        n_units = codes.size
+        k = max(2, min(self.n_splits, n_units))
+        if self.map_distances is not None and n_units >= 2 * k:
+            heads = np.column_stack([np.bincount(heads_index, self.xy[:, i]) / np.bincount(heads_index)
+                                     for i in (0, 1)])
+            return design_folds("matched", heads, heads_index, self.map_distances, k, 1.0, seed=self.seed).splits
+        k = max(2, min(k, np.unique(self.groups).size))
+        return list(GroupKFold(n_splits=k).split(np.zeros(len(self.y)), None, self.groups))
 
 
 def _softmax(z: np.ndarray) -> np.ndarray:
@@ -339,20 +367,20 @@ class FaciesMixture:
 class WellTies:
     """A regression model corrected near the wells by kriging its out-of-fold residuals.
 
-    The residuals come from an inner block cross-validation of the training wells, so they are
-    the errors the model makes away from its own training data, which is what the map needs.
+    The residuals come from an inner cross-validation of the training wells with folds matched
+    to the map's prediction distances, so they are the errors the model makes as far from its
+    training data as a map node is from its nearest well, which is what the map needs.
     """
 
     task = "regression"
 
-    def __init__(self, base, inner_splits: int = 4):
+    def __init__(self, base):
         self.base = base
-        self.inner_splits = inner_splits
         self.name = f"{base.name}+well_ties"
         self.features = base.features
 
     def fit(self, data: FitData) -> WellTies:
-        oof = out_of_fold(self.base, data, min(self.inner_splits, np.unique(data.groups).size))
+        oof = out_of_fold(self.base, data)
         self.base.fit(data)
         self.kriging_ = OrdinaryKriging().fit(data.xy[:, 0], data.xy[:, 1], data.y - oof)
         return self
@@ -378,17 +406,24 @@ class Blend:
     """Weighted average of fitted candidates (stacking with non-negative weights summing to one).
 
     The weights are fitted to the members' out-of-fold predictions (Breiman 1996, stacked
-    regressions), so they reward what each member does away from its training wells.
+    regressions), so they reward what each member does away from its training wells.  With
+    ``member_oof`` (the members' out-of-fold predictions for every row of the target's table,
+    shape (n, m) or (n, m, k)) ``fit`` refits the weights on the rows it is given, so a blend
+    cross-validated inside a fold (well ties around it, say) never sees the held-out wells.
     """
 
-    def __init__(self, members: list, weights, name: str = "blend"):
+    def __init__(self, members: list, weights, name: str = "blend", member_oof=None, y_all=None):
         self.task = members[0].task
         self.members = members
         self.weights = np.asarray(weights, float)
         self.name = name
         self.features = sorted({f for m in members for f in m.features})
+        self.member_oof = member_oof
+        self.y_all = y_all
 
     def fit(self, data: FitData) -> Blend:
+        if self.member_oof is not None:
+            self.weights = blend_weights(self.member_oof[data.rows], self.y_all[data.rows], data.weights)
         self.members = [type_copy(m).fit(data) for m in self.members]
         return self
 
@@ -433,26 +468,41 @@ def blend_weights(predictions: np.ndarray, y: np.ndarray, sample_weight: np.ndar
     return w / w.sum()
 
 
-def out_of_fold(candidate, data: FitData, n_splits: int) -> np.ndarray:
-    """Out-of-fold predictions of ``candidate`` over folds of whole blocks (``data.groups``)."""
-    n_splits = max(2, n_splits)
-    oof = np.zeros(len(data.y)) if candidate.task == "regression" else np.zeros((len(data.y), len(data.classes)))
-    for train, test in GroupKFold(n_splits=n_splits).split(np.zeros(len(data.y)), None, data.groups):
+def fold_predictions(splits, n: int, fit_predict) -> np.ndarray:
+    """The one fold loop of the project: ``fit_predict(train_rows, test_rows)`` for each split,
+    its values placed at the test rows of an array of ``n`` rows."""
+    out = None
+    for train, test in splits:
+        values = np.asarray(fit_predict(train, test))
+        if out is None:
+            out = np.zeros((n,) + values.shape[1:])
+        out[test] = values
+    return out
+
+
+def out_of_fold(candidate, data: FitData, splits=None) -> np.ndarray:
+    """Out-of-fold predictions of ``candidate`` over ``splits`` ((train, test) row pairs; by
+    default the nested folds of :meth:`FitData.inner_splits`)."""
+    splits = data.inner_splits() if splits is None else splits
+
+    def fit_predict(train, test):
         model = type_copy(candidate).fit(data.subset(train))
-        oof[test] = model.predict(data.X.iloc[test].reset_index(drop=True), data.xy[test])
-    return oof
+        return model.predict(data.X.iloc[test].reset_index(drop=True), data.xy[test])
+
+    return fold_predictions(splits, len(data.y), fit_predict)
 
 
 def type_copy(candidate):
     """An unfitted copy of a candidate with the same settings."""
     if isinstance(candidate, WellTies):
-        return WellTies(type_copy(candidate.base), candidate.inner_splits)
+        return WellTies(type_copy(candidate.base))
     if isinstance(candidate, LightGBM):
         return LightGBM(candidate.task, candidate.features, candidate.name, candidate.monotone, candidate.max_rounds)
     if isinstance(candidate, Kriging):
         return Kriging(candidate.name)
     if isinstance(candidate, Blend):
-        return Blend([type_copy(m) for m in candidate.members], candidate.weights, candidate.name)
+        return Blend([type_copy(m) for m in candidate.members], candidate.weights, candidate.name,
+                     candidate.member_oof, candidate.y_all)
     return type(candidate)(candidate.features, candidate.name)
 
 

@@ -1,7 +1,8 @@
 """Maps from a model bundle: features built on the grid, predicted chunk by chunk, written
 as CSV or CF NetCDF (chosen by the file extension).
 
-Per regression target ``t``: ``t`` (the median, q50), ``t_q10`` and ``t_q90``; per
+Per regression target ``t``: ``t`` (the model's mean; for permeability, modelled as log10,
+10 to the mean of log10, about the median), ``t_q10`` and ``t_q90``; per
 classification target: ``t`` (most probable class) and ``t_prob_<class>``.  Nodes where an
 attribute is missing stay empty.
 """
@@ -114,9 +115,12 @@ def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int 
         cal = bundle.calibrations[target]
         spread = local_spread(bundle.spreads[target], model, X, xy) if cal.scaled else None
         q10, q90 = cal.apply(raw, spread)
-        back = (lambda v: 10.0**v) if info.get("transform") == "log10" else (lambda v: v)
+        raw = cal.clip(raw)
+        log = info.get("transform") == "log10"
+        back = (lambda v: 10.0**v) if log else (lambda v: v)
         units = "mD" if target == "permeability" else ("1" if target == "porosity" else "")
-        for suffix, values, label in (("", raw, "median (q50)"), ("_q10", q10, "10th percentile (q10)"),
+        point = "10 to the mean of log10 (about the median)" if log else "mean (least-squares prediction)"
+        for suffix, values, label in (("", raw, point), ("_q10", q10, "10th percentile (q10)"),
                                       ("_q90", q90, "90th percentile (q90)")):
             out[f"{target}{suffix}"] = (dims, on_grid(back(values)))
             out[f"{target}{suffix}"].attrs.update(units=units, long_name=f"{target} {label}")

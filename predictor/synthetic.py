@@ -52,6 +52,7 @@ class FieldSpec:
     seismic_blur: float = 1.5  # Gaussian blur of the inverted impedance, in cells
     seismic_noise: float = 0.03  # relative noise of the impedance
     trend: float = 0.06  # relative regional impedance change across the map, unrelated to porosity
+    second_attribute: bool = False  # add an inverted Vp/Vs map, lower in sand, with its own noise
 
 
 def _random_field(rng, shape, length_cells):
@@ -136,6 +137,13 @@ def make_field(spec: FieldSpec | None = None) -> tuple[xr.Dataset, xr.Dataset, p
              "spec": str(asdict(spec))}
     seismic = xr.Dataset({"impedance": (("y", "x"), np.round(impedance, 2))}, coords=coords, attrs=attrs)
     seismic["impedance"].attrs.update(units="m/s*g/cm3", long_name="acoustic impedance (inverted)")
+    if spec.second_attribute:
+        # Vp/Vs falls from shale to sand (common practice); an independent inversion, blurred and noisy
+        vp_vs = 1.95 - 0.9 * (porosity - 0.07) - 0.05 * (codes == 2)
+        vp_vs = gaussian_filter(vp_vs, sigma=spec.seismic_blur * 1.5, mode="nearest")
+        vp_vs = vp_vs + 0.025 * gaussian_filter(rng.standard_normal(xx.shape), sigma=1.5) / 0.2
+        seismic["vp_vs"] = (("y", "x"), np.round(vp_vs, 4))
+        seismic["vp_vs"].attrs.update(units="1", long_name="Vp/Vs ratio (inverted)")
     truth = xr.Dataset(
         {
             "facies": (("y", "x"), codes.astype(np.int8)),

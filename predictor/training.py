@@ -13,9 +13,9 @@ from typing import Literal
 import numpy as np
 import pandas as pd
 import xarray as xr
-from sklearn.model_selection import KFold
 
 from .checks import decluster, decluster_samples
+from .cv_design import DESIGNS, FoldDesign, design_folds, distance_summary, map_distances
 from .declustering import declustered_statistics
 from .errors import InputError, ModelError, PredictorWarning
 from .explain import (
@@ -33,7 +33,8 @@ from .features import (
     features_at_wells,
     location_features,
 )
-from .intervals import IntervalCalibration, SpreadModel, calibrate, effective_size
+from .grid import spacing
+from .intervals import PHYSICAL_BOUNDS, IntervalCalibration, SpreadModel, calibrate, effective_size
 from .models import (
     Blend,
     FaciesMixture,
@@ -46,19 +47,15 @@ from .models import (
     WellTies,
     blend_weights,
     combine,
+    fold_predictions,
+    out_of_fold,
     type_copy,
 )
 from .progress import progress
 from .qc import grid_findings, physical_findings
-from .spatial_cv import (
-    BlockKFold,
-    BufferedLeaveOneOut,
-    block_labels,
-    classification_scores,
-    regression_scores,
-)
+from .spatial_cv import block_labels, classification_scores, regression_scores
 from .variogram import auto_variogram
-from .volume import is_volume, wells_z_domain
+from .volume import is_volume, lateral_spacing, trace_footprint, wells_z_domain, z_step
 
 Task = Literal["regression", "classification"]
 BASELINES = ("linear", "logistic", "ordinary_kriging", "regression_kriging")
@@ -75,9 +72,9 @@ class TrainOptions:
     n_splits: int = 5
     block_size: float | None = None
     block_angle: float = 0.0
-    cv: Literal["blocks", "buffered"] = "blocks"
+    cv: Literal["matched", "nndm", "blocks", "buffered", "random"] = "matched"
     declustering: Literal["cell", "nearest_node", "none"] = "cell"
-    monotone: bool = False
+    monotone: dict[str, int] | None = None  # attribute -> -1 (non-increasing) or 1, e.g. {"impedance": -1}
     well_ties: Literal["auto", "always", "never"] = "auto"
     interval_spread: Literal["none", "features", "kriging"] = "features"
     sample_method: Literal["bilinear", "nearest"] = "bilinear"
@@ -90,6 +87,17 @@ class TrainOptions:
         out = asdict(self)
         out["features"] = self.features.to_dict() if self.features else None
         return out
+
+    def check(self) -> None:
+        """Option values checked once, with the allowed values named."""
+        allowed = {"cv": DESIGNS, "declustering": ("cell", "nearest_node", "none"),
+                   "well_ties": ("auto", "always", "never"), "interval_spread": ("none", "features", "kriging"),
+                   "sample_method": ("bilinear", "nearest")}
+        for key, values in allowed.items():
+            if getattr(self, key) not in values:
+                raise InputError(f"{key} = {getattr(self, key)!r} is not known; choose one of {', '.join(values)}")
+        if not (isinstance(self.n_splits, int) and self.n_splits >= 2):
+            raise InputError(f"the number of CV folds (--folds, n_splits) must be an integer of 2 or more, got {self.n_splits!r}")
 
 
 @dataclass
@@ -118,6 +126,10 @@ class TargetModel:
     applicability_cv: dict = field(default_factory=dict)
     trust: dict = field(default_factory=dict)
     units: np.ndarray | None = None  # the well of each training row (volumes: several samples per well)
+    design: FoldDesign | None = None  # the fold design that scored, selected and calibrated this model
+    distances: dict = field(default_factory=dict)  # prediction distances: map vs each design (W)
+    folds: np.ndarray | None = None  # the test fold of every training row
+    notes: list[str] = field(default_factory=list)
 
     def refit(self, candidate: str):
         """Fit the named leaderboard candidate (a baseline, say) on all wells, for comparison maps."""
@@ -240,12 +252,25 @@ def _candidates(task: Task, target: str, attrs: list[str], names: list[str], wel
     if names != attrs:
         out.append(LightGBM("regression", attrs, "lightgbm_attributes_only"))
     if options.monotone:
-        # porosity (and permeability) non-increasing in impedance; contrasts and gradients are free
-        mono = {n: -1 for n in names if "imped" in n.lower() and "contrast" not in n and "gradient" not in n}
-        out.append(LightGBM("regression", names, "lightgbm_monotone", monotone=mono))
+        out.append(LightGBM("regression", names, "lightgbm_monotone", monotone=monotone_constraints(
+            options.monotone, attrs, names)))
     if "facies" in wells and target != "facies" and wells["facies"].dropna().astype(str).nunique() >= 2:
         out.append(FaciesMixture(names))
     return out
+
+
+def monotone_constraints(given: dict[str, int], attrs: list[str], names: list[str]) -> dict[str, int]:
+    """Per-feature monotone directions from the user's ``{attribute: -1 or +1}``: the attribute and
+    its smoothed versions follow the given direction; contrasts and gradients stay free."""
+    unknown = [a for a in given if a not in attrs]
+    if unknown:
+        raise InputError(f"--monotone names {', '.join(unknown)}, which is not an attribute of the grid; "
+                         f"the attributes are {', '.join(attrs)} (e.g. --monotone {attrs[0]}:-1)")
+    bad = [f"{a}:{d}" for a, d in given.items() if d not in (-1, 1)]
+    if bad:
+        raise InputError(f"--monotone {', '.join(bad)}: the direction must be -1 (non-increasing) or 1 "
+                         "(non-decreasing)")
+    return {n: d for a, d in given.items() for n in names if n == a or n.startswith(f"{a}_smooth")}
 
 
 def _score(task: Task, y, oof, w, classes) -> dict:
@@ -260,35 +285,79 @@ def train(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> Train
     crossline) with one row per well sample (a ``z`` column; ``well_id`` ties the samples of a
     well together).  With a volume, CV folds hold out whole wells (never single samples of a
     well: samples along one well are strongly alike) and the kriging candidates are not offered.
+
+    Stages: prepare (features at the wells, weights, the map's prediction distances) -> per
+    target: fold designs -> cross-validate every candidate on the chosen design -> select ->
+    well ties -> calibrate intervals -> final fit and explanation.
     """
+    options.check()
     _check_inputs(wells, grid, options)
+    prep = _prepare(wells, grid, options)
+    results = {target: _train_target(prep, target, options) for target in options.targets}
+    for tm in results.values():
+        prep.notes += tm.trust.get("warnings", []) + tm.notes
+    loc = location_features(prep.names)
+    if loc:
+        prep.notes.append(f"location features {', '.join(loc)} are in use: they let a model memorise where the "
+                          "wells are; compare with the attributes-only candidate in the leaderboard")
+    return TrainedModels(options, prep.spec, prep.names, prep.ranges, prep.wells, prep.weights, prep.declustering,
+                         prep.statistics, results, prep.notes, prep.X, prep.space)
+
+
+@dataclass
+class _Prepared:
+    """Everything the targets share: features at the wells, weights, where the map predicts."""
+
+    wells: pd.DataFrame
+    X: pd.DataFrame
+    names: list[str]
+    spec: FeatureSpec
+    xy: np.ndarray
+    weights: np.ndarray
+    units: np.ndarray  # the well of each row
+    cv_xy: np.ndarray  # the position each row is split by (a volume's well: its mean position)
+    map_xy: np.ndarray  # prediction locations (valid nodes or live traces)
+    volume: bool
+    ranges: dict
+    declustering: dict
+    statistics: dict
+    facies_codes: np.ndarray | None
+    facies_classes: list[str]
+    space: dict
+    notes: list[str]
+
+
+def _prepare(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> _Prepared:
     notes: list[str] = []
     volume = is_volume(grid)
-    spec = options.features or FeatureSpec(attributes=[str(v) for v in grid.data_vars])
+    if volume and "z" not in wells:
+        raise InputError(f"{wells.attrs.get('source', 'wells')}: a volume needs wells as samples with z "
+                         "(depth or two-way time): add a z, depth or twt column, one row per sample")
+    spec = options.features or default_features(wells, grid, options)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", PredictorWarning)
         if volume:
-            if "z" not in wells:
-                raise InputError(f"{wells.attrs.get('source', 'wells')}: a volume needs wells as samples with z "
-                                 "(depth or two-way time): add a z, depth or twt column, one row per sample")
             X_all, kept = features_at_samples(grid, spec, wells, options.drop_outside, wells_z_domain(wells))
         else:
-            features = build_features(grid, spec)
-            X_all, kept = features_at_wells(features, wells, options.sample_method, options.drop_outside)
+            X_all, kept = features_at_wells(build_features(grid, spec), wells, options.sample_method,
+                                            options.drop_outside)
     notes += [str(w.message) for w in caught]
     names = [str(c) for c in X_all.columns]
     wells = wells.loc[kept].reset_index(drop=True)
     xy = wells[["x", "y"]].to_numpy(float)
     if volume:
-        weights, stat_weights, cell_weights, decl, units_all, cv_xy_all = _volume_weights(wells, grid,
-                                                                                          options.declustering)
+        weights, stat_weights, cell_weights, decl, units, cv_xy = _volume_weights(wells, grid, options.declustering)
         if options.well_ties == "always":
             notes.append("well ties krige a map's residuals; they are not offered for volumes")
+        xx, yy, live = trace_footprint(grid)
+        map_xy = np.column_stack([xx[live], yy[live]])
     else:
         weights, stat_weights, cell_weights, decl = _weights(wells, grid, options.declustering)
-        units_all, cv_xy_all = np.arange(len(wells)), xy
+        units, cv_xy = np.arange(len(wells)), xy
+        xx, yy = np.meshgrid(grid.x.to_numpy(), grid.y.to_numpy())
+        valid = np.all([np.isfinite(grid[v].to_numpy()) for v in grid.data_vars], axis=0)
+        map_xy = np.column_stack([xx[valid], yy[valid]])
     ranges = {n: [float(np.nanmin(X_all[n])), float(np.nanmax(X_all[n]))] for n in names}
-
     facies_classes: list[str] = []
     facies_codes = None
     if "facies" in wells:
@@ -296,153 +365,271 @@ def train(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> Train
         facies_classes = sorted(labels.dropna().unique().tolist())
         facies_codes = np.array([facies_classes.index(v) if v in facies_classes else -1
                                  for v in labels.fillna("\x00")])
-
-    numeric_targets = [t for t in options.targets if task_of(wells, t) == "regression"]
+    numeric = [t for t in options.targets if task_of(wells, t) == "regression"]
+    categorical = [t for t in options.targets if t not in numeric]
     # statistics use nearest-node weights: the closer map-wide estimate in
     # experiments/declustering_accuracy.py; the cell-weighted ones are kept beside them
-    categorical = [t for t in options.targets if t not in numeric_targets]
-    stats = declustered_statistics(wells, stat_weights, numeric_targets, categorical)
-    stats["declustered_cell"] = declustered_statistics(wells, cell_weights, numeric_targets,
-                                                       categorical)["declustered"]
-    results = {}
-    for target in options.targets:
-        task = task_of(wells, target)
-        raw = wells[target]
-        has = raw.notna().to_numpy() & (raw.astype("string").str.strip() != "").fillna(False).to_numpy()
-        idx = np.flatnonzero(has)
-        need = 3 * options.n_splits
-        units, cv_xy = units_all[idx], cv_xy_all[idx]
-        n_wells = np.unique(units).size
-        if n_wells < need:
-            raise ModelError(
-                f"block CV with {options.n_splits} folds needs at least {need} wells with {target!r}; got {n_wells}; "
-                "use fewer folds (--folds) or add wells"
-            )
-        classes: list[str] = []
-        transform = None
-        if task == "classification":
-            labels = raw.astype("string").to_numpy()[idx].astype(str)
-            classes = sorted(set(labels))
-            counts = pd.DataFrame({"c": labels, "u": units}).groupby("c")["u"].nunique()
-            if len(classes) < 2:
-                raise ModelError(f"target {target!r} has a single class ({classes[0]}); a classifier needs two or more")
-            rare = counts[counts < 2]
-            if len(rare):
-                raise ModelError(
-                    f"class(es) {', '.join(rare.index)} of {target!r} have a single well; merge them into a "
-                    "neighbouring class or drop those wells"
-                )
-            few = counts[counts < options.n_splits]
-            if len(few):
-                notes.append(f"class(es) {', '.join(f'{k} ({v} wells)' for k, v in few.items())} of {target!r} "
-                             f"have fewer wells than the {options.n_splits} folds; their scores are unreliable")
-            y = np.array([classes.index(v) for v in labels])
-            baseline_y = (y == np.argmax(np.bincount(y))).astype(float)
-        else:
-            y = raw.to_numpy(float)[idx]
-            if target in LOG_TARGETS:
-                y, transform = np.log10(y), "log10"
-            baseline_y = y
-        data = FitData(X_all.iloc[idx].reset_index(drop=True), y, weights[idx], xy[idx],
-                       np.zeros(idx.size, int), classes,
-                       None if facies_codes is None else facies_codes[idx], facies_classes,
-                       options.seed, options.n_threads)
-        attrs = list(spec.attributes)
-        block, block_source, vario = _block_size(data, options, attrs, baseline_y, cv_xy, units)
-        data.groups = block_labels(cv_xy[:, 0], cv_xy[:, 1], block, options.block_angle)
-        if options.cv == "buffered":
-            splitter = BufferedLeaveOneOut(block, coordinates=cv_xy, groups=units if volume else None)
-        else:
-            splitter = BlockKFold(block, options.n_splits, options.block_angle, coordinates=cv_xy)
-        random_cv = _RandomSplits(options.n_splits, options.seed)
-        board = []
-        oofs = {}
-        candidates = _candidates(task, target, attrs, names, wells, options, volume)
-        if options.candidates:
-            known = [c.name for c in candidates]
-            candidates = [c for c in candidates if c.name in options.candidates]
-            if not candidates:
-                raise InputError(f"none of the candidates {', '.join(options.candidates)} applies to {target!r}; "
-                                 f"choose from {', '.join(known)}")
-        random_oofs = {}
-        for cand in progress(candidates, f"{target}: cross-validating candidates"):
-            oof = cross_validate(cand, data, splitter)
-            oofs[cand.name] = (cand, oof)
-            random_oofs[cand.name] = cross_validate(cand, data, random_cv)
-            board.append({"candidate": cand.name, "baseline": cand.name in BASELINES,
-                          "features": list(cand.features), "cv": _score(task, y, oof, data.weights, classes),
-                          "cv_random": _score(task, y, random_oofs[cand.name], data.weights, classes)})
-        if len(candidates) >= 2:
-            blend, oof = _blend(candidates, {k: v[1] for k, v in oofs.items()}, data, splitter)
-            _, random_oof = _blend(candidates, random_oofs, data, random_cv)
-            oofs[blend.name] = (blend, oof)
-            board.append({"candidate": blend.name, "baseline": False, "features": list(blend.features),
-                          "cv": _score(task, y, oof, data.weights, classes),
-                          "cv_random": _score(task, y, random_oof, data.weights, classes),
-                          "members": {m.name: float(w) for m, w in zip(blend.members, blend.weights, strict=True)}})
-        key = "rmse" if task == "regression" else "log_loss"
-        best = min(board, key=lambda r: r["cv"][key])
-        if "blend" in oofs and best["candidate"] != "blend":
-            # the blend averages the candidates and is the stable default; a single one must clearly beat it
-            if not _clearly_better(_losses(y, oofs[best["candidate"]][1]), _losses(y, oofs["blend"][1]),
-                                   data.weights, units):
-                best = next(r for r in board if r["candidate"] == "blend")
-        chosen = best["candidate"]
-        if task == "regression" and options.well_ties != "never" and not volume and not isinstance(
-                oofs[chosen][0], Kriging | RegressionKriging):
-            tied = WellTies(type_copy(oofs[chosen][0]))
-            oof = cross_validate(tied, data, splitter)
-            oofs[tied.name] = (tied, oof)
-            row = {"candidate": tied.name, "baseline": False, "features": list(tied.features),
-                   "cv": _score(task, y, oof, data.weights, classes),
-                   "cv_random": _score(task, y, cross_validate(tied, data, random_cv), data.weights, classes)}
-            board.append(row)
-            if options.well_ties == "always" or _clearly_better(_losses(y, oof), _losses(y, oofs[chosen][1]),
-                                                                data.weights, units):
-                chosen = tied.name
-        model, oof = oofs[chosen]
-        calibration, spread_model = None, None
-        if task == "regression":
-            oof_spread = None
-            if options.interval_spread == "kriging" and isinstance(model, WellTies):
-                oof_spread, spread_model = _oof_spread(model, data, splitter), "kriging"
-            elif options.interval_spread in ("features", "kriging"):
-                if options.interval_spread == "kriging":
-                    notes.append(f"{target}: kriging spread needs a well-tied model; intervals use the feature spread")
-                oof_spread, spread_model = _feature_spread(attrs, data, y - oof, splitter)
-            calibration = calibrate(y - oof, data.weights, spread=oof_spread)
-        final = type_copy(model).fit(data)
-        for row in board:
-            row["chosen"] = row["candidate"] == chosen
-        chosen_row = next(r for r in board if r["chosen"])
-        folds = np.zeros(len(y), int)
-        for k, (_, test) in enumerate(splitter.split(data.xy)):
-            folds[test] = k
-        values, _ = contributions(final, data.X, data.xy, names, background=data.X, seed=options.seed)
-        imp = importance(values, data.weights, names)
-        aoa, di = fit_applicability(data.X[names], imp.drop(KRIGING), folds)
-        aoa_cv = _inside_outside(task, y, oof, data.weights, classes, di <= aoa.threshold)
-        warned, facts = trust_warnings(target, task, imp, data.X[names], values[..., :-1] if values.ndim == 2 else
-                                       values, chosen_row["cv"], chosen_row["cv_random"], len(classes),
-                                       pd.Series(units).groupby(folds).nunique().tolist())
-        notes += warned
-        facts["warnings"] = warned
-        results[target] = TargetModel(name=target, task=task, transform=transform, classes=classes, model=final,
-                                      calibration=calibration, block_size=block, block_size_source=block_source,
-                                      leaderboard=board, chosen=chosen, oof=oof, observed=y, weights=data.weights,
-                                      variogram=vario, data=data, candidates={k: v[0] for k, v in oofs.items()},
-                                      spread=spread_model, importance=imp, applicability=aoa,
-                                      applicability_cv=aoa_cv, trust=facts, units=units)
-    loc = location_features(names)
-    if loc:
-        notes.append(f"location features {', '.join(loc)} are in use: they let a model memorise where the wells are; "
-                     "compare with the attributes-only candidate in the leaderboard")
+    stats = declustered_statistics(wells, stat_weights, numeric, categorical)
+    stats["declustered_cell"] = declustered_statistics(wells, cell_weights, numeric, categorical)["declustered"]
     space = {"kind": "map"}
     if volume:
         space = {"kind": "volume", "z_domain": grid.attrs.get("z_domain", "unknown"),
                  "wells_z_domain": wells_z_domain(wells), "z_range": [float(wells["z"].min()), float(wells["z"].max())],
                  "samples": int(len(wells)), "wells": int(wells["well_id"].nunique())}
-    return TrainedModels(options, spec, names, ranges, wells, weights, decl, stats, results, notes, X_all, space)
+    return _Prepared(wells, X_all, names, spec, xy, weights, units, cv_xy, map_xy, volume, ranges, decl, stats,
+                     facies_codes, facies_classes, space, notes)
+
+
+def default_features(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> FeatureSpec:
+    """The features used when the user gives none: every attribute, plus context at three radii
+    and the gradient.  Radii follow the grid spacing and the correlation range of the linear
+    baseline's residuals: 3 nodes, about one range, and four ranges.  Candidates on the
+    attributes alone stay on the leaderboard, so the CV decides whether context helps."""
+    attrs = [str(v) for v in grid.data_vars]
+    if is_volume(grid):
+        step = min(lateral_spacing(grid))
+        extent = step * max(grid.sizes["inline"], grid.sizes["crossline"])
+    else:
+        step = min(spacing(grid))
+        extent = step * max(grid.sizes["x"], grid.sizes["y"])
+    corr = _residual_range(wells, grid, attrs, options)
+    corr = float(np.clip(corr if corr else 10 * step, 6 * step, extent / 4))
+    radii = sorted({round(3 * step), round(corr), round(min(4 * corr, extent / 2))})
+    vertical: list[float] = []
+    if is_volume(grid):
+        dz = z_step(grid)
+        vertical = [round(3 * dz, 3), round(10 * dz, 3)]
+    return FeatureSpec(attrs, context_radii=[float(r) for r in radii], gradient=True, vertical_radii=vertical,
+                       chosen_by="default: attributes plus context at radii from the grid spacing and the "
+                                 "residual correlation range; the CV compares them with the attributes alone")
+
+
+def _residual_range(wells: pd.DataFrame, grid: xr.Dataset, attrs: list[str], options: TrainOptions) -> float | None:
+    """Correlation range of the first numeric target's residuals from a linear fit on the attributes
+    (at the wells' mean positions in a volume), or None when it cannot be fitted."""
+    numeric = [t for t in options.targets if t in wells and task_of(wells, t) == "regression"]
+    if not numeric:
+        return None
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            spec = FeatureSpec(attrs)
+            if is_volume(grid):
+                X, kept = features_at_samples(grid, spec, wells, True, wells_z_domain(wells))
+            else:
+                X, kept = features_at_wells(build_features(grid, spec), wells, options.sample_method, True)
+        sub = wells.loc[kept].reset_index(drop=True)
+        y = sub[numeric[0]].to_numpy(float)
+        ok = np.isfinite(y)
+        if numeric[0] in LOG_TARGETS:
+            ok &= y > 0
+            y = np.log10(np.where(ok, y, 1.0))
+        n = int(ok.sum())
+        data = FitData(X[ok].reset_index(drop=True), y[ok], np.ones(n), sub[["x", "y"]].to_numpy(float)[ok],
+                       np.zeros(n, int))
+        resid = pd.Series(y[ok] - Linear(attrs).fit(data).predict(data.X))
+        key = sub["well_id"][ok].to_numpy() if "well_id" in sub else np.arange(n)
+        heads = pd.DataFrame({"x": data.xy[:, 0], "y": data.xy[:, 1], "r": resid}).groupby(key).mean()
+        return float(auto_variogram(heads.x, heads.y, heads.r).range)
+    except (InputError, ModelError, ValueError, np.linalg.LinAlgError):
+        return None
+
+
+@dataclass
+class _TargetTable:
+    data: FitData
+    y: np.ndarray
+    classes: list[str]
+    transform: str | None
+    units: np.ndarray
+    heads: np.ndarray  # one position per well
+    head_of: np.ndarray  # row -> index into heads
+    baseline_y: np.ndarray
+    notes: list[str]
+
+
+def _target_table(prep: _Prepared, target: str, options: TrainOptions) -> _TargetTable:
+    """The rows that hold ``target``, as a :class:`FitData`, with its checks."""
+    task = task_of(prep.wells, target)
+    raw = prep.wells[target]
+    has = raw.notna().to_numpy() & (raw.astype("string").str.strip() != "").fillna(False).to_numpy()
+    idx = np.flatnonzero(has)
+    units = prep.units[idx]
+    need = 3 * options.n_splits
+    n_wells = np.unique(units).size
+    if n_wells < need:
+        raise ModelError(f"CV with {options.n_splits} folds needs at least {need} wells with {target!r}; got "
+                         f"{n_wells}; use fewer folds (--folds) or add wells")
+    notes: list[str] = []
+    classes: list[str] = []
+    transform = None
+    if task == "classification":
+        labels = raw.astype("string").to_numpy()[idx].astype(str)
+        classes = sorted(set(labels))
+        counts = pd.DataFrame({"c": labels, "u": units}).groupby("c")["u"].nunique()
+        if len(classes) < 2:
+            raise ModelError(f"target {target!r} has a single class ({classes[0]}); a classifier needs two or more")
+        rare = counts[counts < 2]
+        if len(rare):
+            raise ModelError(f"class(es) {', '.join(rare.index)} of {target!r} have a single well; merge them into "
+                             "a neighbouring class or drop those wells")
+        few = counts[counts < options.n_splits]
+        if len(few):
+            notes.append(f"class(es) {', '.join(f'{k} ({v} wells)' for k, v in few.items())} of {target!r} have "
+                         f"fewer wells than the {options.n_splits} folds; their scores are unreliable")
+        y = np.array([classes.index(v) for v in labels])
+        baseline_y = (y == np.argmax(np.bincount(y))).astype(float)
+    else:
+        y = raw.to_numpy(float)[idx]
+        if target in LOG_TARGETS:
+            y, transform = np.log10(y), "log10"
+        baseline_y = y
+    head_codes, head_of = np.unique(units, return_inverse=True)
+    cv_xy = prep.cv_xy[idx]
+    heads = np.column_stack([np.bincount(head_of, cv_xy[:, i]) / np.bincount(head_of) for i in (0, 1)])
+    if np.ptp(heads[:, 0]) == 0 and np.ptp(heads[:, 1]) == 0:
+        raise ModelError(f"all wells with {target!r} are at one position; spatial CV and mapping need wells at "
+                         "several positions")
+    g_map = map_distances(prep.map_xy, heads, options.seed)
+    data = FitData(prep.X.iloc[idx].reset_index(drop=True), y, prep.weights[idx], prep.xy[idx],
+                   np.zeros(idx.size, int), classes, None if prep.facies_codes is None else prep.facies_codes[idx],
+                   prep.facies_classes, options.seed, options.n_threads, units=head_of, map_distances=g_map,
+                   n_splits=options.n_splits)
+    return _TargetTable(data, y, classes, transform, units, heads, head_of, baseline_y, notes)
+
+
+def _designs(table: _TargetTable, block: float, options: TrainOptions, task: Task, target: str) -> dict:
+    """The chosen fold design and, for the diagnostics, the matched, blocked and random ones."""
+    g_map = table.data.map_distances
+    names = dict.fromkeys([options.cv, "matched", "blocks", "random"])
+    designs = {name: design_folds(name, table.heads, table.head_of, g_map, options.n_splits, block,
+                                  options.block_angle, options.seed) for name in names}
+    chosen = designs[options.cv]
+    if task == "classification":
+        present = len(table.classes)
+        for k, (train_rows, _) in enumerate(chosen.splits):
+            missing = sorted(set(range(present)) - set(table.y[train_rows]))
+            if missing:
+                raise ModelError(
+                    f"fold {k + 1} of the {chosen.name} CV has no training well of {target} "
+                    f"{', '.join(table.classes[m] for m in missing)}: that class sits in one cluster of wells, so "
+                    "it cannot be validated away from it; merge the class into a neighbouring one, add wells, or "
+                    "use --cv random to see in-cluster skill only")
+    return designs
+
+
+def _cross_validate_all(candidates: list, data: FitData, splits) -> dict:
+    """Out-of-fold predictions of every candidate and of their blend on ``splits``; name -> (model, oof)."""
+    oofs = {c.name: (c, out_of_fold(c, data, splits)) for c in candidates}
+    if len(candidates) >= 2:
+        P = np.stack([oofs[c.name][1] for c in candidates], axis=1)
+        blend = Blend(list(candidates), blend_weights(P, data.y, data.weights), member_oof=P, y_all=data.y)
+        # the blend's own score: weights fitted without the scored fold
+        oof = np.zeros((len(data.y),) + P.shape[2:])
+        for train_rows, test in splits:
+            oof[test] = combine(P[test], blend_weights(P[train_rows], data.y[train_rows], data.weights[train_rows]))
+        oofs[blend.name] = (blend, oof)
+    return oofs
+
+
+def _board_row(name: str, model, task: Task, table: _TargetTable, oof, random_oof) -> dict:
+    row = {"candidate": name, "baseline": name in BASELINES, "features": list(model.features),
+           "cv": _score(task, table.y, oof, table.data.weights, table.classes),
+           "cv_random": _score(task, table.y, random_oof, table.data.weights, table.classes),
+           "cv_se": _loss_se(table.y, oof, table.data.weights, table.units)}
+    if isinstance(model, Blend):
+        row["members"] = {m.name: float(w) for m, w in zip(model.members, model.weights, strict=True)}
+    return row
+
+
+def _select(board: list[dict], oofs: dict, table: _TargetTable, task: Task) -> str:
+    """The blend by default; a single candidate only when it is clearly better (one standard error)."""
+    key = "rmse" if task == "regression" else "log_loss"
+    best = min(board, key=lambda r: r["cv"][key])["candidate"]
+    if "blend" in oofs and best != "blend" and not _clearly_better(
+            _losses(table.y, oofs[best][1]), _losses(table.y, oofs["blend"][1]), table.data.weights, table.units):
+        best = "blend"
+    return best
+
+
+def _train_target(prep: _Prepared, target: str, options: TrainOptions) -> TargetModel:
+    task = task_of(prep.wells, target)
+    table = _target_table(prep, target, options)
+    data, y, classes = table.data, table.y, table.classes
+    attrs = list(prep.spec.attributes)
+    block, block_source, vario = _block_size(data, options, attrs, table.baseline_y, table.heads[table.head_of],
+                                             table.units)
+    data.groups = block_labels(table.heads[table.head_of, 0], table.heads[table.head_of, 1], block,
+                               options.block_angle)
+    designs = _designs(table, block, options, task, target)
+    design, random_design = designs[options.cv], designs["random"]
+    candidates = _candidates(task, target, attrs, prep.names, prep.wells, options, prep.volume)
+    if options.candidates:
+        known = [c.name for c in candidates]
+        candidates = [c for c in candidates if c.name in options.candidates]
+        if not candidates:
+            raise InputError(f"none of the candidates {', '.join(options.candidates)} applies to {target!r}; "
+                             f"choose from {', '.join(known)}")
+    runs = {}
+    for name in progress([options.cv, "random"], f"{target}: cross-validating {len(candidates)} candidates"):
+        runs[name] = _cross_validate_all(candidates, data, designs[name].splits)
+    oofs, random_oofs = runs[options.cv], runs["random"]
+    board = [_board_row(name, model, task, table, oof, random_oofs[name][1]) for name, (model, oof) in oofs.items()]
+    chosen = _select(board, oofs, table, task)
+    if task == "regression" and options.well_ties != "never" and not prep.volume and not isinstance(
+            oofs[chosen][0], Kriging | RegressionKriging):
+        tied = WellTies(type_copy(oofs[chosen][0]))
+        oofs[tied.name] = (tied, out_of_fold(tied, data, design.splits))
+        random_oof = out_of_fold(tied, data, random_design.splits)
+        board.append(_board_row(tied.name, tied, task, table, oofs[tied.name][1], random_oof))
+        if options.well_ties == "always" or _clearly_better(_losses(y, oofs[tied.name][1]),
+                                                            _losses(y, oofs[chosen][1]), data.weights, table.units):
+            chosen = tied.name
+    model, oof = oofs[chosen]
+    calibration, spread_model, notes = None, None, list(table.notes)
+    if task == "regression":
+        calibration, spread_model = _calibrate(model, data, y - oof, design, attrs, options, target, notes)
+    final = type_copy(model).fit(data)
+    for row in board:
+        row["chosen"] = row["candidate"] == chosen
+    chosen_row = next(r for r in board if r["chosen"])
+    folds = design.fold_of(len(y))
+    values, _ = contributions(final, data.X, data.xy, prep.names, background=data.X, seed=options.seed)
+    imp = importance(values, data.weights, prep.names)
+    aoa, di = fit_applicability(data.X[prep.names], imp.drop(KRIGING), folds)
+    aoa_cv = _inside_outside(task, y, oof, data.weights, classes, di <= aoa.threshold)
+    warned, facts = trust_warnings(target, task, imp, data.X[prep.names], values[..., :-1] if values.ndim == 2 else
+                                   values, chosen_row["cv"], chosen_row["cv_random"], len(classes),
+                                   pd.Series(table.units).groupby(folds).nunique().tolist())
+    distance = distance_summary(data.map_distances, designs, options.cv)
+    if design.w > 0.5 * distance["map_median_distance"] and design.w > 0:
+        warned.append(f"{target}: no CV design reproduces the map's prediction distances (W = {design.w:.0f} m "
+                      f"against a median map-to-well distance of {distance['map_median_distance']:.0f} m): the map "
+                      "reaches farther from the wells than any held-out well does, so its error there is "
+                      "larger than the CV says")
+    facts["warnings"] = warned
+    return TargetModel(name=target, task=task, transform=table.transform, classes=classes, model=final,
+                       calibration=calibration, block_size=block, block_size_source=block_source,
+                       leaderboard=board, chosen=chosen, oof=oof, observed=y, weights=data.weights,
+                       variogram=vario, data=data, candidates={k: v[0] for k, v in oofs.items()},
+                       spread=spread_model, importance=imp, applicability=aoa, applicability_cv=aoa_cv,
+                       trust=facts, units=table.units, design=design, distances=distance, folds=folds,
+                       notes=notes)
+
+
+def _calibrate(model, data: FitData, residuals: np.ndarray, design, attrs: list[str], options: TrainOptions,
+               target: str, notes: list[str]):
+    """q10/q90 offsets from the design's out-of-fold residuals, scaled by a local spread."""
+    oof_spread, spread_model = None, None
+    if options.interval_spread == "kriging" and isinstance(model, WellTies):
+        oof_spread, spread_model = _oof_spread(model, data, design.splits), "kriging"
+    elif options.interval_spread in ("features", "kriging"):
+        if options.interval_spread == "kriging":
+            notes.append(f"{target}: kriging spread needs a well-tied model; intervals use the feature spread")
+        oof_spread, spread_model = _feature_spread(attrs, data, residuals, design.splits)
+    bounds = PHYSICAL_BOUNDS.get(target)
+    calibration = calibrate(residuals, data.weights, spread=oof_spread, units=data.units, bounds=bounds)
+    return calibration, spread_model
 
 
 def _inside_outside(task, y, oof, weights, classes, inside) -> dict:
@@ -484,42 +671,27 @@ def _clearly_better(challenger: np.ndarray, incumbent: np.ndarray, weights, unit
     return mean < -se
 
 
-def _blend(candidates, oofs, data: FitData, splitter):
-    """Stacked blend of all candidates; its CV score uses weights fitted without the scored fold."""
-    names = [c.name for c in candidates]
-    P = np.stack([oofs[n] for n in names], axis=1)
-    oof = np.zeros((len(data.y),) + P.shape[2:])
-    for train, test in splitter.split(data.xy):
-        w = blend_weights(P[train], data.y[train], data.weights[train])
-        oof[test] = combine(P[test], w)
-    weights = blend_weights(P, data.y, data.weights)
-    return Blend(list(candidates), weights), oof
-
-
-def _feature_spread(attrs, data: FitData, residuals, splitter):
+def _feature_spread(attrs, data: FitData, residuals, splits):
     """Cross-fitted spread at each well (for calibration) and the spread model fitted on all wells."""
-    spread = np.zeros(len(residuals))
-    for train, test in splitter.split(data.xy):
-        model = SpreadModel(attrs).fit(data.X.iloc[train], residuals[train], data.weights[train])
-        spread[test] = model.predict(data.X.iloc[test])
-    return spread, SpreadModel(attrs).fit(data.X, residuals, data.weights)
+    def fit_predict(train_rows, test):
+        model = SpreadModel(attrs).fit(data.X.iloc[train_rows], residuals[train_rows], data.weights[train_rows])
+        return model.predict(data.X.iloc[test])
+
+    return fold_predictions(splits, len(residuals), fit_predict), SpreadModel(attrs).fit(data.X, residuals,
+                                                                                         data.weights)
 
 
-def _oof_spread(model: WellTies, data: FitData, splitter) -> np.ndarray:
+def _oof_spread(model: WellTies, data: FitData, splits) -> np.ndarray:
     """Kriging standard deviation of the residual field at each held-out well, from its fold's model."""
-    spread = np.zeros(len(data.y))
-    for train, test in splitter.split(data.xy):
-        fold = type_copy(model).fit(data.subset(train))
-        spread[test] = np.sqrt(fold.residual_variance(data.xy[test]))
-    return spread
+    def fit_predict(train_rows, test):
+        return np.sqrt(type_copy(model).fit(data.subset(train_rows)).residual_variance(data.xy[test]))
+
+    return fold_predictions(splits, len(data.y), fit_predict)
 
 
-class _RandomSplits:
-    """Plain shuffled k-fold, for contrast with the blocked scores."""
-
-    def __init__(self, n_splits: int, seed: int):
-        self.kfold = KFold(n_splits=n_splits, shuffle=True, random_state=seed)
-
-    def split(self, xy):
-        return self.kfold.split(xy)
-
+def _loss_se(y: np.ndarray, oof: np.ndarray, weights: np.ndarray, units: np.ndarray) -> float:
+    """Standard error of the weighted mean per-well loss (squared error or log-loss), wells averaged first."""
+    frame = pd.DataFrame({"l": _losses(y, oof) * weights, "w": weights, "u": units}).groupby("u").sum()
+    loss, w = (frame["l"] / frame["w"]).to_numpy(), frame["w"].to_numpy()
+    mean = float(np.sum(w * loss) / w.sum())
+    return float(np.sqrt(np.sum(w / w.sum() * (loss - mean) ** 2) / max(effective_size(w) - 1, 1)))

@@ -26,9 +26,11 @@ def train_files(wells_path, grid_path, out, targets, attributes=None, context_ra
     check_target(out, overwrite)  # fail before the long work, not after it
     wells = read_wells(wells_path, x=x, y=y, z=z, porosity_percent=porosity_percent)
     grid = read_seismic(grid_path, z_domain=z_domain, name=segy_name)
-    spec = FeatureSpec(attributes=list(attributes) if attributes else [str(v) for v in grid.data_vars],
-                       context_radii=list(context_radii), gradient=gradient, location=location,
-                       vertical_radii=list(vertical_radii), z_coordinate=z_trend)
+    spec = None  # no feature flags: the tool's default set (attributes plus context, compared by CV)
+    if attributes or context_radii or gradient or location or vertical_radii or z_trend:
+        spec = FeatureSpec(attributes=list(attributes) if attributes else [str(v) for v in grid.data_vars],
+                           context_radii=list(context_radii), gradient=gradient, location=location,
+                           vertical_radii=list(vertical_radii), z_coordinate=z_trend)
     trained = train(wells, grid, TrainOptions(targets=list(targets), features=spec, **options))
     inputs = {"wells": {"path": str(wells_path), "sha256": sha256(Path(wells_path)),
                         "columns_taken": wells.attrs.get("columns_taken", {}), "porosity_percent": porosity_percent},
@@ -58,16 +60,18 @@ def predict_files(bundle, grid_path, out, overwrite=False, crs: str | None = Non
 
 
 def leaderboard_lines(trained: TrainedModels) -> list[str]:
-    """The leaderboard as text: blocked and random CV per candidate, chosen marked."""
+    """The leaderboard as text: CV of the chosen design and random CV per candidate, chosen marked."""
     lines = []
     for name, tm in trained.targets.items():
         key = "rmse" if tm.task == "regression" else "balanced_accuracy"
         unit = " (log10 mD)" if tm.transform == "log10" else ""
-        lines.append(f"{name}: block CV ({tm.block_size:.0f} m blocks, {tm.block_size_source}), "
+        design = tm.distances["designs"][tm.distances["chosen"]]
+        lines.append(f"{name}: {design['description']}; held-out wells a median {design['median_cv_distance']:.0f} m "
+                     f"from training wells, map nodes {tm.distances['map_median_distance']:.0f} m from a well; "
                      f"declustering-weighted {key}{unit}")
         for row in tm.leaderboard:
             mark = "*" if row["chosen"] else " "
             kind = "baseline" if row["baseline"] else "candidate"
-            lines.append(f"  {mark} {row['candidate']:<28} {kind:<9} blocked {row['cv'][key]:.4f}   "
+            lines.append(f"  {mark} {row['candidate']:<28} {kind:<9} {tm.distances['chosen']} {row['cv'][key]:.4f}   "
                          f"random {row['cv_random'][key]:.4f}")
     return lines

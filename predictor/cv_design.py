@@ -1,0 +1,242 @@
+"""The fold design: which wells are held out together, chosen so that the cross-validation's
+prediction situation matches the map's.
+
+A CV estimates the map's error only when a held-out well is about as far from its training
+wells as a map node is from its nearest well.  Both are measured by nearest-neighbour distances:
+
+- ``G_map``: each prediction location (the map's valid nodes, subsampled; a volume's live
+  traces) to its nearest well;
+- ``G_cv``: each held-out well to its nearest *training* well in its fold;
+
+and compared by the Wasserstein-1 distance W between their empirical distributions.
+
+Designs (each a :class:`FoldDesign`: a list of (train, test) row indices, whole wells only):
+
+- ``matched``: kNNDM (Linnenbrink, Milà, Ludwig & Meyer 2024, Geoscientific Model Development
+  17:5897-5912).  When a one-sided KS test does not find the wells closer to each other than
+  the map is to them, random k-fold is the matched design; otherwise the wells' positions are
+  clustered (Ward) for a log-spaced range of cluster counts, clusters are dealt into k folds,
+  and the configuration with the smallest W is kept.
+- ``nndm``: NNDM leave-one-out (Milà, Mateu, Pebesma & Meyer 2022, Methods in Ecology and
+  Evolution 13:1304-1316), for small well sets.
+- ``blocks``: square blocks a variogram range wide (see :mod:`predictor.spatial_cv`).
+- ``buffered``: leave one well out with an exclusion buffer.
+- ``random``: shuffled k-fold, for contrast.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Literal
+
+import numpy as np
+from scipy.cluster.hierarchy import fcluster, linkage
+from scipy.spatial import cKDTree
+from scipy.stats import ks_2samp, wasserstein_distance
+from sklearn.model_selection import KFold
+
+from .errors import ModelError
+from .spatial_cv import BlockKFold, BufferedLeaveOneOut
+
+DesignName = Literal["matched", "nndm", "blocks", "buffered", "random"]
+DESIGNS: tuple[str, ...] = ("matched", "nndm", "blocks", "buffered", "random")
+MAP_SAMPLE = 5000  # prediction locations kept for the distance distribution
+
+
+@dataclass
+class FoldDesign:
+    """One fold design over the rows of a target's training table.
+
+    ``splits`` are (train rows, test rows) pairs; every row is tested exactly once.
+    ``distances`` holds, per row, the distance from its well to the nearest training well of
+    its fold (``G_cv``); ``w`` the Wasserstein-1 distance of those to the map's.
+    """
+
+    name: str
+    splits: list[tuple[np.ndarray, np.ndarray]]
+    distances: np.ndarray
+    w: float
+    description: str
+    details: dict = field(default_factory=dict)
+
+    @property
+    def n_splits(self) -> int:
+        return len(self.splits)
+
+    def fold_of(self, n: int) -> np.ndarray:
+        """The fold (test set number) of every row."""
+        out = np.full(n, -1)
+        for k, (_, test) in enumerate(self.splits):
+            out[test] = k
+        return out
+
+    def split(self, X=None, y=None, groups=None):
+        """Scikit-learn style iteration over the (train, test) pairs."""
+        yield from self.splits
+
+    def get_n_splits(self, X=None, y=None, groups=None) -> int:
+        return self.n_splits
+
+    def summary(self) -> dict:
+        return {"design": self.name, "w": round(float(self.w), 3), "folds": self.n_splits,
+                "median_cv_distance": round(float(np.median(self.distances)), 1),
+                "description": self.description, **self.details}
+
+
+def map_distances(map_xy: np.ndarray, wells_xy: np.ndarray, seed: int = 0,
+                  size: int = MAP_SAMPLE) -> np.ndarray:
+    """Distance from each prediction location (subsampled to ``size``, seeded) to its nearest well."""
+    map_xy = np.asarray(map_xy, float)
+    if len(map_xy) == 0:
+        raise ModelError("the grid has no valid node to predict; check that the attribute is not all missing")
+    if len(map_xy) > size:
+        map_xy = map_xy[np.random.default_rng(seed).choice(len(map_xy), size, replace=False)]
+    return cKDTree(wells_xy).query(map_xy)[0]
+
+
+def _cv_distances(xy: np.ndarray, folds: np.ndarray) -> np.ndarray:
+    """Each well's distance to the nearest well outside its own fold."""
+    out = np.empty(len(xy))
+    for k in np.unique(folds):
+        inside = folds == k
+        out[inside] = cKDTree(xy[~inside]).query(xy[inside])[0]
+    return out
+
+
+def _deal(xy: np.ndarray, clusters: np.ndarray, k: int) -> np.ndarray:
+    """Folds from clusters: big clusters (>= n/k wells) become folds of their own, the others are
+    dealt round-robin in the order of their centroids along the wells' first principal axis."""
+    n = len(xy)
+    ids, sizes = np.unique(clusters, return_counts=True)
+    big = ids[sizes >= n / k][:k]
+    folds = np.full(n, -1)
+    for f, c in enumerate(big):
+        folds[clusters == c] = f
+    rest = [c for c in ids if c not in set(big)]
+    if rest:
+        centred = xy - xy.mean(axis=0)
+        axis = np.linalg.svd(centred, full_matrices=False)[2][0]
+        order = sorted(rest, key=lambda c: float(centred[clusters == c].mean(axis=0) @ axis))
+        for i, c in enumerate(order):
+            folds[clusters == c] = (len(big) + i) % k
+    return folds
+
+
+def knndm_folds(xy: np.ndarray, g_map: np.ndarray, k: int, seed: int = 0,
+                n_configs: int = 60) -> tuple[np.ndarray, dict]:
+    """kNNDM fold labels of the wells at ``xy`` (one row per well) for the map distances ``g_map``."""
+    n = len(xy)
+    g_ww = cKDTree(xy).query(xy, k=2)[0][:, 1]
+    random = KFold(k, shuffle=True, random_state=seed)
+    random_folds = np.empty(n, int)
+    for f, (_, test) in enumerate(random.split(xy)):
+        random_folds[test] = f
+    p_value = float(ks_2samp(g_ww, g_map, alternative="greater", method="asymp").pvalue)
+    info = {"ks_p_value_wells_closer": round(p_value, 4)}
+    if p_value >= 0.05:
+        # kNNDM's first step: random k-fold is the matched design
+        info["configuration"] = "random k-fold (the wells are not closer to each other than the map is to them)"
+        return random_folds, info
+    tree = linkage(xy, method="ward")
+    best = (wasserstein_distance(_cv_distances(xy, random_folds), g_map), random_folds, "random k-fold")
+    for q in np.unique(np.round(np.geomspace(k, max(k, n - 2), n_configs)).astype(int)):
+        folds = _deal(xy, fcluster(tree, q, criterion="maxclust"), k)
+        counts = np.bincount(folds, minlength=k)
+        if counts.min() == 0 or counts.max() > n / 2:
+            continue
+        w = wasserstein_distance(_cv_distances(xy, folds), g_map)
+        if w < best[0] - 1e-12:
+            best = (w, folds, f"{q} Ward clusters dealt into {k} folds")
+    info["configuration"] = best[2]
+    return best[1], info
+
+
+def nndm_splits(xy: np.ndarray, g_map: np.ndarray, min_train: float = 0.5) -> list[tuple[np.ndarray, np.ndarray]]:
+    """NNDM leave-one-out over the wells at ``xy``: (train, test) index pairs, one per well.
+
+    Distances r are scanned upward; while the CV's nearest-training-distance CDF lies above the
+    map's at r and the well's training set keeps more than ``min_train`` of the wells, the
+    well's nearest training neighbour is dropped from its training set.
+    """
+    n = len(xy)
+    d = np.sqrt(((xy[:, None, :] - xy[None, :, :]) ** 2).sum(-1))
+    np.fill_diagonal(d, np.inf)
+    g_map = np.sort(g_map)
+    g = d.min(axis=1)
+    kept = np.full(n, n - 1)
+    r_max = g_map[-1]
+    last = (-np.inf, -1)
+    while True:
+        later = (g > last[0]) | ((g == last[0]) & (np.arange(n) > last[1]))
+        if not later.any():
+            break
+        order = np.lexsort((np.arange(n)[later], g[later]))
+        j = int(np.flatnonzero(later)[order[0]])
+        r = g[j]
+        if r > r_max or not np.isfinite(r):
+            break
+        f_cv = np.mean(g <= r)
+        f_map = np.searchsorted(g_map, r, side="right") / len(g_map)
+        drop = np.flatnonzero(d[j] == r)
+        if f_cv > f_map and kept[j] - drop.size > min_train * n:
+            d[j, drop] = np.inf
+            kept[j] -= drop.size
+            g[j] = d[j].min()
+            continue  # look again at the same position in the scan: g[j] moved up
+        last = (r, j)
+    everyone = np.arange(n)
+    return [(everyone[np.isfinite(d[j]) & (everyone != j)], np.array([j])) for j in range(n)]
+
+
+def _rows(units: np.ndarray, unit_splits) -> list[tuple[np.ndarray, np.ndarray]]:
+    """Unit-level (well) splits as row-level (sample) splits."""
+    out = []
+    for train, test in unit_splits:
+        out.append((np.flatnonzero(np.isin(units, train)), np.flatnonzero(np.isin(units, test))))
+    return out
+
+
+def _unit_distances(heads: np.ndarray, unit_splits) -> np.ndarray:
+    out = np.empty(len(heads))
+    for train, test in unit_splits:
+        out[test] = cKDTree(heads[train]).query(heads[test])[0]
+    return out
+
+
+def design_folds(name: str, heads: np.ndarray, units: np.ndarray, g_map: np.ndarray, n_splits: int,
+                 block_size: float, block_angle: float = 0.0, seed: int = 0) -> FoldDesign:
+    """The fold design ``name`` over the rows whose wells are ``units`` (row -> well index)
+    and whose wells sit at ``heads`` (one row per well)."""
+    n = len(heads)
+    if n < n_splits:
+        raise ModelError(f"{n} wells cannot fill {n_splits} CV folds; use fewer folds (--folds) or add wells")
+    details: dict = {}
+    if name == "matched":
+        folds, details = knndm_folds(heads, g_map, n_splits, seed)
+        unit_splits = [(np.flatnonzero(folds != k), np.flatnonzero(folds == k)) for k in range(n_splits)]
+        text = f"{n_splits} folds matched to the map's prediction distances (kNNDM): {details['configuration']}"
+    elif name == "nndm":
+        unit_splits = nndm_splits(heads, g_map)
+        text = "leave-one-well-out with neighbours dropped to match the map's prediction distances (NNDM)"
+    elif name == "random":
+        unit_splits = list(KFold(n_splits, shuffle=True, random_state=seed).split(heads))
+        text = f"{n_splits}-fold random CV (for contrast: nearby wells are alike)"
+    elif name == "blocks":
+        unit_splits = list(BlockKFold(block_size, n_splits, block_angle, coordinates=heads).split(heads))
+        text = f"{n_splits}-fold CV over {block_size:.0f} m blocks"
+    elif name == "buffered":
+        unit_splits = list(BufferedLeaveOneOut(block_size, coordinates=heads).split(heads))
+        text = f"leave-one-well-out with a {block_size:.0f} m exclusion buffer"
+    else:
+        raise ModelError(f"unknown CV design {name!r}; choose one of {', '.join(DESIGNS)}")
+    unit_splits = [(np.asarray(tr, int), np.asarray(te, int)) for tr, te in unit_splits]
+    g_cv = _unit_distances(heads, unit_splits)
+    w = float(wasserstein_distance(g_cv, g_map))
+    return FoldDesign(name, _rows(units, unit_splits), g_cv[units], w, text, details)
+
+
+def distance_summary(g_map: np.ndarray, designs: dict[str, FoldDesign], chosen: str) -> dict:
+    """What the card records: the map's distances, and W and the median CV distance per design."""
+    return {"chosen": chosen, "map_median_distance": round(float(np.median(g_map)), 1),
+            "map_q90_distance": round(float(np.quantile(g_map, 0.9)), 1),
+            "designs": {k: d.summary() for k, d in designs.items()}}
