@@ -67,12 +67,12 @@ def rmse(a, b):
     return float(np.sqrt(np.mean((np.asarray(a) - np.asarray(b)) ** 2)))
 
 
-def one(layout: str, seed: int) -> dict:
+def one(layout: str, seed: int, options: dict | None = None) -> dict:
     warnings.simplefilter("ignore", PredictorWarning)
     seismic, truth, wells = make_field(FieldSpec(seed=seed, **LAYOUTS[layout]))
     wells.attrs["source"] = "synthetic"
     t0 = time.perf_counter()
-    trained = train(wells, seismic, TrainOptions(targets=["porosity", "facies"]))
+    trained = train(wells, seismic, TrainOptions(targets=["porosity", "facies"], **(options or {})))
     seconds = time.perf_counter() - t0
     X, xy, valid = map_rows(seismic, trained.feature_spec, trained.feature_names)
     phi = trained.targets["porosity"]
@@ -133,12 +133,14 @@ def main() -> None:
     parser.add_argument("--quick", action="store_true", help="one seed of the chosen set")
     parser.add_argument("--jobs", type=int, default=2)
     parser.add_argument("--layouts", nargs="*", default=list(LAYOUTS))
+    parser.add_argument("--cv", help="a fold design other than the default (for comparison)")
     args = parser.parse_args()
     seeds = {"tuning": TUNING, "held_out": HELD_OUT, "all": TUNING + HELD_OUT}[args.set]
     seeds = seeds[:1] if args.quick else seeds
     jobs = [(layout, seed) for seed in seeds for layout in args.layouts]
     with ProcessPoolExecutor(args.jobs) as pool:
-        rows = list(pool.map(one, *zip(*jobs, strict=True)))
+        options = [{"cv": args.cv} if args.cv else {}] * len(jobs)
+        rows = list(pool.map(one, *zip(*jobs, strict=True), options))
     table = pd.DataFrame(rows)
     pd.set_option("display.width", 250)
     pd.set_option("display.max_columns", 30)

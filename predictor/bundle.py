@@ -60,8 +60,8 @@ def model_card(trained, inputs: dict | None = None) -> dict:
             "chosen": tm.chosen,
             "cv": chosen["cv"],
             "cv_random": chosen["cv_random"],
-            "cv_method": (f"{trained.options.n_splits}-fold block CV" if trained.options.cv == "blocks"
-                          else "buffered leave-one-out") + ", scores weighted by the declustering weights",
+            "cv_method": tm.design.description + ", scores weighted by the declustering weights",
+            "cv_design": tm.distances,
             "block_size": tm.block_size,
             "block_size_source": tm.block_size_source,
             "residual_variogram": tm.variogram,

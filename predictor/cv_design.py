@@ -235,8 +235,17 @@ def design_folds(name: str, heads: np.ndarray, units: np.ndarray, g_map: np.ndar
     return FoldDesign(name, _rows(units, unit_splits), g_cv[units], w, text, details)
 
 
+CDF_LEVELS = np.linspace(0.0, 1.0, 41)
+
+
 def distance_summary(g_map: np.ndarray, designs: dict[str, FoldDesign], chosen: str) -> dict:
-    """What the card records: the map's distances, and W and the median CV distance per design."""
+    """What the card records: the map's distances, W and the median CV distance per design, and
+    quantiles of every distance distribution (for the CDF figure)."""
+    def quantiles(values):
+        return np.round(np.quantile(values, CDF_LEVELS), 1).tolist()
+
     return {"chosen": chosen, "map_median_distance": round(float(np.median(g_map)), 1),
             "map_q90_distance": round(float(np.quantile(g_map, 0.9)), 1),
-            "designs": {k: d.summary() for k, d in designs.items()}}
+            "designs": {k: d.summary() for k, d in designs.items()},
+            "cdf": {"levels": np.round(CDF_LEVELS, 3).tolist(), "map": quantiles(g_map),
+                    **{k: quantiles(d.distances) for k, d in designs.items()}}}

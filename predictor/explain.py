@@ -283,14 +283,14 @@ def trust_warnings(target: str, task: str, imp: pd.Series, X: pd.DataFrame, valu
                                      "expects it to fall as impedance rises: check the data or constrain the model")
     if task == "regression":
         if cv["r2"] < 0.1:
-            warnings_.append(f"{target}: blocked-CV R2 is {cv['r2']:.2f}: next to no skill away from the wells")
+            warnings_.append(f"{target}: CV R2 is {cv['r2']:.2f}: next to no skill away from the wells")
         if cv_random and cv_random["rmse"] < 0.8 * cv["rmse"]:
             warnings_.append(f"{target}: random k-fold RMSE {cv_random['rmse']:.3g} is far below the blocked "
                              f"{cv['rmse']:.3g}: nearby wells are alike, trust the blocked figure")
     else:
         chance = 1.0 / max(n_classes, 1)
         if cv["balanced_accuracy"] < chance + 0.05:
-            warnings_.append(f"{target}: blocked-CV balanced accuracy {cv['balanced_accuracy']:.2f} is near chance "
+            warnings_.append(f"{target}: CV balanced accuracy {cv['balanced_accuracy']:.2f} is near chance "
                              f"({chance:.2f})")
         if cv_random and cv_random["balanced_accuracy"] > cv["balanced_accuracy"] + 0.1:
             warnings_.append(f"{target}: random k-fold balanced accuracy is much higher than blocked: nearby wells "

@@ -202,15 +202,37 @@ def property_maps(maps: xr.Dataset, target: str, wells: pd.DataFrame | None, pat
     return save(fig, path)
 
 
+def distance_cdfs(design: dict, target: str, path) -> Path:
+    """Empirical CDFs of prediction distances: map node to nearest well, and held-out well to
+    nearest training well for each fold design (from the card's quantiles)."""
+    cdf = design["cdf"]
+    levels = np.asarray(cdf["levels"])
+    fig, ax = plt.subplots(figsize=(6.5, 3.8), layout="constrained")
+    ax.plot(cdf["map"], levels, color="black", lw=2.5, label="map nodes to nearest well (target)")
+    styles = {"matched": "tab:blue", "nndm": "tab:cyan", "blocks": "tab:orange", "buffered": "tab:purple",
+              "random": "tab:gray"}
+    for name, info in design["designs"].items():
+        chosen = " (used)" if name == design["chosen"] else ""
+        ax.plot(cdf[name], levels, color=styles.get(name, "tab:green"), lw=2 if chosen else 1.2,
+                ls="-" if chosen else "--", label=f"{name} CV: held-out well to training, W = {info['w']:.0f} m{chosen}")
+    ax.set_xlabel("distance to the nearest well (m)")
+    ax.set_ylabel("share of locations (cumulative)")
+    ax.set_ylim(0, 1)
+    ax.set_xlim(left=0)
+    ax.set_title(f"{target}: prediction distances, map vs cross-validation", fontsize=10)
+    ax.legend(fontsize=7.5, loc="lower right")
+    return save(fig, path)
+
+
 def leaderboard_chart(leaderboard: list[dict], metric: str, target: str, path) -> Path:
-    """Blocked vs random CV score of every candidate; baselines hatched, the chosen one marked."""
+    """Matched vs random CV score of every candidate; baselines hatched, the chosen one marked."""
     rows = [r for r in leaderboard if r.get("cv_random")]
     names = [r["candidate"] + (" *" if r["chosen"] else "") for r in rows]
     blocked = [r["cv"][metric] for r in rows]
     random = [r["cv_random"][metric] for r in rows]
     pos = np.arange(len(rows))
     fig, ax = plt.subplots(figsize=(7, 0.45 * len(rows) + 1.4), layout="constrained")
-    bars = ax.barh(pos - 0.2, blocked, 0.4, label="spatial blocks (reported)", color="tab:blue")
+    bars = ax.barh(pos - 0.2, blocked, 0.4, label="matched spatial CV (reported)", color="tab:blue")
     ax.barh(pos + 0.2, random, 0.4, label="random k-fold (optimistic)", color="tab:gray", alpha=0.6)
     for bar, row in zip(bars, rows, strict=True):
         if row["baseline"]:

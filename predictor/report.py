@@ -116,15 +116,16 @@ def _summary(card, check):
         key = "rmse" if info["task"] == "regression" else "balanced_accuracy"
         unit = " (log10 mD)" if info.get("transform") == "log10" else ""
         random = (info.get("cv_random") or {}).get(key)
-        rows.append({"target": t, "chosen model": info["chosen"], "blocked CV": info["cv"][key],
+        rows.append({"target": t, "chosen model": info["chosen"], "matched CV": info["cv"][key],
                      "random CV (optimistic)": random if random is not None else np.nan,
                      "metric": key + unit, "wells": info["n_wells"]})
     body = (f'<p class="caution">{html.escape(CAUTION)}</p>'
             f"<p>{html.escape(check.qc.bias[next(iter(check.qc.bias))]['verdict'])}</p>"
             + _table(pd.DataFrame(rows))
-            + '<p class="small">Blocked CV holds out whole spatial blocks and weights every well by its '
-              "declustering weight, so it estimates the error over the map. Random k-fold is shown for contrast "
-              "only: nearby wells are alike, so it flatters the model.</p>")
+            + '<p class="small">The matched CV holds wells out as far from their training wells as the map\'s '
+              "nodes are from their nearest well, and weights every well by its declustering weight, so it "
+              "estimates the error over the map. Random k-fold is shown for contrast only: nearby wells are alike, "
+              "so on clustered wells it flatters the model.</p>")
     return _section("glance", "At a glance", body)
 
 
@@ -166,14 +167,36 @@ def _leaderboard(card, fig):
         rows, chosen = [], None
         for i, r in enumerate(info["leaderboard"]):
             rows.append({"candidate": r["candidate"], "kind": "baseline" if r["baseline"] else "candidate",
-                         f"{key} blocked": r["cv"][key], f"{other} blocked": r["cv"][other],
+                         f"{key} matched": r["cv"][key], f"{other} matched": r["cv"][other],
+                         "loss standard error": r.get("cv_se", np.nan),
                          f"{key} random": (r.get("cv_random") or {}).get(key, np.nan)})
             chosen = i if r["chosen"] else chosen
         plots.leaderboard_chart(info["leaderboard"], key, t, fig / f"board_{t}.png")
-        body += (f"<h3>{html.escape(t)}</h3><p class='small'>{html.escape(info['cv_method'])}; blocks of "
-                 f"{info['block_size']:.0f} m ({html.escape(info['block_size_source'])}).</p>"
-                 + _table(pd.DataFrame(rows), chosen) + _img(fig / f"board_{t}.png", f"{t}: blocked vs random CV"))
+        body += (f"<h3>{html.escape(t)}</h3><p class='small'>{html.escape(info['cv_method'])}. Selection: the "
+                 "blend is kept unless a single candidate's per-well loss (squared error, or log-loss for classes) "
+                 "is lower by more than one standard error of the paired difference.</p>"
+                 + _table(pd.DataFrame(rows), chosen) + _img(fig / f"board_{t}.png", f"{t}: matched vs random CV"))
+        design = info.get("cv_design")
+        if design and "cdf" in design:
+            plots.distance_cdfs(design, t, fig / f"distances_{t}.png")
+            body += (_img(fig / f"distances_{t}.png", f"{t}: prediction distances of the map and of each CV design")
+                     + f"<p>{html.escape(_design_sentences(design))}</p>")
     return _section("scores", "How good is each model: spatial cross-validation", body)
+
+
+def _design_sentences(design: dict) -> str:
+    """Two sentences on why the used fold design fits this map."""
+    used = design["designs"][design["chosen"]]
+    others = {k: v["w"] for k, v in design["designs"].items() if k != design["chosen"]}
+    closest = min(others, key=others.get) if others else None
+    text = (f"Map nodes lie a median {design['map_median_distance']:.0f} m from their nearest well; in the "
+            f"{design['chosen']} design a held-out well lies a median {used['median_cv_distance']:.0f} m from its "
+            f"nearest training well (W = {used['w']:.0f} m between the two distance distributions).")
+    if closest is not None:
+        text += (f" The closest other design, {closest}, is W = {others[closest]:.0f} m away: the smaller W, the "
+                 "more the CV's prediction situation resembles the map's, so the more its error estimates the "
+                 "map's error.")
+    return text
 
 
 def _maps(maps, wells, card, fig):
@@ -196,7 +219,7 @@ def _maps(maps, wells, card, fig):
             body += _img(fig / f"aoa_{t}.png", f"{t}: area of applicability")
             inside, outside = a.get("cv_inside"), a.get("cv_outside")
             key = "rmse" if info["task"] == "regression" else "balanced_accuracy"
-            body += (f"<p class='small'>Blocked-CV {key} of wells inside the area of applicability: "
+            body += (f"<p class='small'>Matched-CV {key} of wells inside the area of applicability: "
                      f"{_fmt(inside[key], 4) if inside else 'n/a'} ({a.get('wells_inside')} wells); outside: "
                      f"{_fmt(outside[key], 4) if outside else 'n/a'} ({a.get('wells_outside')} wells).</p>")
     return _section("maps", "Maps between the wells", body)
@@ -212,7 +235,7 @@ def _intervals(card):
                          "spread": info.get("interval_spread") or "none"})
     body = ("<p>q10 and q90 are non-exceedance percentiles: the property has a 10 % chance of being below q10 and a "
             "10 % chance of being above q90. The trade often reads P10/P90 the other way round (exceedance). The "
-            "offsets come from the blocked-CV out-of-fold errors, weighted by the declustering weights, so about "
+            "offsets come from the matched-CV out-of-fold errors, weighted by the declustering weights, so about "
             "80 % of map cells should fall inside [q10, q90].</p>" + (_table(pd.DataFrame(rows)) if rows else ""))
     return _section("intervals", "Uncertainty: the q10-q90 interval", body)
 

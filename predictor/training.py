@@ -13,6 +13,7 @@ from typing import Literal
 import numpy as np
 import pandas as pd
 import xarray as xr
+from scipy.spatial import cKDTree
 
 from .checks import decluster, decluster_samples
 from .cv_design import DESIGNS, FoldDesign, design_folds, distance_summary, map_distances
@@ -216,6 +217,12 @@ def _block_size(data: FitData, options: TrainOptions, attrs: list[str], baseline
         model = auto_variogram(heads[:, 0], heads[:, 1], resid)
         size, vario = model.range, model.to_dict()
         source = f"fitted {model.kind} variogram range of the linear baseline's residuals"
+        if model.pure_nugget:
+            # no spatial structure: a range would be noise; blocks four well spacings wide instead
+            spacing_ = float(np.median(cKDTree(heads).query(heads, k=2)[0][:, 1]))
+            size = 4 * spacing_
+            source = (f"four times the median well spacing ({spacing_:.0f} m): the linear baseline's residuals "
+                      "show no spatial correlation (pure nugget), so no variogram range could size the blocks")
     extent = max(np.ptp(cv_xy[:, 0]), np.ptp(cv_xy[:, 1]))
     shrunk = False
     while np.unique(block_labels(cv_xy[:, 0], cv_xy[:, 1], size, options.block_angle)).size < 2 * options.n_splits:
@@ -481,6 +488,9 @@ def _target_table(prep: _Prepared, target: str, options: TrainOptions) -> _Targe
         baseline_y = (y == np.argmax(np.bincount(y))).astype(float)
     else:
         y = raw.to_numpy(float)[idx]
+        if np.ptp(y) == 0:
+            raise ModelError(f"target {target!r} is {y[0]:g} at every well: a constant has nothing to map; "
+                             "check the column, or drop the target")
         if target in LOG_TARGETS:
             y, transform = np.log10(y), "log10"
         baseline_y = y
@@ -587,6 +597,10 @@ def _train_target(prep: _Prepared, target: str, options: TrainOptions) -> Target
             chosen = tied.name
     model, oof = oofs[chosen]
     calibration, spread_model, notes = None, None, list(table.notes)
+    if vario and vario.get("pure_nugget"):
+        notes.append(f"{target}: the residuals of the linear baseline show no spatial correlation (pure nugget "
+                     "semivariogram): kriging and well ties have nothing to add, and the CV blocks are sized by "
+                     "the well spacing instead")
     if task == "regression":
         calibration, spread_model = _calibrate(model, data, y - oof, design, attrs, options, target, notes)
     final = type_copy(model).fit(data)
@@ -633,7 +647,7 @@ def _calibrate(model, data: FitData, residuals: np.ndarray, design, attrs: list[
 
 
 def _inside_outside(task, y, oof, weights, classes, inside) -> dict:
-    """Blocked-CV scores of the wells inside and outside the area of applicability."""
+    """CV scores of the wells inside and outside the area of applicability."""
     out = {"threshold_rule": "upper whisker of the training wells' CV dissimilarity index",
            "wells_inside": int(inside.sum()), "wells_outside": int((~inside).sum())}
     for label, sel in (("inside", inside), ("outside", ~inside)):

@@ -38,6 +38,7 @@ class VariogramModel:
     nugget: float
     sill: float  # partial sill, above the nugget
     range: float
+    pure_nugget: bool = False  # no spatial structure found: the range means nothing
 
     def __call__(self, h) -> np.ndarray:
         h = np.asarray(h, dtype=float)
@@ -90,8 +91,17 @@ def experimental(x, y, values, n_lags: int = 15, max_lag: float | None = None, a
     return Experimental(lagsum[have] / counts[have], total[have] / counts[have], counts[have])
 
 
+START_RANGES = (0.1, 0.25, 0.5, 1.0, 2.0)  # starting ranges, as fractions of the largest lag
+STRUCTURE_GAIN = 0.2  # a structured model must cut the misfit of a flat line by this share
+
+
 def fit_variogram(exp: Experimental, kinds: tuple[str, ...] = KINDS) -> VariogramModel:
-    """Least-squares fit (weighted by pair counts) of each model kind; the best fit is returned."""
+    """Least-squares fit (weighted by pair counts) of each model kind from several starting
+    ranges (one start can stop in a local minimum); the best fit is returned.
+
+    When no model fits the experimental values clearly better than a flat line at their mean
+    (pure nugget: no spatial correlation at these lags), the result has ``pure_nugget=True``.
+    """
     if exp.lags.size < 3:
         raise ModelError("too few lag bins with pairs to fit a semivariogram (need 3); add wells or lags")
     top = float(np.max(exp.gamma))
@@ -103,17 +113,22 @@ def fit_variogram(exp: Experimental, kinds: tuple[str, ...] = KINDS) -> Variogra
         def model(h, nugget, sill, rng, kind=kind):
             return nugget + sill * _shape(kind, h, rng)
 
-        start = [min(exp.gamma[0], 0.5 * top), max(top - exp.gamma[0], 0.1 * top), h_max / 2]
         bounds = ([0.0, 1e-12, h_min * 0.5], [top * 1.5 + 1e-12, top * 3 + 1e-12, h_max * 4])
-        try:
-            params, _ = curve_fit(model, exp.lags, exp.gamma, p0=start, sigma=sigma, bounds=bounds, maxfev=5000)
-        except (RuntimeError, ValueError):
-            continue
-        err = float(np.sum(exp.counts * (model(exp.lags, *params) - exp.gamma) ** 2))
-        if err < best_err:
-            best, best_err = VariogramModel(kind, float(params[0]), float(params[1]), float(params[2])), err
+        for share in START_RANGES:
+            start = [min(exp.gamma[0], 0.5 * top), max(top - exp.gamma[0], 0.1 * top),
+                     float(np.clip(share * h_max, bounds[0][2] * 1.01, bounds[1][2] * 0.99))]
+            try:
+                params, _ = curve_fit(model, exp.lags, exp.gamma, p0=start, sigma=sigma, bounds=bounds, maxfev=5000)
+            except (RuntimeError, ValueError):
+                continue
+            err = float(np.sum(exp.counts * (model(exp.lags, *params) - exp.gamma) ** 2))
+            if err < best_err:
+                best, best_err = VariogramModel(kind, float(params[0]), float(params[1]), float(params[2])), err
     if best is None:
         raise ModelError("no semivariogram model could be fitted to the experimental values")
+    flat = float(np.sum(exp.counts * (exp.gamma - np.average(exp.gamma, weights=exp.counts)) ** 2))
+    if best_err > (1 - STRUCTURE_GAIN) * flat:
+        best.pure_nugget = True
     return best
 
 
@@ -127,8 +142,12 @@ def auto_variogram(x, y, values, n_lags: int = 12) -> VariogramModel:
     Gaussian above all, makes the kriging system ill-conditioned and its estimates swing wildly
     between wells (common practice).
     """
+    values = np.asarray(values, dtype=float)
+    if np.ptp(values[np.isfinite(values)]) == 0:
+        raise ModelError("the values are constant: there is nothing to fit a semivariogram to")
     model = fit_variogram(experimental(x, y, values, n_lags=n_lags))
     total = model.nugget + model.sill
     if model.nugget < MIN_NUGGET_SHARE * total:
-        model = VariogramModel(model.kind, MIN_NUGGET_SHARE * total, (1 - MIN_NUGGET_SHARE) * total, model.range)
+        model = VariogramModel(model.kind, MIN_NUGGET_SHARE * total, (1 - MIN_NUGGET_SHARE) * total, model.range,
+                               model.pure_nugget)
     return model
