@@ -249,3 +249,32 @@ def distance_summary(g_map: np.ndarray, designs: dict[str, FoldDesign], chosen: 
             "designs": {k: d.summary() for k, d in designs.items()},
             "cdf": {"levels": np.round(CDF_LEVELS, 3).tolist(), "map": quantiles(g_map),
                     **{k: quantiles(d.distances) for k, d in designs.items()}}}
+
+
+def representative_weights(base: np.ndarray, margins: list[tuple[np.ndarray, np.ndarray]], n_bins: int = 4,
+                           iterations: int = 50) -> tuple[np.ndarray, float]:
+    """Rake ``base`` weights (iterative proportional fitting) so that, for every margin
+    (values at the held-out wells, the same quantity at the map's locations), the weighted
+    share of wells in each of the map's quantile bins equals the map's share.
+
+    Target-weighted CV (Brenning & Suesse 2026, arXiv:2603.29981, preprint): the held-out wells
+    then stand for the map in nearest-well distance and attribute distribution.  A map bin that
+    no well falls into cannot be represented; the share of the map in such bins is returned
+    beside the weights.
+    """
+    w = np.asarray(base, float).copy()
+    binned = []
+    unsupported = 0.0
+    for wells_values, map_values in margins:
+        edges = np.unique(np.quantile(map_values, np.linspace(0, 1, n_bins + 1)[1:-1]))
+        well_bin, map_bin = np.digitize(wells_values, edges), np.digitize(map_values, edges)
+        share = np.bincount(map_bin, minlength=edges.size + 1) / len(map_values)
+        empty = np.bincount(well_bin, minlength=edges.size + 1) == 0
+        unsupported = max(unsupported, float(share[empty].sum()))
+        share = np.where(empty, 0.0, share)
+        binned.append((well_bin, share / share.sum()))
+    for _ in range(iterations):
+        for well_bin, share in binned:
+            current = np.bincount(well_bin, weights=w, minlength=share.size) / w.sum()
+            w *= np.divide(share, current, out=np.ones_like(share), where=current > 0)[well_bin]
+    return w * len(w) / w.sum(), unsupported

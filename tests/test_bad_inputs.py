@@ -84,7 +84,15 @@ TRAIN_CASES = {
     "a class with one well": (lambda t: tr(_wells_with(t, lambda f: f.assign(facies=["coal"] + list(f.facies[1:]))),
                                            GRID, target=("facies",)), "single well"),
     "too few wells": (lambda t: tr(_wells_with(t, lambda f: f.head(8))), "at least 15 wells"),
-    "all wells in one spot": (lambda t: tr(_wells_with(t, lambda f: f.assign(x=513000.0, y=7205000.0))), ""),
+    "all wells in one spot": (lambda t: tr(_wells_with(t, lambda f: f.assign(x=513000.0, y=7205000.0))),
+                              "sit at one position"),
+    "constant target": (lambda t: tr(_wells_with(t, lambda f: f.assign(porosity=0.2))), "0.2 at every well"),
+    "fewer wells than folds need": (lambda t: tr(str(DEMO / "wells.csv"), GRID, "--folds", "25"),
+                                    "25 folds needs at least 75 wells"),
+    "a facies in one block only": (lambda t: tr(_one_block_sand(t), GRID, "--cv", "blocks", "--block-size", "500",
+                                                target=("facies",)), "no training well of facies sand"),
+    "monotone on an unknown attribute": (lambda t: tr(str(DEMO / "wells.csv"), GRID, "--monotone", "ai:-1"),
+                                         "not an attribute of the grid"),
     "wells outside the grid": (lambda t: tr(_wells_with(t, lambda f: f.assign(x=f.x + 10_000))), "outside the grid"),
     "constant attribute": (lambda t: tr(str(DEMO / "wells.csv"), _small_grid(t, lambda g: g.assign(impedance=9000.0))),
                            "constant"),
@@ -102,6 +110,17 @@ TRAIN_CASES = {
                                                                        "g.nc")), "not a readable NetCDF"),
     "bad fold count": (lambda t: tr(str(DEMO / "wells.csv"), GRID, "--folds", "1"), "n_splits"),
 }
+
+
+def _one_block_sand(tmp):
+    from predictor.spatial_cv import block_labels
+
+    def edit(f):
+        labels = block_labels(f.x, f.y, 500.0)
+        crowded = np.bincount(labels).argmax()
+        return f.assign(facies=np.where(labels == crowded, "sand", np.where(f.facies == "sand", "silt", f.facies)))
+
+    return _wells_with(tmp, edit)
 
 
 def _bytes(tmp, data, name="w.csv"):

@@ -159,3 +159,37 @@ def test_train_cli_bad_input_leaves_nothing(tmp_path, capsys):
     assert main(["train", "--wells", WELLS, "--grid", GRID, "--target", "nonexistent", "--out", str(out)]) == 2
     assert "no column 'nonexistent'" in capsys.readouterr().err
     assert not out.exists() and not list(tmp_path.iterdir())
+
+
+def test_a_facies_held_in_one_block_only_cannot_be_validated():
+    from predictor.spatial_cv import block_labels
+
+    wells, grid = read_wells(WELLS), read_grid(GRID)
+    labels = block_labels(wells.x, wells.y, 500.0)
+    crowded = np.bincount(labels).argmax()
+    wells["facies"] = np.where(labels == crowded, "sand", np.where(wells.facies == "sand", "silt", wells.facies))
+    with pytest.raises(ModelError, match="has no training well of facies sand"):
+        train(wells, grid, TrainOptions(targets=["facies"], cv="blocks", block_size=500.0))
+
+
+def test_monotone_constraint_follows_the_named_attribute():
+    wells, grid = read_wells(WELLS), read_grid(GRID)
+    grid = grid.rename({"impedance": "ai"})
+    trained = train(wells, grid, TrainOptions(targets=["porosity"], monotone={"ai": -1},
+                                              candidates=["linear", "lightgbm_monotone"]))
+    model = trained.targets["porosity"].candidates["lightgbm_monotone"]
+    assert all(v == -1 for v in model.monotone.values()) and any(k.startswith("ai_smooth") for k in model.monotone)
+    assert "ai" in model.monotone and not any("contrast" in k or "gradient" in k for k in model.monotone)
+    # the constrained model never lets porosity rise with ai along a line through the wells' range
+    X = trained.well_features.iloc[[0] * 50].reset_index(drop=True)
+    X["ai"] = np.linspace(*trained.training_ranges["ai"], 50)
+    fitted = type(model).fit(model, trained.targets["porosity"].data)
+    assert np.all(np.diff(fitted.predict(X)) <= 1e-12)
+    with pytest.raises(InputError, match="not an attribute of the grid"):
+        train(wells, grid, TrainOptions(targets=["porosity"], monotone={"impedance": -1}))
+
+
+def test_unknown_options_name_the_allowed_values():
+    wells, grid = read_wells(WELLS), read_grid(GRID)
+    with pytest.raises(InputError, match="cv = 'block' is not known; choose one of matched, nndm"):
+        train(wells, grid, TrainOptions(targets=["porosity"], cv="block"))
