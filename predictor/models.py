@@ -317,15 +317,21 @@ class RegressionKriging:
 class FaciesMixture:
     """Per-facies linear regressors mixed by facies probabilities from a LightGBM classifier.
 
-    The porosity of a node is sum over facies c of P(c | seismic) * f_c(seismic); facies with
-    fewer than 3 wells use their weighted mean.
+    The porosity of a node is sum over facies c of P(c | seismic) * f_c(seismic).  The
+    classifier sees every feature.  A facies' regressor uses every feature when the facies has
+    ``MIN_PER_FEATURE`` wells per coefficient, else only ``member_features`` (the attributes)
+    if it has that many for them, else the facies' weighted mean; its output is held within the
+    facies' observed range widened by a quarter, so a regressor fitted on a handful of wells
+    cannot extrapolate to absurd values.
     """
 
     task = "regression"
+    MIN_PER_FEATURE = 5
 
-    def __init__(self, features: list[str], name: str = "facies_mixture"):
+    def __init__(self, features: list[str], name: str = "facies_mixture", member_features: list[str] | None = None):
         self.features = features
         self.name = name
+        self.member_features = member_features
 
     def fit(self, data: FitData) -> FaciesMixture:
         known = data.facies >= 0
@@ -333,11 +339,16 @@ class FaciesMixture:
                                   data.xy[known], data.groups[known], data.facies_classes, seed=data.seed,
                                   n_threads=data.n_threads)
         self.classifier_ = LightGBM("classification", self.features, "facies_classifier").fit(classifier_data)
-        self.members_ = []
+        self.members_, self.limits_ = [], []
         for code in range(len(data.facies_classes)):
             sel = data.facies == code
-            if sel.sum() >= 3:
-                self.members_.append(Linear(self.features).fit(data.subset(np.flatnonzero(sel))))
+            values = data.y[sel] if sel.any() else data.y
+            spread = 0.25 * float(np.ptp(values))
+            self.limits_.append([float(values.min()) - spread, float(values.max()) + spread])
+            usable = [f for f in (self.features, self.member_features)
+                      if f and sel.sum() >= self.MIN_PER_FEATURE * (len(f) + 1)]
+            if usable:
+                self.members_.append(Linear(usable[0]).fit(data.subset(np.flatnonzero(sel))))
             else:
                 mean = float(np.average(data.y[sel], weights=data.weights[sel])) if sel.any() else float(data.y.mean())
                 self.members_.append(mean)
@@ -345,7 +356,8 @@ class FaciesMixture:
 
     def _member(self, i, X) -> np.ndarray:
         member = self.members_[i]
-        return member.predict(X) if isinstance(member, Linear) else np.full(len(X), member)
+        values = member.predict(X) if isinstance(member, Linear) else np.full(len(X), member)
+        return np.clip(values, *self.limits_[i])
 
     def predict(self, X, xy=None) -> np.ndarray:
         proba = self.classifier_.predict(X)
@@ -353,14 +365,16 @@ class FaciesMixture:
 
     def save(self, folder: Path, stem: str) -> dict:
         return {"type": "facies_mixture", "name": self.name, "features": self.features,
+                "member_features": self.member_features, "limits": self.limits_,
                 "classifier": self.classifier_.save(folder, f"{stem}.classifier"),
                 "members": [m.save(folder, stem) if isinstance(m, Linear) else m for m in self.members_]}
 
     @classmethod
     def load(cls, desc: dict, folder: Path) -> FaciesMixture:
-        model = cls(desc["features"], desc["name"])
+        model = cls(desc["features"], desc["name"], desc.get("member_features"))
         model.classifier_ = LightGBM.load(desc["classifier"], folder)
         model.members_ = [Linear.load(m, folder) if isinstance(m, dict) else float(m) for m in desc["members"]]
+        model.limits_ = desc.get("limits") or [[-np.inf, np.inf]] * len(model.members_)
         return model
 
 
@@ -500,6 +514,8 @@ def type_copy(candidate):
         return LightGBM(candidate.task, candidate.features, candidate.name, candidate.monotone, candidate.max_rounds)
     if isinstance(candidate, Kriging):
         return Kriging(candidate.name)
+    if isinstance(candidate, FaciesMixture):
+        return FaciesMixture(candidate.features, candidate.name, candidate.member_features)
     if isinstance(candidate, Blend):
         return Blend([type_copy(m) for m in candidate.members], candidate.weights, candidate.name,
                      candidate.member_oof, candidate.y_all)

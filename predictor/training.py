@@ -16,7 +16,15 @@ import xarray as xr
 from scipy.spatial import cKDTree
 
 from .checks import decluster, decluster_samples
-from .cv_design import DESIGNS, FoldDesign, design_folds, distance_summary, map_distances
+from .cv_design import (
+    DESIGNS,
+    MAP_SAMPLE,
+    FoldDesign,
+    design_folds,
+    distance_summary,
+    map_distances,
+    representative_weights,
+)
 from .declustering import declustered_statistics
 from .errors import InputError, ModelError, PredictorWarning
 from .explain import (
@@ -131,6 +139,7 @@ class TargetModel:
     distances: dict = field(default_factory=dict)  # prediction distances: map vs each design (W)
     folds: np.ndarray | None = None  # the test fold of every training row
     notes: list[str] = field(default_factory=list)
+    representative_weights: np.ndarray | None = None  # score weights raked to the map (see cv_design)
 
     def refit(self, candidate: str):
         """Fit the named leaderboard candidate (a baseline, say) on all wells, for comparison maps."""
@@ -267,7 +276,7 @@ def _candidates(task: Task, target: str, attrs: list[str], names: list[str], wel
         out.append(LightGBM("regression", names, "lightgbm_monotone", monotone=monotone_constraints(
             options.monotone, attrs, names)))
     if "facies" in wells and target != "facies" and wells["facies"].dropna().astype(str).nunique() >= 2:
-        out.append(FaciesMixture(names))
+        out.append(FaciesMixture(names, member_features=attrs))
     return out
 
 
@@ -328,7 +337,8 @@ class _Prepared:
     weights: np.ndarray
     units: np.ndarray  # the well of each row
     cv_xy: np.ndarray  # the position each row is split by (a volume's well: its mean position)
-    map_xy: np.ndarray  # prediction locations (valid nodes or live traces)
+    map_xy: np.ndarray  # prediction locations (valid nodes or live traces), a seeded sample of them
+    map_attrs: pd.DataFrame | None  # the attributes at those nodes (maps only)
     volume: bool
     ranges: dict
     declustering: dict
@@ -369,6 +379,9 @@ def _prepare(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> _P
         xx, yy = np.meshgrid(grid.x.to_numpy(), grid.y.to_numpy())
         valid = np.all([np.isfinite(grid[v].to_numpy()) for v in grid.data_vars], axis=0)
         map_xy = np.column_stack([xx[valid], yy[valid]])
+    pick = _map_sample(len(map_xy), options.seed)
+    map_xy = map_xy[pick]
+    map_attrs = None if volume else pd.DataFrame({a: grid[a].to_numpy()[valid][pick] for a in spec.attributes})
     ranges = {n: [float(np.nanmin(X_all[n])), float(np.nanmax(X_all[n]))] for n in names}
     facies_classes: list[str] = []
     facies_codes = None
@@ -388,8 +401,17 @@ def _prepare(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> _P
         space = {"kind": "volume", "z_domain": grid.attrs.get("z_domain", "unknown"),
                  "wells_z_domain": wells_z_domain(wells), "z_range": [float(wells["z"].min()), float(wells["z"].max())],
                  "samples": int(len(wells)), "wells": int(wells["well_id"].nunique())}
-    return _Prepared(wells, X_all, names, spec, xy, weights, units, cv_xy, map_xy, volume, ranges, decl, stats,
-                     facies_codes, facies_classes, space, notes)
+    return _Prepared(wells, X_all, names, spec, xy, weights, units, cv_xy, map_xy, map_attrs, volume, ranges, decl,
+                     stats, facies_codes, facies_classes, space, notes)
+
+
+def _map_sample(n: int, seed: int) -> np.ndarray:
+    """A seeded sample of the prediction locations: enough for their distance and attribute
+    distributions, small enough to be cheap."""
+    if n == 0:
+        raise ModelError("the grid has no valid node to predict (every node lacks an attribute value); check the "
+                         "grid's attribute columns")
+    return np.sort(np.random.default_rng(seed).choice(n, MAP_SAMPLE, replace=False)) if n > MAP_SAMPLE else np.arange(n)
 
 
 def default_features(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> FeatureSpec:
@@ -547,9 +569,13 @@ def _cross_validate_all(candidates: list, data: FitData, splits) -> dict:
     return oofs
 
 
-def _board_row(name: str, model, task: Task, table: _TargetTable, oof, random_oof) -> dict:
+def _board_row(name: str, model, task: Task, table: _TargetTable, oof, random_oof, score_weights) -> dict:
+    """Scores of one candidate: ``cv`` with the representative score weights (the reported
+    estimate of the map's error), ``cv_declustered`` with the declustering weights alone,
+    ``cv_random`` for contrast."""
     row = {"candidate": name, "baseline": name in BASELINES, "features": list(model.features),
-           "cv": _score(task, table.y, oof, table.data.weights, table.classes),
+           "cv": _score(task, table.y, oof, score_weights, table.classes),
+           "cv_declustered": _score(task, table.y, oof, table.data.weights, table.classes),
            "cv_random": _score(task, table.y, random_oof, table.data.weights, table.classes),
            "cv_se": _loss_se(table.y, oof, table.data.weights, table.units)}
     if isinstance(model, Blend):
@@ -587,6 +613,10 @@ def _train_target(prep: _Prepared, target: str, options: TrainOptions) -> Target
                                options.block_angle)
     designs = _designs(table, block, options, task, target)
     design, random_design = designs[options.cv], designs["random"]
+    margins = [(design.distances, data.map_distances)]
+    if prep.map_attrs is not None:
+        margins += [(data.X[a].to_numpy(float), prep.map_attrs[a].to_numpy(float)) for a in attrs]
+    representative, unsupported = representative_weights(data.weights, margins)
     candidates = _candidates(task, target, attrs, prep.names, prep.wells, options, prep.volume)
     if options.candidates:
         known = [c.name for c in candidates]
@@ -598,14 +628,15 @@ def _train_target(prep: _Prepared, target: str, options: TrainOptions) -> Target
     for name in progress([options.cv, "random"], f"{target}: cross-validating {len(candidates)} candidates"):
         runs[name] = _cross_validate_all(candidates, data, designs[name].splits)
     oofs, random_oofs = runs[options.cv], runs["random"]
-    board = [_board_row(name, model, task, table, oof, random_oofs[name][1]) for name, (model, oof) in oofs.items()]
+    board = [_board_row(name, model, task, table, oof, random_oofs[name][1], representative)
+             for name, (model, oof) in oofs.items()]
     chosen = _select(board, oofs, table, task)
     if task == "regression" and options.well_ties != "never" and not prep.volume and not isinstance(
             oofs[chosen][0], Kriging | RegressionKriging):
         tied = WellTies(type_copy(oofs[chosen][0]))
         oofs[tied.name] = (tied, out_of_fold(tied, data, design.splits))
         random_oof = out_of_fold(tied, data, random_design.splits)
-        board.append(_board_row(tied.name, tied, task, table, oofs[tied.name][1], random_oof))
+        board.append(_board_row(tied.name, tied, task, table, oofs[tied.name][1], random_oof, representative))
         if options.well_ties == "always" or _clearly_better(_losses(y, oofs[tied.name][1]),
                                                             _losses(y, oofs[chosen][1]), data.weights, table.units):
             chosen = tied.name
@@ -630,6 +661,15 @@ def _train_target(prep: _Prepared, target: str, options: TrainOptions) -> Target
                                    values, chosen_row["cv"], chosen_row["cv_random"], len(classes),
                                    pd.Series(table.units).groupby(folds).nunique().tolist())
     distance = distance_summary(data.map_distances, designs, options.cv)
+    distance["score_weights"] = {
+        "what": "declustering weights raked so the held-out wells match the map's nearest-well distance and "
+                "attribute quartiles (target-weighted CV); they weight the reported CV scores, while models, "
+                "selection and intervals use the declustering weights",
+        "unsupported_map_share": round(unsupported, 3), "effective_wells": round(effective_size(
+            representative, table.units), 1)}
+    if unsupported > 0:
+        warned.append(f"{target}: {unsupported:.0%} of the map lies in distance or attribute quartiles that no "
+                      "held-out well falls into; the CV cannot represent that part of the map")
     if design.w > 0.5 * distance["map_median_distance"] and design.w > 0:
         warned.append(f"{target}: no CV design reproduces the map's prediction distances (W = {design.w:.0f} m "
                       f"against a median map-to-well distance of {distance['map_median_distance']:.0f} m): the map "
@@ -642,7 +682,7 @@ def _train_target(prep: _Prepared, target: str, options: TrainOptions) -> Target
                        variogram=vario, data=data, candidates={k: v[0] for k, v in oofs.items()},
                        spread=spread_model, importance=imp, applicability=aoa, applicability_cv=aoa_cv,
                        trust=facts, units=table.units, design=design, distances=distance, folds=folds,
-                       notes=notes)
+                       notes=notes, representative_weights=representative)
 
 
 def _calibrate(model, data: FitData, residuals: np.ndarray, design, attrs: list[str], options: TrainOptions,
