@@ -7,8 +7,8 @@ split-conformal prediction (Tibshirani, Barber, Candes & Ramdas 2019, NeurIPS; B
 2021, Annals of Statistics for the cross-validation variant): the calibration residuals carry
 masses w_i / (sum w + w_test) and the test point's own mass w_test / (sum w + w_test) sits at
 +infinity (at -infinity for the lower bound); leaving it out would break coverage.  The
-weights are normalised to the effective number of wells, so the test point counts as one
-well.  With ``spread`` the residuals are first divided by a local spread, so intervals are
+weights are normalised to the effective number of calibration points (samples), so the test
+point, one node or one volume sample, counts as one.  With ``spread`` the residuals are first divided by a local spread, so intervals are
 wider where the model errs more.  ``bounds`` keeps a target in its physical range (porosity
 in [0, 1]).
 """
@@ -33,6 +33,7 @@ class IntervalCalibration:
     n_effective: float = 0.0
     bounds: tuple[float, float] | None = None
     method: str = "weighted split-conformal"
+    n_effective_wells: float = 0.0
 
     def to_dict(self) -> dict:
         return asdict(self)
@@ -76,15 +77,18 @@ def calibrate(residuals, weights=None, low: float = LOW, high: float = HIGH, spr
     scaled = spread is not None
     if scaled:
         r = r / np.maximum(np.asarray(spread, float), 1e-12)
-    n = effective_size(w, units)
-    mass = w * n / w.sum()  # the weights in effective wells; the test point weighs one
+    # the test point is one node (one sample in a volume), so masses are counted in samples;
+    # the effective number of wells is recorded beside it (samples of a well are alike)
+    n = effective_size(w)
+    mass = w * n / w.sum()  # the weights in effective samples; the test point weighs one
     upper = conformal_quantile(r, mass, high, 1.0)
     lower = -conformal_quantile(-r, mass, 1.0 - low, 1.0)
     # too few wells to reach the level: the widest residual seen (said in the card by n_effective)
     upper = float(np.max(r)) if not np.isfinite(upper) else upper
     lower = float(np.min(r)) if not np.isfinite(lower) else lower
     return IntervalCalibration(min(lower, 0.0), max(upper, 0.0), low, high, scaled, n,
-                               None if bounds is None else tuple(bounds))
+                               None if bounds is None else tuple(bounds),
+                               n_effective_wells=effective_size(w, units) if units is not None else n)
 
 
 class SpreadModel:

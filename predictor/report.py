@@ -231,7 +231,8 @@ def _intervals(card):
         c = info.get("calibration")
         if c:
             rows.append({"target": t, "q10 offset": c["lower"], "q90 offset": c["upper"],
-                         "scaled by local spread": str(c["scaled"]), "effective wells": c["n_effective"],
+                         "scaled by local spread": str(c["scaled"]),
+                         "effective wells": c.get("n_effective_wells") or c["n_effective"],
                          "spread": info.get("interval_spread") or "none"})
     body = ("<p>q10 and q90 are non-exceedance percentiles: the property has a 10 % chance of being below q10 and a "
             "10 % chance of being above q90. The trade often reads P10/P90 the other way round (exceedance). The "

@@ -68,8 +68,7 @@ def leaderboard_lines(trained: TrainedModels) -> list[str]:
         design = tm.distances["designs"][tm.distances["chosen"]]
         lines.append(f"{name}: {design['description']}; held-out wells a median {design['median_cv_distance']:.0f} m "
                      f"from training wells, map nodes {tm.distances['map_median_distance']:.0f} m from a well; "
-                     f"{key}{unit} weighted so the held-out wells represent the map (random CV: declustering "
-                     "weights)")
+                     f"declustering-weighted {key}{unit}")
         for row in tm.leaderboard:
             mark = "*" if row["chosen"] else " "
             kind = "baseline" if row["baseline"] else "candidate"

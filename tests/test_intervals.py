@@ -41,3 +41,26 @@ def test_q10_below_q50_below_q90(residuals, q50):
     cal = calibrate(residuals)
     q10, q90 = cal.apply(np.array(q50))
     assert np.all(q10 <= np.array(q50)) and np.all(np.array(q50) <= q90)
+
+
+def test_conformal_quantile_puts_the_test_points_mass_at_infinity():
+    # Tibshirani, Barber, Candes & Ramdas (2019), NeurIPS: with equal weights the level-q
+    # quantile of sum_i delta(R_i)/(n+1) + delta(+inf)/(n+1) is the ceil(q (n+1))-th smallest
+    from predictor.intervals import conformal_quantile
+
+    scores = np.arange(1.0, 20.0)  # n = 19
+    assert conformal_quantile(scores, np.ones(19), 0.9, 1.0) == 18.0  # ceil(0.9 * 20) = 18
+    assert conformal_quantile(scores[:8], np.ones(8), 0.9, 1.0) == np.inf  # ceil(0.9 * 9) = 9 > 8
+    # doubling one residual's weight moves the quantile as the weighted CDF says
+    weights = np.ones(19)
+    weights[18] = 3.0  # the largest residual carries 3 of 22 units
+    assert conformal_quantile(scores, weights, 0.8, 1.0) == 18.0  # 17/22 < 0.8 <= 18/22
+
+
+def test_porosity_intervals_stay_inside_zero_and_one():
+    from predictor.intervals import calibrate
+
+    rng = np.random.default_rng(2)
+    cal = calibrate(rng.normal(0, 0.05, 200), bounds=(0.0, 1.0))
+    q10, q90 = cal.apply(np.array([0.01, 0.5, 0.99]))
+    assert np.all(q10 >= 0) and np.all(q90 <= 1) and q10[1] < 0.5 < q90[1]
