@@ -669,13 +669,18 @@ def _train_target(prep: _Prepared, target: str, options: TrainOptions) -> Target
         "unsupported_map_share": round(unsupported, 3), "effective_wells": round(effective_size(
             representative, table.units), 1)}
     if unsupported > 0:
-        warned.append(f"{target}: {unsupported:.0%} of the map lies in distance or attribute quartiles that no "
-                      "held-out well falls into; the CV cannot represent that part of the map")
+        warned.append(f"{target}: {unsupported:.0%} of the map lies in nearest-well-distance or attribute quartiles "
+                      "that no held-out well falls into, so the CV scores cannot stand for that part of the map")
     if design.w > 0.5 * distance["map_median_distance"] and design.w > 0:
-        warned.append(f"{target}: no CV design reproduces the map's prediction distances (W = {design.w:.0f} m "
-                      f"against a median map-to-well distance of {distance['map_median_distance']:.0f} m): the map "
-                      "reaches farther from the wells than any held-out well does, so its error there is "
-                      "larger than the CV says")
+        cv_median = distance["designs"][options.cv]["median_cv_distance"]
+        farther = cv_median > distance["map_median_distance"]
+        warned.append(
+            f"{target}: no CV design reproduces the map's prediction distances (W = {design.w:.0f} m; held-out wells "
+            f"a median {cv_median:.0f} m from training wells, map nodes {distance['map_median_distance']:.0f} m from "
+            "a well): " + ("the held-out wells are farther from their training wells than the map is from its "
+                           "wells (regular or sparse drilling), so the CV error is likely pessimistic"
+                           if farther else "the map reaches farther from the wells than any held-out well does, so "
+                           "its error there is likely larger than the CV says"))
     facts["warnings"] = warned
     return TargetModel(name=target, task=task, transform=table.transform, classes=classes, model=final,
                        calibration=calibration, block_size=block, block_size_source=block_source,
