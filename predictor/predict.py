@@ -222,10 +222,11 @@ def write_maps(maps: xr.Dataset, path: str | Path, overwrite: bool = False, crs_
     if suffix == ".csv":
         table = maps_table(maps)
         n_coords = 5 if volume else 2
-        for col in table.columns[n_coords:]:  # about 6 significant digits; coordinates are kept exact
+        for col in table.columns[n_coords:]:  # 7 significant digits per value; coordinates kept exact
             if pd.api.types.is_float_dtype(table[col]):
-                top = np.nanmax(np.abs(table[col].to_numpy())) if table[col].notna().any() else 1.0
-                table[col] = table[col].round(max(0, 6 - int(np.ceil(np.log10(max(top, 1e-12))))))
+                values = table[col].to_numpy(float)
+                text = np.char.mod("%.7g", values)  # per value: 0.01503 mD stays 0.01503, not 0.02
+                table[col] = np.where(np.isfinite(values), text, "")
         with atomic_file(path) as tmp:
             table.to_csv(tmp, index=False, lineterminator="\n")
         return path

@@ -193,3 +193,13 @@ def test_unknown_options_name_the_allowed_values():
     wells, grid = read_wells(WELLS), read_grid(GRID)
     with pytest.raises(InputError, match="cv = 'block' is not known; choose one of matched, nndm"):
         train(wells, grid, TrainOptions(targets=["porosity"], cv="block"))
+
+
+def test_maps_csv_keeps_seven_significant_digits_in_every_column(bundle, tmp_path):
+    out = tmp_path / "maps.csv"
+    assert main(["predict", str(bundle), "--grid", GRID, "--out", str(out)]) == 0
+    written = pd.read_csv(out)
+    with pytest.warns(PredictorWarning, match="outside the range seen at the wells"):
+        maps = predict_maps(bundle, read_grid(GRID))
+    for name in ("porosity", "porosity_q10", "porosity_q90", "facies_prob_sand"):
+        np.testing.assert_allclose(written[name], maps[name].to_numpy().ravel(), rtol=1e-6, atol=0)
