@@ -173,8 +173,10 @@ def _leaderboard(card, fig):
             chosen = i if r["chosen"] else chosen
         plots.leaderboard_chart(info["leaderboard"], key, t, fig / f"board_{t}.png")
         body += (f"<h3>{html.escape(t)}</h3><p class='small'>{html.escape(info['cv_method'])}. Selection: the "
-                 "blend is kept unless a single candidate's per-well loss (squared error, or log-loss for classes) "
-                 "is lower by more than one standard error of the paired difference.</p>"
+                 "blend is kept unless a single candidate's mean per-well loss (squared error, or log-loss for "
+                 "classes) is lower by more than two standard errors of the paired difference; well ties are added "
+                 "when they beat the chosen model by one. The standard error column is that of each candidate's "
+                 "mean loss.</p>"
                  + _table(pd.DataFrame(rows), chosen) + _img(fig / f"board_{t}.png", f"{t}: matched vs random CV"))
         design = info.get("cv_design")
         if design and "cdf" in design:
@@ -192,7 +194,10 @@ def _design_sentences(design: dict) -> str:
     text = (f"Map nodes lie a median {design['map_median_distance']:.0f} m from their nearest well; in the "
             f"{design['chosen']} design a held-out well lies a median {used['median_cv_distance']:.0f} m from its "
             f"nearest training well (W = {used['w']:.0f} m between the two distance distributions).")
-    if closest is not None:
+    if str(used.get("configuration", "")).startswith("random k-fold"):
+        text += (" Here the matched design is random k-fold: the wells are not closer to each other than the map's "
+                 "nodes are to them, so holding out a random fifth already reproduces the map's situation.")
+    elif closest is not None:
         text += (f" The closest other design, {closest}, is W = {others[closest]:.0f} m away: the smaller W, the "
                  "more the CV's prediction situation resembles the map's, so the more its error estimates the "
                  "map's error.")
