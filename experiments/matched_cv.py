@@ -28,7 +28,7 @@ import numpy as np
 import pandas as pd
 from sklearn.metrics import balanced_accuracy_score
 
-from predictor.cv_design import design_folds
+from predictor.cv_design import design_folds, unit_heads
 from predictor.errors import ModelError, PredictorWarning
 from predictor.features import build_features, feature_matrix
 from predictor.intervals import calibrate
@@ -101,7 +101,8 @@ def one(layout: str, seed: int, options: dict | None = None) -> dict:
     row["cv_representative"] = chosen_row["cv_representative"]["rmse"] / true_rmse
     row["cv_random"] = chosen_row["cv_random"]["rmse"] / true_rmse
     blocks = phi.distances["designs"]["blocks"]
-    design = design_folds("blocks", *_heads(phi), phi.data.map_distances, phi.data.n_splits, phi.block_size)
+    design = design_folds("blocks", *unit_heads(phi.data.xy, phi.data.units), phi.data.map_distances,
+                          phi.data.n_splits, phi.block_size)
     oof = out_of_fold(phi.candidates[phi.chosen], phi.data, design.splits)
     row["cv_blocks"] = float(np.sqrt(np.average((phi.observed - oof) ** 2, weights=phi.weights))) / true_rmse
     row["w_matched"] = phi.distances["designs"]["matched"]["w"]
@@ -126,11 +127,6 @@ def one(layout: str, seed: int, options: dict | None = None) -> dict:
     row["bacc"] = balanced_accuracy_score(labels, np.array(fac.classes)[proba.argmax(1)])
     row["bacc_logistic"] = balanced_accuracy_score(labels, np.array(fac.classes)[logistic.argmax(1)])
     return row
-
-
-def _heads(tm):
-    heads = pd.DataFrame(tm.data.xy).groupby(tm.data.units).mean().to_numpy()
-    return heads, tm.data.units
 
 
 def summary(table: pd.DataFrame, label: str) -> None:

@@ -32,6 +32,7 @@ from typing import Literal
 import numpy as np
 from scipy.cluster.hierarchy import fcluster, linkage
 from scipy.spatial import cKDTree
+from scipy.spatial.distance import cdist
 from scipy.stats import ks_2samp, wasserstein_distance
 from sklearn.model_selection import KFold
 
@@ -83,15 +84,28 @@ class FoldDesign:
                 "description": self.description, **self.details}
 
 
-def map_distances(map_xy: np.ndarray, wells_xy: np.ndarray, seed: int = 0,
-                  size: int = MAP_SAMPLE) -> np.ndarray:
-    """Distance from each prediction location (subsampled to ``size``, seeded) to its nearest well."""
+def sample_locations(n: int, seed: int = 0, size: int = MAP_SAMPLE) -> np.ndarray:
+    """Indices of a seeded sample of ``n`` prediction locations: enough for their distance and
+    attribute distributions, small enough to be cheap."""
+    if n == 0:
+        raise ModelError("the grid has no valid node to predict (every node lacks an attribute value); check the "
+                         "grid's attribute columns")
+    return np.sort(np.random.default_rng(seed).choice(n, size, replace=False)) if n > size else np.arange(n)
+
+
+def map_distances(map_xy: np.ndarray, wells_xy: np.ndarray) -> np.ndarray:
+    """Distance from each prediction location to its nearest well."""
     map_xy = np.asarray(map_xy, float)
     if len(map_xy) == 0:
         raise ModelError("the grid has no valid node to predict; check that the attribute is not all missing")
-    if len(map_xy) > size:
-        map_xy = map_xy[np.random.default_rng(seed).choice(len(map_xy), size, replace=False)]
     return cKDTree(wells_xy).query(map_xy)[0]
+
+
+def unit_heads(xy: np.ndarray, units: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Mean position of each well (unit) and, per row, the index of its well in that array."""
+    codes = np.unique(np.asarray(units), return_inverse=True)[1]
+    counts = np.bincount(codes)
+    return np.column_stack([np.bincount(codes, xy[:, i]) / counts for i in (0, 1)]), codes
 
 
 def _cv_distances(xy: np.ndarray, folds: np.ndarray) -> np.ndarray:
@@ -159,7 +173,7 @@ def nndm_splits(xy: np.ndarray, g_map: np.ndarray, min_train: float = 0.5) -> li
     well's nearest training neighbour is dropped from its training set.
     """
     n = len(xy)
-    d = np.sqrt(((xy[:, None, :] - xy[None, :, :]) ** 2).sum(-1))
+    d = cdist(xy, xy)
     np.fill_diagonal(d, np.inf)
     g_map = np.sort(g_map)
     g = d.min(axis=1)

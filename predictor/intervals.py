@@ -8,8 +8,8 @@ split-conformal prediction (Tibshirani, Barber, Candes & Ramdas 2019, NeurIPS; B
 masses w_i / (sum w + w_test) and the test point's own mass w_test / (sum w + w_test) sits at
 +infinity (at -infinity for the lower bound); leaving it out would break coverage.  The
 weights are normalised to the effective number of calibration points (samples), so the test
-point, one node or one volume sample, counts as one.  With ``spread`` the residuals are first divided by a local spread, so intervals are
-wider where the model errs more.  ``bounds`` keeps a target in its physical range (porosity
+point, one node or one volume sample, counts as one.  With ``spread`` the residuals are first
+divided by a local spread, so intervals are wider where the model errs more.  ``bounds`` keeps a target in its physical range (porosity
 in [0, 1]).
 """
 

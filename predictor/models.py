@@ -71,14 +71,11 @@ class FitData:
     def inner_splits(self) -> list[tuple[np.ndarray, np.ndarray]]:
         """Folds over these rows for a nested CV: matched to the map's distances when known
         (kNNDM), else whole spatial blocks."""
-        from .cv_design import design_folds
+        from .cv_design import design_folds, unit_heads
 
-        codes, heads_index = np.unique(self.units, return_inverse=True)
-        n_units = codes.size
-        k = max(2, min(self.n_splits, n_units))
-        if self.map_distances is not None and n_units >= 2 * k:
-            heads = np.column_stack([np.bincount(heads_index, self.xy[:, i]) / np.bincount(heads_index)
-                                     for i in (0, 1)])
+        heads, heads_index = unit_heads(self.xy, self.units)
+        k = max(2, min(self.n_splits, len(heads)))
+        if self.map_distances is not None and len(heads) >= 2 * k:
             return design_folds("matched", heads, heads_index, self.map_distances, k, 1.0, seed=self.seed).splits
         k = max(2, min(k, np.unique(self.groups).size))
         return list(GroupKFold(n_splits=k).split(np.zeros(len(self.y)), None, self.groups))

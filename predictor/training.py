@@ -18,12 +18,14 @@ from scipy.spatial import cKDTree
 from .checks import decluster, decluster_samples
 from .cv_design import (
     DESIGNS,
-    MAP_SAMPLE,
+    DesignName,
     FoldDesign,
     design_folds,
     distance_summary,
     map_distances,
     representative_weights,
+    sample_locations,
+    unit_heads,
 )
 from .declustering import declustered_statistics
 from .errors import InputError, ModelError, PredictorWarning
@@ -81,7 +83,7 @@ class TrainOptions:
     n_splits: int = 5
     block_size: float | None = None
     block_angle: float = 0.0
-    cv: Literal["matched", "nndm", "blocks", "buffered", "random"] = "matched"
+    cv: DesignName = "matched"
     declustering: Literal["cell", "nearest_node", "none"] = "cell"
     monotone: dict[str, int] | None = None  # attribute -> -1 (non-increasing) or 1, e.g. {"impedance": -1}
     well_ties: Literal["auto", "always", "never"] = "auto"
@@ -249,16 +251,6 @@ def _block_size(data: FitData, options: TrainOptions, attrs: list[str], baseline
     return float(size), source, vario
 
 
-def cross_validate(candidate, data: FitData, splitter) -> np.ndarray:
-    """Out-of-fold predictions of ``candidate`` for the folds of ``splitter``."""
-    n = len(data.y)
-    oof = np.zeros(n) if candidate.task == "regression" else np.zeros((n, len(data.classes)))
-    for train, test in splitter.split(data.xy):
-        model = type_copy(candidate).fit(data.subset(train))
-        oof[test] = model.predict(data.X.iloc[test].reset_index(drop=True), data.xy[test])
-    return oof
-
-
 def _candidates(task: Task, target: str, attrs: list[str], names: list[str], wells: pd.DataFrame,
                 options: TrainOptions, volume: bool = False) -> list:
     if volume:
@@ -379,7 +371,7 @@ def _prepare(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> _P
         xx, yy = np.meshgrid(grid.x.to_numpy(), grid.y.to_numpy())
         valid = np.all([np.isfinite(grid[v].to_numpy()) for v in grid.data_vars], axis=0)
         map_xy = np.column_stack([xx[valid], yy[valid]])
-    pick = _map_sample(len(map_xy), options.seed)
+    pick = sample_locations(len(map_xy), options.seed)
     map_xy = map_xy[pick]
     map_attrs = None if volume else pd.DataFrame({a: grid[a].to_numpy()[valid][pick] for a in spec.attributes})
     ranges = {n: [float(np.nanmin(X_all[n])), float(np.nanmax(X_all[n]))] for n in names}
@@ -403,15 +395,6 @@ def _prepare(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> _P
                  "samples": int(len(wells)), "wells": int(wells["well_id"].nunique())}
     return _Prepared(wells, X_all, names, spec, xy, weights, units, cv_xy, map_xy, map_attrs, volume, ranges, decl,
                      stats, facies_codes, facies_classes, space, notes)
-
-
-def _map_sample(n: int, seed: int) -> np.ndarray:
-    """A seeded sample of the prediction locations: enough for their distance and attribute
-    distributions, small enough to be cheap."""
-    if n == 0:
-        raise ModelError("the grid has no valid node to predict (every node lacks an attribute value); check the "
-                         "grid's attribute columns")
-    return np.sort(np.random.default_rng(seed).choice(n, MAP_SAMPLE, replace=False)) if n > MAP_SAMPLE else np.arange(n)
 
 
 def default_features(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> FeatureSpec:
@@ -521,13 +504,11 @@ def _target_table(prep: _Prepared, target: str, options: TrainOptions) -> _Targe
         if target in LOG_TARGETS:
             y, transform = np.log10(y), "log10"
         baseline_y = y
-    head_codes, head_of = np.unique(units, return_inverse=True)
-    cv_xy = prep.cv_xy[idx]
-    heads = np.column_stack([np.bincount(head_of, cv_xy[:, i]) / np.bincount(head_of) for i in (0, 1)])
+    heads, head_of = unit_heads(prep.cv_xy[idx], units)
     if np.ptp(heads[:, 0]) == 0 and np.ptp(heads[:, 1]) == 0:
         raise ModelError(f"all wells with {target!r} are at one position; spatial CV and mapping need wells at "
                          "several positions")
-    g_map = map_distances(prep.map_xy, heads, options.seed)
+    g_map = map_distances(prep.map_xy, heads)  # prep.map_xy is already a seeded sample
     data = FitData(prep.X.iloc[idx].reset_index(drop=True), y, prep.weights[idx], prep.xy[idx],
                    np.zeros(idx.size, int), classes, None if prep.facies_codes is None else prep.facies_codes[idx],
                    prep.facies_classes, options.seed, options.n_threads, units=head_of, map_distances=g_map,

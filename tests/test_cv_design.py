@@ -12,7 +12,13 @@ import pytest
 from scipy.ndimage import gaussian_filter
 from scipy.stats import wasserstein_distance
 
-from predictor.cv_design import design_folds, knndm_folds, map_distances, nndm_splits
+from predictor.cv_design import (
+    design_folds,
+    knndm_folds,
+    map_distances,
+    nndm_splits,
+    sample_locations,
+)
 from predictor.declustering import nearest_node_weights
 from predictor.errors import ModelError
 from predictor.kriging import OrdinaryKriging
@@ -32,10 +38,16 @@ def _clustered_case(seed, n_clusters, per, spread, n=200, step=20.0, sigma=6):
     return gx, gy, z, xy, z[idx], VariogramModel("gaussian", 0.02, 1.0, step * sigma * 2.5)
 
 
+def _sampled(gx, gy, seed=0):
+    """A seeded sample of the map's nodes, as training takes one."""
+    nodes = np.column_stack([gx, gy])
+    return nodes[sample_locations(len(nodes), seed)]
+
+
 def _cv_over_truth(seed, n_clusters, per, spread, block=1000.0) -> dict:
     """CV RMSE (declustering-weighted) / true map RMSE of ordinary kriging, per design."""
     gx, gy, z, xy, v, vario = _clustered_case(seed, n_clusters, per, spread)
-    g_map = map_distances(np.column_stack([gx, gy]), xy, seed)
+    g_map = map_distances(_sampled(gx, gy, seed), xy)
     weights = nearest_node_weights(xy[:, 0], xy[:, 1], gx, gy)
     full = OrdinaryKriging(vario).fit(xy[:, 0], xy[:, 1], v)
     true = np.sqrt(np.mean((full.predict(gx, gy) - z) ** 2))
@@ -72,7 +84,7 @@ def test_knndm_brings_cv_distances_to_the_maps_and_keeps_whole_folds():
     gx, gy = (a.ravel() for a in np.meshgrid(np.arange(0, 3000, 25.0), np.arange(0, 2500, 25.0)))
     centres = rng.uniform(0, [3000, 2500], (6, 2))
     xy = np.vstack([c + rng.normal(0, 120, (30, 2)) for c in centres])
-    g_map = map_distances(np.column_stack([gx, gy]), xy)
+    g_map = map_distances(_sampled(gx, gy), xy)
     matched = design_folds("matched", xy, np.arange(len(xy)), g_map, 5, 400.0)
     random = design_folds("random", xy, np.arange(len(xy)), g_map, 5, 400.0)
     assert matched.w < 0.5 * random.w
@@ -88,7 +100,7 @@ def test_knndm_keeps_random_folds_when_wells_are_not_clustered():
     rng = np.random.default_rng(4)
     gx, gy = (a.ravel() for a in np.meshgrid(np.arange(0, 3000, 25.0), np.arange(0, 2500, 25.0)))
     xy = rng.uniform(0, [3000, 2500], (60, 2))
-    _, info = knndm_folds(xy, map_distances(np.column_stack([gx, gy]), xy), 5)
+    _, info = knndm_folds(xy, map_distances(_sampled(gx, gy), xy), 5)
     assert info["configuration"].startswith("random k-fold") and info["ks_p_value_wells_closer"] >= 0.05
 
 
