@@ -77,6 +77,11 @@ def model_card(trained, inputs: dict | None = None) -> dict:
             "applicability": {"threshold": tm.applicability.threshold if tm.applicability else None,
                               **tm.applicability_cv},
         }
+        if tm.map_factors is not None:
+            targets[name]["facies_map"] = {
+                "rule": trained.options.facies_map,
+                "rule_factors": _by_class(tm.classes, tm.map_factors),
+                "what": "the class drawn at a node is the largest of probability * rule factor"}
     return {
         "schema_version": SCHEMA_VERSION,
         "what": "predictor model bundle: a model, not a measurement; see the README's cautions",
@@ -90,12 +95,17 @@ def model_card(trained, inputs: dict | None = None) -> dict:
         "naive": trained.statistics["naive"],
         "declustered": trained.statistics["declustered"],
         "declustered_cell": trained.statistics["declustered_cell"],
+        "global": {name: tm.field_wide.to_dict() for name, tm in trained.targets.items() if tm.field_wide},
         "targets": targets,
         "warnings": trained.warnings,
         "wells": {"count": int(trained.wells["well_id"].nunique()),
                   "weights": dict(zip(trained.wells["well_id"].astype(str), np.round(trained.weights, 6).tolist(),
                                       strict=True))},
     }
+
+
+def _by_class(classes, values) -> dict:
+    return {str(c): float(v) for c, v in zip(classes, values, strict=True)}
 
 
 def save_bundle(trained, folder: str | Path, inputs: dict | None = None, overwrite: bool = False) -> Path:
@@ -113,6 +123,7 @@ def save_bundle(trained, folder: str | Path, inputs: dict | None = None, overwri
                 (sub / "calibration.json").write_text(dumps({**tm.calibration.to_dict(), "spread": spread}),
                                                       encoding="utf-8")
             card["targets"][name]["model_file"] = f"{name}/model.json"
+            tm.out_of_fold_table(trained.wells).to_csv(sub / "out_of_fold.csv", index=False, lineterminator="\n")
             if tm.applicability is not None:
                 (sub / "applicability.json").write_text(dumps(tm.applicability.to_dict()), encoding="utf-8")
         table = trained.wells.assign(weight=trained.weights)
@@ -137,6 +148,10 @@ class Bundle:
         table = pd.read_csv(self.folder / "training_wells.csv")
         cols = [c for c in table.columns if c.startswith("feature:")]
         return table.drop(columns=cols), table[cols].rename(columns=lambda c: c[len("feature:"):])
+
+    def out_of_fold(self, target: str) -> pd.DataFrame:
+        """The chosen model's out-of-fold predictions at the training wells (matched folds)."""
+        return pd.read_csv(self.folder / target / "out_of_fold.csv", dtype={"well_id": str})
 
     @property
     def feature_spec(self) -> FeatureSpec:

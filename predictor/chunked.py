@@ -61,7 +61,7 @@ def _bundle(folder: str):
 
 
 def predict_tile(folder: str, grid_path: str, tile: tuple[int, int, int, int],
-                 z_domain: str | None = None) -> tuple[tuple, xr.Dataset, bool]:
+                 z_domain: str | None = None, exceed: dict | None = None) -> tuple[tuple, xr.Dataset, bool]:
     """Predict one tile (with its halo): its interior, and whether some of it lies outside the
     feature range seen at the wells."""
     from .predict import NoValidNodes, predict_maps
@@ -77,7 +77,7 @@ def predict_tile(folder: str, grid_path: str, tile: tuple[int, int, int, int],
     part.attrs = dict(grid.attrs)
     interior = {ay: slice(y0 - ya, y0 - ya + (y1 - y0)), ax: slice(x0 - xa, x0 - xa + (x1 - x0))}
     try:
-        inner = predict_maps(bundle, part, warn=False, interior=interior)  # warnings are not thread-safe:
+        inner = predict_maps(bundle, part, warn=False, interior=interior, exceed=exceed)  # warnings are not thread-safe:
     except NoValidNodes:  # a tile in a hole of the survey: its region keeps the store's fill values
         return tile, None, False
     return tile, inner, inner.attrs["extrapolated_share"] > 0  # reported once, at the end
@@ -103,7 +103,7 @@ def default_tile(grid: xr.Dataset) -> int:
 def predict_to_zarr(bundle_dir, grid_path, out, tile: int | None = None, threads: int | None = None,
                     workers: int | None = None, scheduler: str | None = None, overwrite: bool = False,
                     memory_limit: float | None = None, z_domain: str | None = None,
-                    segy_name: str | None = None) -> Path:
+                    segy_name: str | None = None, exceed: dict | None = None) -> Path:
     """Predict every target of the bundle over a (possibly larger-than-memory) grid or volume
     into ``out`` (.zarr).  Volume tiles are ``tile`` x ``tile`` traces, each with all its samples.
 
@@ -126,13 +126,14 @@ def predict_to_zarr(bundle_dir, grid_path, out, tile: int | None = None, threads
             copy = write_zarr(volume, Path(scratch) / "input.zarr")
             del volume
             return predict_to_zarr(bundle_dir, copy, out, tile, threads, workers, scheduler, overwrite,
-                                   memory_limit, z_domain)
+                                   memory_limit, z_domain, exceed=exceed)
     folder, grid_path = str(Path(bundle_dir).resolve()), str(Path(grid_path).resolve())
     bundle = _bundle(folder)
     grid = _open(grid_path, z_domain)
-    from .predict import check_space
+    from .predict import check_exceedance, check_space
 
     check_space(bundle.card, grid)
+    check_exceedance(bundle.card, exceed)
     ay, ax = lateral_axes(grid)
     hy, hx = halo(grid, bundle.feature_spec)
     depth = grid.sizes.get("z", 1)
@@ -146,10 +147,10 @@ def predict_to_zarr(bundle_dir, grid_path, out, tile: int | None = None, threads
     ny, nx = grid.sizes[ay], grid.sizes[ax]
     all_tiles = tiles(ny, nx, tile)
     with atomic_folder(out, overwrite=overwrite) as tmp:
-        _template(_layout(folder, grid_path, all_tiles, ny, nx, z_domain), grid, tile).to_zarr(
+        _template(_layout(folder, grid_path, all_tiles, ny, nx, z_domain, exceed), grid, tile).to_zarr(
             tmp, compute=False, mode="w", zarr_format=2)
         extrapolated = 0
-        done = _run(folder, grid_path, all_tiles, threads, workers, scheduler, z_domain)
+        done = _run(folder, grid_path, all_tiles, threads, workers, scheduler, z_domain, exceed)
         for (y0, y1, x0, x1), part, outside in progress(done, "tiles", total=len(all_tiles)):
             extrapolated += outside
             if part is None:
@@ -168,17 +169,17 @@ def predict_to_zarr(bundle_dir, grid_path, out, tile: int | None = None, threads
     return out
 
 
-def _layout(folder, grid_path, all_tiles, ny, nx, z_domain) -> xr.Dataset:
+def _layout(folder, grid_path, all_tiles, ny, nx, z_domain, exceed=None) -> xr.Dataset:
     """A predicted part that shows the store's layout (variables, dtypes, attributes): a corner
     of a few nodes when it holds data (cheap), else the first tile that does."""
     for part in [(0, min(8, ny), 0, min(8, nx)), *all_tiles]:
-        predicted = predict_tile(folder, grid_path, part, z_domain)[1]
+        predicted = predict_tile(folder, grid_path, part, z_domain, exceed)[1]
         if predicted is not None:
             return predicted
     raise InputError(f"{grid_path}: no node has every feature the model needs")
 
 
-def _run(folder, grid_path, all_tiles, threads, workers, scheduler, z_domain=None):
+def _run(folder, grid_path, all_tiles, threads, workers, scheduler, z_domain=None, exceed=None):
     """Yield (tile, interior maps, extrapolated) as tiles finish, on local threads or a Dask cluster."""
     if workers or scheduler:
         from dask.distributed import Client, LocalCluster, as_completed
@@ -188,7 +189,8 @@ def _run(folder, grid_path, all_tiles, threads, workers, scheduler, z_domain=Non
         client = Client(scheduler or cluster)
         try:
             n = len(all_tiles)
-            futures = client.map(predict_tile, [folder] * n, [grid_path] * n, all_tiles, [z_domain] * n, pure=False)
+            futures = client.map(predict_tile, [folder] * n, [grid_path] * n, all_tiles, [z_domain] * n,
+                                 [exceed] * n, pure=False)
             for future in as_completed(futures):
                 yield future.result()
         finally:
@@ -201,7 +203,7 @@ def _run(folder, grid_path, all_tiles, threads, workers, scheduler, z_domain=Non
         # a bounded window of tiles in flight keeps memory flat however many tiles there are
         pending = deque()
         for t in all_tiles:
-            pending.append(pool.submit(predict_tile, folder, grid_path, t, z_domain))
+            pending.append(pool.submit(predict_tile, folder, grid_path, t, z_domain, exceed))
             if len(pending) >= 2 * n:
                 yield pending.popleft().result()
         while pending:

@@ -46,6 +46,8 @@ def _monotone(text: str) -> tuple[str, int]:
 
 def build_parser() -> argparse.ArgumentParser:
     from .cv_design import DESIGNS
+    from .field_wide import MAP_RULES
+    from .training import TrainOptions
 
     parser = argparse.ArgumentParser(prog="predictor", description=__doc__.splitlines()[0])
     parser.add_argument("--debug", action="store_true", help="show the full traceback on errors")
@@ -94,6 +96,10 @@ def build_parser() -> argparse.ArgumentParser:
     tr.add_argument("--interval-spread", choices=["none", "features", "kriging"], default="features",
                     help="scale intervals by a local error spread: learnt from the attributes (default), "
                     "the well-tie kriging standard deviation (narrow near wells), or none (constant width)")
+    tr.add_argument("--facies-map", choices=list(MAP_RULES), default=TrainOptions.facies_map,
+                    help="how the facies map draws one class per node from the probabilities: balanced "
+                    "(largest probability relative to the class's field-wide share; default, see the README), "
+                    "proportions (class thresholds that reproduce the field-wide proportions) or most-probable")
     tr.add_argument("--candidate", action="append",
                     help="only these candidates (repeatable, e.g. --candidate lightgbm --candidate linear)")
     tr.add_argument("--drop-outside", action="store_true", help="leave out wells off the grid, with a warning")
@@ -113,6 +119,10 @@ def build_parser() -> argparse.ArgumentParser:
     pr.add_argument("--workers", type=int, help="with .zarr: start a local Dask cluster of this many workers")
     pr.add_argument("--scheduler", help="with .zarr: address of an existing dask.distributed scheduler")
     pr.add_argument("--crs", help="coordinate reference system of the maps, e.g. EPSG:32631 (default: the grid's)")
+    pr.add_argument("--exceed", action="append", metavar="TARGET:CUTOFF",
+                    help="also map the probability that a target exceeds a cutoff, in the target's units, from the "
+                         "calibrated predictive distribution, e.g. --exceed porosity:0.15 --exceed permeability:100 "
+                         "(written as porosity_prob_above_0p15); repeatable")
     pr.add_argument("--overwrite", action="store_true", help="replace an existing maps file")
 
     ex = sub.add_parser("explain", help="SHAP importance, summary and dependence plots, SHAP at the wells and "
@@ -166,7 +176,7 @@ def _cmd_train(args) -> int:
                                   attributes=args.attribute, context_radii=args.context_radius,
                                   gradient=args.gradient, location=args.location, n_splits=args.folds,
                                   block_size=args.block_size, block_angle=args.block_angle, cv=args.cv,
-                                  declustering=args.declustering,
+                                  declustering=args.declustering, facies_map=args.facies_map,
                                   monotone=dict(args.monotone) if args.monotone else None, well_ties=args.well_ties,
                                   interval_spread=args.interval_spread, drop_outside=args.drop_outside,
                                   seed=args.seed, n_threads=args.threads, candidates=args.candidate,
@@ -174,9 +184,9 @@ def _cmd_train(args) -> int:
                                   z=args.z_column, z_domain=args.z_domain, segy_name=args.segy_name,
                                   vertical_radii=args.vertical_radius, z_trend=args.z_trend,
                                   overwrite=args.overwrite)
-    from .workflow import leaderboard_lines
+    from .workflow import field_wide_lines, leaderboard_lines
 
-    for line in leaderboard_lines(trained):
+    for line in leaderboard_lines(trained) + field_wide_lines(trained):
         print(line)
     for note in trained.warnings:
         print(f"note: {note}")
@@ -185,17 +195,19 @@ def _cmd_train(args) -> int:
 
 
 def _cmd_predict(args) -> int:
+    from .predict import parse_exceedance
     from .workflow import predict_files
 
+    exceed = parse_exceedance(args.exceed)
     if args.out.lower().endswith(".zarr"):
         from .chunked import predict_to_zarr
 
         path = predict_to_zarr(args.bundle, args.grid, args.out, tile=args.tile, threads=args.threads,
                                workers=args.workers, scheduler=args.scheduler, overwrite=args.overwrite,
-                               z_domain=args.z_domain, segy_name=args.segy_name)
+                               z_domain=args.z_domain, segy_name=args.segy_name, exceed=exceed)
     else:
         path = predict_files(args.bundle, args.grid, args.out, overwrite=args.overwrite, crs=args.crs,
-                             z_domain=args.z_domain, segy_name=args.segy_name)
+                             z_domain=args.z_domain, segy_name=args.segy_name, exceed=exceed)
     print(f"maps: {path}")
     return 0
 

@@ -20,6 +20,7 @@ from dataclasses import asdict, dataclass
 import numpy as np
 
 LOW, HIGH = 0.1, 0.9
+RESIDUAL_LEVELS = np.linspace(0.0, 1.0, 101)  # where the residual distribution is kept (min, percentiles, max)
 PHYSICAL_BOUNDS = {"porosity": (0.0, 1.0)}  # a fraction (common practice); permeability is mapped as log10
 
 
@@ -34,6 +35,16 @@ class IntervalCalibration:
     bounds: tuple[float, float] | None = None
     method: str = "weighted split-conformal"
     n_effective_wells: float = 0.0
+    residual_quantiles: list[float] | None = None  # at RESIDUAL_LEVELS: the predictive distribution
+
+    def exceedance(self, q50, cutoff: float, spread=None) -> np.ndarray:
+        """P(value > ``cutoff``) at each node: one minus the weighted CDF of the out-of-fold
+        residuals (in spread units when scaled) at the cutoff's distance from ``q50``."""
+        q50 = np.asarray(q50, float)
+        scale = np.asarray(spread, float) if (self.scaled and spread is not None) else 1.0
+        quantiles = np.asarray(self.residual_quantiles, float)
+        below = np.interp((cutoff - q50) / np.maximum(scale, 1e-12), quantiles, RESIDUAL_LEVELS, left=0.0, right=1.0)
+        return 1.0 - below
 
     def to_dict(self) -> dict:
         return asdict(self)
@@ -86,9 +97,15 @@ def calibrate(residuals, weights=None, low: float = LOW, high: float = HIGH, spr
     # too few wells to reach the level: the widest residual seen (said in the card by n_effective)
     upper = float(np.max(r)) if not np.isfinite(upper) else upper
     lower = float(np.min(r)) if not np.isfinite(lower) else lower
+    # the distribution for exceedance probabilities: weighted quantiles, interpolated between residuals
+    order = np.argsort(r)
+    cdf = (np.cumsum(mass[order]) - 0.5 * mass[order]) / mass.sum()
+    quantiles = np.interp(RESIDUAL_LEVELS, cdf, r[order])
+    quantiles[0], quantiles[-1] = r.min(), r.max()
     return IntervalCalibration(min(lower, 0.0), max(upper, 0.0), low, high, scaled, n,
                                None if bounds is None else tuple(bounds),
-                               n_effective_wells=effective_size(w, units) if units is not None else n)
+                               n_effective_wells=effective_size(w, units) if units is not None else n,
+                               residual_quantiles=[float(v) for v in quantiles])
 
 
 class SpreadModel:

@@ -173,7 +173,7 @@ def facies_maps(maps: xr.Dataset, target: str, wells: pd.DataFrame | None, path)
     bar = fig.colorbar(im, ax=ax, shrink=0.7, ticks=range(len(classes)), location="bottom")
     bar.ax.set_xticklabels(classes, fontsize=8)
     _wells_on(ax, wells)
-    ax.set_title(f"most probable {target}", fontsize=10)
+    ax.set_title("\n".join(_wrap(maps[target].attrs.get("long_name", f"most probable {target}"), 40)), fontsize=9)
     for ax, cls in zip(axes[0][1:], classes, strict=True):
         im = _background(ax, maps, f"{target}_prob_{cls}", cmap="magma", vmin=0, vmax=1)
         fig.colorbar(im, ax=ax, shrink=0.7, location="bottom", label="probability")
@@ -309,4 +309,68 @@ def applicability_map(maps: xr.Dataset, target: str, wells: pd.DataFrame | None,
               vmin=0, vmax=1.2, alpha=0.65)
     _wells_on(ax, wells)
     ax.set_title(f"{target}: outside the area of applicability shaded ({outside.mean():.1%} of nodes)", fontsize=9)
+    return save(fig, path)
+
+
+def field_wide_cdfs(summary: dict, target: str, path, log: bool = False) -> Path:
+    """Distribution of a target over the field: raw wells, declustered, debiased with the seismic
+    (weighted quantiles from the card), with the field-wide means marked."""
+    dist = summary["distribution"]
+    levels = np.asarray(dist["levels"])
+    fig, ax = plt.subplots(figsize=(6.5, 3.8), layout="constrained")
+    styles = {"naive": ("tab:gray", "raw wells"), "declustered_nearest_node": ("tab:orange", "declustered"),
+              "debiased_seismic": ("tab:blue", "debiased with the seismic")}
+    for key, (colour, label) in styles.items():
+        if key in dist:
+            ax.plot(dist[key], levels, color=colour, lw=2 if key == "debiased_seismic" else 1.3, marker=".",
+                    label=label)
+    for key, est in summary["estimates"].items():
+        colour = styles.get(key, ("tab:green", ""))[0]
+        ax.axvline(est["mean"], color=colour, lw=0.8, ls=":" if key != summary["method"] else "-")
+    ax.axvspan(summary["interval"]["q10"], summary["interval"]["q90"], color="tab:green", alpha=0.15,
+               label="recommended field-wide mean: q10-q90 (bootstrap)")
+    if log:
+        ax.set_xscale("log")
+    ax.set_xlabel(f"{target} (mD, log scale)" if log else target)
+    ax.set_ylabel("share of the field (cumulative)")
+    ax.set_ylim(0, 1)
+    ax.set_title(f"{target}: field-wide distribution, wells vs whole map", fontsize=10)
+    ax.legend(fontsize=7.5, loc="lower right")
+    return save(fig, path)
+
+
+def reliability_diagram(observed: np.ndarray, proba: np.ndarray, weights: np.ndarray, classes: list[str],
+                        target: str, path, n_bins: int = 5) -> Path:
+    """Out-of-fold predicted probability of each class against the (declustering-weighted)
+    observed frequency in bins of the prediction: on the diagonal when the probabilities are
+    calibrated."""
+    colours = _category_colours(classes)
+    edges = np.linspace(0, 1, n_bins + 1)
+    fig, ax = plt.subplots(figsize=(4.8, 4.4), layout="constrained")
+    ax.plot([0, 1], [0, 1], color="black", lw=0.8, ls="--", label="calibrated")
+    for k, cls in enumerate(classes):
+        b = np.clip(np.digitize(proba[:, k], edges) - 1, 0, n_bins - 1)
+        hit = (np.asarray(observed) == cls).astype(float)
+        shown = [(np.average(proba[b == i, k], weights=weights[b == i]),
+                  np.average(hit[b == i], weights=weights[b == i]), int(np.sum(b == i)))
+                 for i in range(n_bins) if np.sum(b == i) >= 3]
+        if shown:
+            px, fy, n = map(np.asarray, zip(*shown, strict=True))
+            ax.plot(px, fy, color=colours[cls], marker="o", lw=1.5, label=cls, markeredgecolor="k")
+    ax.set_xlim(0, 1)
+    ax.set_ylim(0, 1)
+    ax.set_xlabel("predicted probability (out of fold)")
+    ax.set_ylabel("observed frequency at the wells (declustered)")
+    ax.set_title(f"{target}: reliability of the class probabilities", fontsize=10)
+    ax.legend(fontsize=8, loc="upper left")
+    return save(fig, path)
+
+
+def exceedance_map(maps: xr.Dataset, variable: str, wells: pd.DataFrame | None, path) -> Path:
+    """P(target > cutoff) over the map, wells on top."""
+    fig, ax = plt.subplots(figsize=(5.5, 4.6), layout="constrained")
+    im = _background(ax, maps, variable, cmap="RdYlBu_r", vmin=0, vmax=1)
+    fig.colorbar(im, ax=ax, shrink=0.7, location="bottom", label="probability")
+    _wells_on(ax, wells)
+    ax.set_title(maps[variable].attrs.get("long_name", variable), fontsize=10)
     return save(fig, path)

@@ -19,11 +19,15 @@ import xarray as xr
 from .bundle import Bundle, load_bundle
 from .errors import InputError, PredictorWarning
 from .features import build_features, feature_matrix
+from .intervals import PHYSICAL_BOUNDS
 from .io.atomic import atomic_file, check_target
 from .io.netcdf import write_netcdf
 from .volume import is_volume
 
 CHUNK_ROWS = 250_000
+RULE_LABELS = {"most-probable": "most probable class",
+               "balanced": "largest probability relative to the class's field-wide share",
+               "proportions": "class thresholds that reproduce the field-wide proportions"}
 
 
 class NoValidNodes(InputError):
@@ -43,9 +47,58 @@ def local_spread(spread, model, X: pd.DataFrame, xy: np.ndarray) -> np.ndarray:
     return spread.predict(X)
 
 
+def exceedance_name(target: str, cutoff: float) -> str:
+    """Variable name of P(target > cutoff): ``porosity_prob_above_0p15`` (letters, digits, _)."""
+    return f"{target}_prob_above_{f'{cutoff:g}'.replace('.', 'p').replace('-', 'minus')}"
+
+
+def parse_exceedance(specs: list[str] | None) -> dict[str, list[float]]:
+    """``["porosity:0.15", "permeability:100"]`` -> {target: [cutoffs]}; a class name is kept as text."""
+    out: dict[str, list] = {}
+    for spec in specs or []:
+        target, sep, value = str(spec).partition(":")
+        if not sep or not target or not value:
+            raise InputError(f"--exceed {spec!r}: give TARGET:CUTOFF, e.g. --exceed porosity:0.15")
+        try:
+            cutoff: float | str = float(value)
+        except ValueError:
+            cutoff = value  # a class of a facies target
+        out.setdefault(target.strip(), []).append(cutoff)
+    return out
+
+
+def check_exceedance(card: dict, exceed: dict[str, list] | None) -> None:
+    """Every cutoff names a target of the bundle and lies inside the target's physical range."""
+    targets = card["targets"]
+    for target, cutoffs in (exceed or {}).items():
+        if target not in targets:
+            raise InputError(f"--exceed {target}: the bundle has no target {target!r}; it has "
+                             f"{', '.join(targets)} (e.g. --exceed {next(iter(targets))}:...)")
+        info = targets[target]
+        for cutoff in cutoffs:
+            if info["task"] == "classification":
+                if str(cutoff) not in info["classes"]:
+                    raise InputError(f"--exceed {target}:{cutoff}: {target} has no class {cutoff!r}; its classes are "
+                                     f"{', '.join(info['classes'])} (their probabilities are always written as "
+                                     f"{target}_prob_<class>)")
+                continue
+            if isinstance(cutoff, str):
+                raise InputError(f"--exceed {target}:{cutoff}: the cutoff of a numeric target must be a number")
+            bounds = PHYSICAL_BOUNDS.get(target)
+            if bounds and not bounds[0] < cutoff < bounds[1]:
+                raise InputError(f"--exceed {target}:{cutoff:g}: {target} lies between {bounds[0]:g} and "
+                                 f"{bounds[1]:g} (a fraction); give a cutoff inside that range, e.g. 0.15")
+            if info.get("transform") == "log10" and cutoff <= 0:
+                raise InputError(f"--exceed {target}:{cutoff:g}: {target} is positive (mD); give a cutoff above 0")
+
+
 def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int = CHUNK_ROWS,
-                 warn: bool = True, interior: dict | None = None) -> xr.Dataset:
+                 warn: bool = True, interior: dict | None = None,
+                 exceed: dict[str, list] | None = None) -> xr.Dataset:
     """Predict every target of the bundle on every valid node of ``grid``.
+
+    ``exceed`` (target -> cutoffs, in the target's units) adds P(target > cutoff) per node,
+    from the calibrated predictive distribution (the out-of-fold residuals around the map).
 
     The share of nodes whose features lie outside the range seen at the wells is kept in
     ``attrs["extrapolated_share"]`` and, with ``warn``, reported as a warning.  ``interior``
@@ -56,6 +109,7 @@ def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int 
         bundle = load_bundle(bundle)
     card = bundle.card
     check_space(card, grid)
+    check_exceedance(card, exceed)
     features = build_features(grid, bundle.feature_spec)
     if interior:
         features, grid = features.isel(interior), grid.isel(interior)
@@ -100,12 +154,15 @@ def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int 
                 "comment": "Meyer & Pebesma (2021) dissimilarity index against the training wells"})
         if info["task"] == "classification":
             classes = info["classes"]
+            rule = info.get("facies_map")  # the stated rule draws one class per node
+            factors = np.array([rule["rule_factors"][c] for c in classes]) if rule else np.ones(len(classes))
             codes = np.full(valid.size, -1, dtype=np.int16)
-            codes[valid] = np.argmax(raw, axis=1)
+            codes[valid] = np.argmax(raw * factors, axis=1)
             out[target] = (dims, codes.reshape(shape))
             out[target].attrs.update(flag_values=np.arange(len(classes), dtype=np.int16),
                                      flag_meanings=" ".join(c.replace(" ", "_") for c in classes),
-                                     _FillValue=np.int16(-1), long_name=f"most probable {target}")
+                                     _FillValue=np.int16(-1),
+                                     long_name=f"{target} ({RULE_LABELS[rule['rule'] if rule else 'most-probable']})")
             for i, cls in enumerate(classes):
                 out[f"{target}_prob_{cls}"] = (dims, on_grid(raw[:, i]))
                 out[f"{target}_prob_{cls}"].attrs.update(units="1", long_name=f"probability of {target} {cls}")
@@ -124,6 +181,13 @@ def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int 
                                       ("_q90", q90, "90th percentile (q90)")):
             out[f"{target}{suffix}"] = (dims, on_grid(back(values)))
             out[f"{target}{suffix}"].attrs.update(units=units, long_name=f"{target} {label}")
+        for cutoff in (exceed or {}).get(target, []):
+            model_cutoff = np.log10(cutoff) if log else cutoff
+            name = exceedance_name(target, cutoff)
+            out[name] = (dims, on_grid(cal.exceedance(raw, model_cutoff, spread)))
+            out[name].attrs.update(units="1", long_name=f"probability that {target} exceeds {cutoff:g}{' mD' if log else ''}",
+                                   cutoff=float(cutoff), comment="from the out-of-fold residuals of the matched CV "
+                                   "around the map's prediction (calibrated predictive distribution)")
         if applicable is not None:
             out[f"{target}_applicable"] = applicable
     out.attrs.update(source="predictor", bundle=str(bundle.folder), grid=str(grid.attrs.get("source", "")),

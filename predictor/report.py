@@ -86,13 +86,13 @@ def build_report(bundle_dir, out, grid_path=None, overwrite: bool = False, z_dom
         fig = Path(tmpdir)
         check = check_data(wells, grid)
         write_check(check, None, fig)
-        maps = predict_maps(bundle, grid)
+        maps = predict_maps(bundle, grid, exceed=_report_cutoffs(card))
         shown_wells = wells
         if is_volume(grid):  # the figures show the map view at the middle of the wells' samples
             z = view_depth(grid, wells)
             maps, shown_wells = map_view(maps, z), wells_in_view(wells, grid, z)
-        sections = [_summary(card, check), _data(check, fig), _bias(check, card, fig), _leaderboard(card, fig),
-                    _maps(maps, shown_wells, card, fig), _intervals(card), _why(bundle, grid, shown_wells, fig),
+        sections = [_summary(card, check), _data(check, fig), _bias(check, card, fig), _leaderboard(bundle, fig),
+                    _maps(maps, shown_wells, card, fig), _field_wide(card, maps, shown_wells, fig), _intervals(card), _why(bundle, grid, shown_wells, fig),
                     _warnings(card, [str(w.message) for w in caught]), _provenance(card)]
     nav = " ".join(f'<a href="#{k}">{html.escape(t)}</a>' for k, t in NAV)
     template = Template(resources.files("predictor").joinpath("templates/report.html").read_text(encoding="utf-8"))
@@ -106,7 +106,8 @@ def build_report(bundle_dir, out, grid_path=None, overwrite: bool = False, z_dom
 
 
 NAV = [("glance", "At a glance"), ("data", "Data and checks"), ("bias", "Drilling bias"),
-       ("scores", "Model scores"), ("maps", "Maps"), ("intervals", "Uncertainty"), ("why", "Why"),
+       ("scores", "Model scores"), ("maps", "Maps"), ("field", "Field-wide numbers"), ("intervals", "Uncertainty"),
+       ("why", "Why"),
        ("warnings", "Warnings"), ("provenance", "Provenance")]
 
 
@@ -159,7 +160,8 @@ def _bias(check, card, fig):
     return _section("bias", "Drilling bias and declustering", body)
 
 
-def _leaderboard(card, fig):
+def _leaderboard(bundle, fig):
+    card = bundle.card
     body = ""
     for t, info in card["targets"].items():
         key = "rmse" if info["task"] == "regression" else "balanced_accuracy"
@@ -168,16 +170,25 @@ def _leaderboard(card, fig):
         for i, r in enumerate(info["leaderboard"]):
             rows.append({"candidate": r["candidate"], "kind": "baseline" if r["baseline"] else "candidate",
                          f"{key} matched": r["cv"][key], f"{other} matched": r["cv"][other],
+                         **({"Brier matched": r["cv"]["brier"]} if "brier" in r["cv"] else {}),
                          "loss standard error": r.get("cv_se", np.nan),
                          f"{key} random": (r.get("cv_random") or {}).get(key, np.nan)})
             chosen = i if r["chosen"] else chosen
         plots.leaderboard_chart(info["leaderboard"], key, t, fig / f"board_{t}.png")
+        if info["task"] == "classification" and (bundle.folder / t / "out_of_fold.csv").exists():
+            oof = bundle.out_of_fold(t)
+            proba = oof[[f"{t}_prob_{c}" for c in info["classes"]]].to_numpy()
+            plots.reliability_diagram(oof[f"{t}_observed"].astype(str).to_numpy(), proba, oof["weight"].to_numpy(),
+                                      info["classes"], t, fig / f"reliability_{t}.png")
         body += (f"<h3>{html.escape(t)}</h3><p class='small'>{html.escape(info['cv_method'])}. Selection: the "
                  "blend is kept unless a single candidate's mean per-well loss (squared error, or log-loss for "
                  "classes) is lower by more than two standard errors of the paired difference; well ties are added "
                  "when they beat the chosen model by one. The standard error column is that of each candidate's "
                  "mean loss.</p>"
                  + _table(pd.DataFrame(rows), chosen) + _img(fig / f"board_{t}.png", f"{t}: matched vs random CV"))
+        if (fig / f"reliability_{t}.png").exists():
+            body += _img(fig / f"reliability_{t}.png", f"{t}: out-of-fold probability vs observed frequency of "
+                         "the chosen model (points: bins of at least 3 wells)")
         design = info.get("cv_design")
         if design and "cdf" in design:
             plots.distance_cdfs(design, t, fig / f"distances_{t}.png")
@@ -214,7 +225,8 @@ def _maps(maps, wells, card, fig):
     for t, info in card["targets"].items():
         if info["task"] == "classification":
             plots.facies_maps(maps, t, wells, fig / f"map_{t}.png")
-            body += _img(fig / f"map_{t}.png", f"{t}: most probable class and class probabilities")
+            body += _img(fig / f"map_{t}.png", f"{t}: the facies map (its rule in the title) and the class "
+                         "probabilities")
         else:
             plots.property_maps(maps, t, wells, fig / f"map_{t}.png", log=info.get("transform") == "log10")
             body += _img(fig / f"map_{t}.png", f"{t}: median and 80 % interval width, wells on top")
@@ -228,6 +240,61 @@ def _maps(maps, wells, card, fig):
                      f"{_fmt(inside[key], 4) if inside else 'n/a'} ({a.get('wells_inside')} wells); outside: "
                      f"{_fmt(outside[key], 4) if outside else 'n/a'} ({a.get('wells_outside')} wells).</p>")
     return _section("maps", "Maps between the wells", body)
+
+
+METHOD_LABELS = {"naive": "raw wells", "declustered_cell": "declustered (cell)",
+                 "declustered_nearest_node": "declustered (nearest-node)",
+                 "debiased_seismic": "debiased with the seismic", "model_map": "mean of the model's map"}
+
+
+def _report_cutoffs(card) -> dict:
+    """One exceedance map per numeric target: P(value > its recommended field-wide mean)."""
+    return {t: [float(f"{g['mean']:.3g}")] for t, g in card.get("global", {}).items() if "mean" in g}
+
+
+def _field_wide(card, maps, wells, fig):
+    from .predict import exceedance_name
+
+    body = ("<p>Wells drilled in the good rock over-state the field. Declustering re-weights them by the area each "
+            "stands for, but cannot bring back rock no well reached; the exhaustive seismic can, through the "
+            "calibration of each property on the model's prediction at the wells (out of fold), applied to the "
+            "prediction's distribution over the whole map (debiasing with secondary data, Deutsch 2002). The "
+            "interval is the 10th-90th percentile of the estimate over 200 bootstrap resamples of the wells. "
+            "These are estimates from a model, not measurements.</p>")
+    for t, g in card.get("global", {}).items():
+        body += f"<h3>{html.escape(t)}</h3>"
+        order = list(METHOD_LABELS)
+        recommended = order.index(g["method"])
+        if "mean" in g:
+            rows = [{"estimate": METHOD_LABELS[m], f"mean {t}": g["estimates"][m]["mean"]} for m in order]
+            body += _table(pd.DataFrame(rows), recommended)
+            body += (f"<p>Recommended: <b>{_fmt(g['mean'], 4)}</b> (q10 {_fmt(g['interval']['q10'], 4)}, q90 "
+                     f"{_fmt(g['interval']['q90'], 4)}), {html.escape(g['why'])}.</p>")
+            if g.get("distribution"):
+                plots.field_wide_cdfs(g, t, fig / f"field_{t}.png", log=card["targets"][t].get("transform") == "log10")
+                body += _img(fig / f"field_{t}.png", f"{t}: field-wide distribution")
+            name = exceedance_name(t, float(f"{g['mean']:.3g}"))
+            if name in maps and maps[name].ndim == 2:
+                plots.exceedance_map(maps, name, wells, fig / f"exceed_{t}.png")
+                body += _img(fig / f"exceed_{t}.png", f"{t}: probability of exceeding the field-wide mean "
+                             "(predictor predict --exceed writes such maps for any cutoff)")
+            continue
+        classes = list(g["proportions"])
+        rows = [{"estimate": METHOD_LABELS[m], **{c: g["estimates"][m]["proportions"][c] for c in classes}}
+                for m in order]
+        if t in maps:
+            codes = maps[t].to_numpy()
+            codes = codes[codes >= 0]
+            rule = card["targets"][t].get("facies_map", {}).get("rule", "most-probable")
+            rows.append({"estimate": f"the facies map ({rule} rule)",
+                         **{c: float(np.mean(codes == k)) for k, c in enumerate(classes)}})
+        body += _table(pd.DataFrame(rows), recommended)
+        iv = g["interval"]
+        body += ("<p>Recommended proportions: " + ", ".join(
+            f"{html.escape(c)} <b>{g['proportions'][c]:.1%}</b> ({iv[c]['q10']:.1%}-{iv[c]['q90']:.1%})"
+            for c in classes) + f", {html.escape(g['why'])}. The last row is what the facies map draws: its class "
+            "shares should sit close to the recommended proportions.</p>")
+    return _section("field", "Field-wide numbers", body)
 
 
 def _intervals(card):

@@ -40,9 +40,18 @@ from .explain import (
 from .features import (
     FeatureSpec,
     build_features,
+    feature_matrix,
     features_at_samples,
     features_at_wells,
     location_features,
+)
+from .field_wide import (
+    MAP_RULES,
+    FieldWide,
+    MapRule,
+    field_wide_classes,
+    field_wide_values,
+    rule_factors,
 )
 from .grid import spacing
 from .intervals import PHYSICAL_BOUNDS, IntervalCalibration, SpreadModel, calibrate, effective_size
@@ -93,6 +102,7 @@ class TrainOptions:
     seed: int = 0
     n_threads: int = 1
     candidates: list[str] | None = None  # restrict the leaderboard to these names (baselines included)
+    facies_map: MapRule = "balanced"  # how the facies map picks one class per node (see field_wide)
 
     def to_dict(self) -> dict:
         out = asdict(self)
@@ -103,7 +113,7 @@ class TrainOptions:
         """Option values checked once, with the allowed values named."""
         allowed = {"cv": DESIGNS, "declustering": ("cell", "nearest_node", "none"),
                    "well_ties": ("auto", "always", "never"), "interval_spread": ("none", "features", "kriging"),
-                   "sample_method": ("bilinear", "nearest")}
+                   "sample_method": ("bilinear", "nearest"), "facies_map": MAP_RULES}
         for key, values in allowed.items():
             if getattr(self, key) not in values:
                 raise InputError(f"{key} = {getattr(self, key)!r} is not known; choose one of {', '.join(values)}")
@@ -142,6 +152,28 @@ class TargetModel:
     folds: np.ndarray | None = None  # the test fold of every training row
     notes: list[str] = field(default_factory=list)
     representative_weights: np.ndarray | None = None  # score weights raked to the map (see cv_design)
+    field_wide: FieldWide | None = None  # field-wide mean or proportions, debiased with the seismic
+    map_factors: np.ndarray | None = None  # classes: argmax(p * map_factors) draws the facies map
+    rows: np.ndarray | None = None  # the rows of TrainedModels.wells this target was trained on
+
+    def out_of_fold_table(self, wells: pd.DataFrame) -> pd.DataFrame:
+        """Per well (per sample in a volume): position, observed value, out-of-fold prediction of
+        the chosen model on the matched folds, its fold and declustering weight."""
+        sub = wells.iloc[self.rows].reset_index(drop=True)
+        cols = [c for c in ("well_id", "x", "y", "z") if c in sub]
+        table = sub[cols].copy()
+        if self.task == "classification":
+            table[f"{self.name}_observed"] = np.asarray(self.classes)[self.observed]
+            for k, cls in enumerate(self.classes):
+                table[f"{self.name}_prob_{cls}"] = self.oof[:, k]
+        else:
+            back = (lambda v: 10.0**v) if self.transform == "log10" else (lambda v: v)
+            table[f"{self.name}_observed"] = back(self.observed)
+            table[f"{self.name}_predicted"] = back(self.calibration.clip(self.oof))
+            table["error"] = table[f"{self.name}_predicted"] - table[f"{self.name}_observed"]
+        table["fold"] = self.folds + 1
+        table["weight"] = self.weights
+        return table
 
     def refit(self, candidate: str):
         """Fit the named leaderboard candidate (a baseline, say) on all wells, for comparison maps."""
@@ -339,6 +371,10 @@ class _Prepared:
     facies_classes: list[str]
     space: dict
     notes: list[str]
+    map_X: pd.DataFrame  # features at a seeded sample of the map's nodes (volumes: of live traces' samples)
+    map_X_xy: np.ndarray  # their positions
+    nearest_weights: np.ndarray  # nearest-node declustering weight of each row
+    cell_weights: np.ndarray  # cell declustering weight of each row
 
 
 def _prepare(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> _Prepared:
@@ -353,8 +389,8 @@ def _prepare(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> _P
         if volume:
             X_all, kept = features_at_samples(grid, spec, wells, options.drop_outside, wells_z_domain(wells))
         else:
-            X_all, kept = features_at_wells(build_features(grid, spec), wells, options.sample_method,
-                                            options.drop_outside)
+            feature_grid = build_features(grid, spec)
+            X_all, kept = features_at_wells(feature_grid, wells, options.sample_method, options.drop_outside)
     notes += [str(w.message) for w in caught]
     names = [str(c) for c in X_all.columns]
     wells = wells.loc[kept].reset_index(drop=True)
@@ -374,6 +410,8 @@ def _prepare(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> _P
     pick = sample_locations(len(map_xy), options.seed)
     map_xy = map_xy[pick]
     map_attrs = None if volume else pd.DataFrame({a: grid[a].to_numpy()[valid][pick] for a in spec.attributes})
+    map_X, map_X_xy = (_volume_sample(grid, spec, names, wells, options) if volume
+                       else _map_sample(grid, feature_grid, names, options.seed))
     ranges = {n: [float(np.nanmin(X_all[n])), float(np.nanmax(X_all[n]))] for n in names}
     facies_classes: list[str] = []
     facies_codes = None
@@ -388,13 +426,58 @@ def _prepare(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> _P
     # experiments/declustering_accuracy.py; the cell-weighted ones are kept beside them
     stats = declustered_statistics(wells, stat_weights, numeric, categorical)
     stats["declustered_cell"] = declustered_statistics(wells, cell_weights, numeric, categorical)["declustered"]
+    notes += _attribute_cover(X_all, map_X, spec.attributes)
     space = {"kind": "map"}
     if volume:
         space = {"kind": "volume", "z_domain": grid.attrs.get("z_domain", "unknown"),
                  "wells_z_domain": wells_z_domain(wells), "z_range": [float(wells["z"].min()), float(wells["z"].max())],
                  "samples": int(len(wells)), "wells": int(wells["well_id"].nunique())}
     return _Prepared(wells, X_all, names, spec, xy, weights, units, cv_xy, map_xy, map_attrs, volume, ranges, decl,
-                     stats, facies_codes, facies_classes, space, notes)
+                     stats, facies_codes, facies_classes, space, notes, map_X, map_X_xy, stat_weights, cell_weights)
+
+
+def _attribute_cover(at_wells: pd.DataFrame, on_map: pd.DataFrame, attrs: list[str]) -> list[str]:
+    """A warning per attribute whose range at the wells covers less than half of the map's."""
+    out = []
+    for a in attrs:
+        lo, hi = np.nanquantile(on_map[a], [0.005, 0.995])
+        seen = max(0.0, min(hi, np.nanmax(at_wells[a])) - max(lo, np.nanmin(at_wells[a])))
+        if hi > lo and seen < 0.5 * (hi - lo):
+            out.append(f"the wells sample {a} from {np.nanmin(at_wells[a]):.4g} to {np.nanmax(at_wells[a]):.4g}, "
+                       f"less than half of its range over the map ({lo:.4g} to {hi:.4g}): the models and the "
+                       "field-wide numbers debiased with the seismic extrapolate there; read them as uncertain, "
+                       "or add wells in the unsampled part of the attribute's range")
+    return out
+
+
+def _map_sample(grid: xr.Dataset, feature_grid: xr.Dataset, names: list[str], seed: int):
+    """Features and positions of a seeded sample of the map's nodes (the field-wide estimates' support)."""
+    matrix, valid = feature_matrix(feature_grid, names)
+    xx, yy = np.meshgrid(grid.x.to_numpy(), grid.y.to_numpy())
+    pick = sample_locations(len(matrix), seed)
+    return pd.DataFrame(matrix[pick], columns=names), np.column_stack([xx.ravel()[valid], yy.ravel()[valid]])[pick]
+
+
+VOLUME_SAMPLE_TRACES = 40
+
+
+def _volume_sample(volume: xr.Dataset, spec: FeatureSpec, names: list[str], wells: pd.DataFrame,
+                   options: TrainOptions):
+    """Features at every sample of a seeded set of live traces, within the wells' z range."""
+    xx, yy, live = trace_footprint(volume)
+    rng = np.random.default_rng(options.seed)
+    traces = rng.choice(int(live.sum()), size=min(VOLUME_SAMPLE_TRACES, int(live.sum())), replace=False)
+    z = volume.z.to_numpy()
+    z = z[(z >= wells["z"].min()) & (z <= wells["z"].max())]
+    pseudo = pd.DataFrame({"well_id": np.repeat([f"trace{t}" for t in traces], z.size),
+                           "x": np.repeat(xx[live][traces], z.size), "y": np.repeat(yy[live][traces], z.size),
+                           "z": np.tile(z, traces.size)})
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", PredictorWarning)
+        X, kept = features_at_samples(volume, spec, pseudo, True, wells_z_domain(wells))
+    X = X[names].reset_index(drop=True)
+    ok = np.all(np.isfinite(X.to_numpy(float)), axis=1)
+    return X[ok].reset_index(drop=True), pseudo.loc[kept, ["x", "y"]].to_numpy(float)[ok]
 
 
 def default_features(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> FeatureSpec:
@@ -463,6 +546,7 @@ class _TargetTable:
     head_of: np.ndarray  # row -> index into heads
     baseline_y: np.ndarray
     notes: list[str]
+    rows: np.ndarray  # the rows of the prepared wells that hold the target
 
 
 def _target_table(prep: _Prepared, target: str, options: TrainOptions) -> _TargetTable:
@@ -513,7 +597,7 @@ def _target_table(prep: _Prepared, target: str, options: TrainOptions) -> _Targe
                    np.zeros(idx.size, int), classes, None if prep.facies_codes is None else prep.facies_codes[idx],
                    prep.facies_classes, options.seed, options.n_threads, units=head_of, map_distances=g_map,
                    n_splits=options.n_splits)
-    return _TargetTable(data, y, classes, transform, units, heads, head_of, baseline_y, notes)
+    return _TargetTable(data, y, classes, transform, units, heads, head_of, baseline_y, notes, idx)
 
 
 def _designs(table: _TargetTable, block: float, options: TrainOptions, task: Task, target: str) -> dict:
@@ -631,6 +715,15 @@ def _train_target(prep: _Prepared, target: str, options: TrainOptions) -> Target
     if task == "regression":
         calibration, spread_model = _calibrate(model, data, y - oof, design, attrs, options, target, notes)
     final = type_copy(model).fit(data)
+    on_map = final.predict(prep.map_X, prep.map_X_xy)
+    wide = _field_wide(prep, table, target, task, oof, on_map, calibration, options.seed)
+    notes += _field_wide_notes(target, wide)
+    map_factors = None
+    if task == "classification":
+        # no prior shift: drilling chose places by what the seismic sees, so p(facies | seismic) holds on the
+        # map (covariate shift); shifting the priors raised the map's Brier score in experiments/field_wide.py
+        proportions = np.array([wide.estimates[wide.recommended]["proportions"][c] for c in classes])
+        map_factors = rule_factors(options.facies_map, on_map, proportions)
     for row in board:
         row["chosen"] = row["candidate"] == chosen
     chosen_row = next(r for r in board if r["chosen"])
@@ -669,7 +762,35 @@ def _train_target(prep: _Prepared, target: str, options: TrainOptions) -> Target
                        variogram=vario, data=data, candidates={k: v[0] for k, v in oofs.items()},
                        spread=spread_model, importance=imp, applicability=aoa, applicability_cv=aoa_cv,
                        trust=facts, units=table.units, design=design, distances=distance, folds=folds,
-                       notes=notes, representative_weights=representative)
+                       notes=notes, representative_weights=representative, field_wide=wide,
+                       map_factors=map_factors, rows=table.rows)
+
+
+def _field_wide(prep: _Prepared, table: _TargetTable, target: str, task: Task, oof, on_map, calibration,
+                seed: int) -> FieldWide:
+    """Naive, declustered and seismic-debiased field-wide estimates of one target."""
+    rows = table.rows
+    common = dict(weights=table.data.weights, cell_weights=prep.cell_weights[rows],
+                  nearest_weights=prep.nearest_weights[rows], units=table.units, seed=seed)
+    if task == "classification":
+        return field_wide_classes(target, np.asarray(table.classes)[table.y], table.classes, oof, on_map, **common)
+    values = 10.0 ** table.y if table.transform == "log10" else table.y
+    point = calibration.clip(on_map)
+    if table.transform == "log10":
+        # the map holds 10^(mean of log10), about the median: the mean adds the residuals back (Duan 1983 smearing)
+        point = 10.0 ** point * float(np.average(10.0 ** (table.y - oof), weights=table.data.weights))
+    return field_wide_values(target, values, oof, on_map, map_values=point, **common)
+
+
+OUTSIDE_WARN = 0.2  # share of the map beyond the wells' range of the model's prediction
+
+
+def _field_wide_notes(target: str, wide: FieldWide) -> list[str]:
+    if wide.outside_share <= OUTSIDE_WARN:
+        return []
+    return [f"{target}: {wide.outside_share:.0%} of the map has a predicted value beyond those the wells were "
+            "predicted at, so the field-wide estimate debiased with the seismic extrapolates its calibration "
+            "there; its interval understates the uncertainty"]
 
 
 def _calibrate(model, data: FitData, residuals: np.ndarray, design, attrs: list[str], options: TrainOptions,

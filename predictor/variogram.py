@@ -10,7 +10,7 @@ from dataclasses import asdict, dataclass
 from typing import Literal
 
 import numpy as np
-from scipy.optimize import curve_fit
+from scipy.optimize import curve_fit, nnls
 from scipy.spatial.distance import pdist
 
 from .errors import ModelError
@@ -91,13 +91,16 @@ def experimental(x, y, values, n_lags: int = 15, max_lag: float | None = None, a
     return Experimental(lagsum[have] / counts[have], total[have] / counts[have], counts[have])
 
 
-START_RANGES = (0.1, 0.25, 0.5, 1.0, 2.0)  # starting ranges, as fractions of the largest lag
+N_RANGES = 60  # ranges profiled per model kind, log-spaced from half the shortest lag to 4 x the longest
 STRUCTURE_GAIN = 0.2  # a structured model must cut the misfit of a flat line by this share
 
 
 def fit_variogram(exp: Experimental, kinds: tuple[str, ...] = KINDS) -> VariogramModel:
-    """Least-squares fit (weighted by pair counts) of each model kind from several starting
-    ranges (one start can stop in a local minimum); the best fit is returned.
+    """Least-squares fit (weighted by pair counts) of each model kind; the best fit is returned.
+
+    For a given range the model is linear in nugget and sill, so the range is profiled on a
+    log-spaced grid with a non-negative least-squares solve at each (a global search: no start
+    can stop in a local minimum), then the best grid point is refined by ``curve_fit``.
 
     When no model fits the experimental values clearly better than a flat line at their mean
     (pure nugget: no spatial correlation at these lags), the result has ``pure_nugget=True``.
@@ -107,29 +110,40 @@ def fit_variogram(exp: Experimental, kinds: tuple[str, ...] = KINDS) -> Variogra
     top = float(np.max(exp.gamma))
     h_max = float(np.max(exp.lags))
     h_min = float(np.min(exp.lags))
-    sigma = 1.0 / np.sqrt(exp.counts)
+    root = np.sqrt(exp.counts)
+    upper = (top * 1.5 + 1e-12, top * 3 + 1e-12)
+
+    def misfit(kind, params) -> float:
+        return float(np.sum(exp.counts * (params[0] + params[1] * _shape(kind, exp.lags, params[2]) - exp.gamma) ** 2))
+
     best, best_err = None, np.inf
     for kind in kinds:
-        def model(h, nugget, sill, rng, kind=kind):
-            return nugget + sill * _shape(kind, h, rng)
-
-        bounds = ([0.0, 1e-12, h_min * 0.5], [top * 1.5 + 1e-12, top * 3 + 1e-12, h_max * 4])
-        for share in START_RANGES:
-            start = [min(exp.gamma[0], 0.5 * top), max(top - exp.gamma[0], 0.1 * top),
-                     float(np.clip(share * h_max, bounds[0][2] * 1.01, bounds[1][2] * 0.99))]
-            try:
-                params, _ = curve_fit(model, exp.lags, exp.gamma, p0=start, sigma=sigma, bounds=bounds, maxfev=5000)
-            except (RuntimeError, ValueError):
+        for rng in np.geomspace(h_min * 0.5, h_max * 4, N_RANGES):
+            design = np.column_stack([np.ones_like(exp.lags), _shape(kind, exp.lags, rng)]) * root[:, None]
+            (nugget, sill), _ = nnls(design, exp.gamma * root)
+            sill = max(sill, 1e-12)  # no structure at this range: a flat line, judged below
+            if nugget > upper[0] or sill > upper[1]:
                 continue
-            err = float(np.sum(exp.counts * (model(exp.lags, *params) - exp.gamma) ** 2))
+            err = misfit(kind, (nugget, sill, rng))
             if err < best_err:
-                best, best_err = VariogramModel(kind, float(params[0]), float(params[1]), float(params[2])), err
+                best, best_err = (kind, [float(nugget), float(sill), float(rng)]), err
     if best is None:
         raise ModelError("no semivariogram model could be fitted to the experimental values")
+    kind, start = best
+    bounds = ([0.0, 1e-12, h_min * 0.5], [upper[0], upper[1], h_max * 4])
+    start = [float(np.clip(v, lo, hi)) for v, lo, hi in zip(start, *bounds, strict=True)]
+    try:
+        refined, _ = curve_fit(lambda h, n, s_, r: n + s_ * _shape(kind, h, r), exp.lags, exp.gamma, p0=start,
+                               sigma=1.0 / root, bounds=bounds, maxfev=2000)
+        if misfit(kind, refined) < best_err:
+            start, best_err = [float(v) for v in refined], misfit(kind, refined)
+    except (RuntimeError, ValueError):
+        pass
+    model = VariogramModel(kind, *start)
     flat = float(np.sum(exp.counts * (exp.gamma - np.average(exp.gamma, weights=exp.counts)) ** 2))
     if best_err > (1 - STRUCTURE_GAIN) * flat:
-        best.pure_nugget = True
-    return best
+        model.pure_nugget = True
+    return model
 
 
 MIN_NUGGET_SHARE = 0.02

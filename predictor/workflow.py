@@ -9,12 +9,12 @@ from __future__ import annotations
 import os
 from pathlib import Path
 
-from .bundle import save_bundle, sha256
+from .bundle import Bundle, load_bundle, save_bundle, sha256
 from .features import FeatureSpec
 from .grid import read_seismic
 from .io.atomic import check_target
 from .io.tables import read_wells
-from .predict import check_format, predict_maps, write_maps
+from .predict import check_exceedance, check_format, predict_maps, write_maps
 from .training import TrainedModels, TrainOptions, train
 from .volume import is_volume
 
@@ -41,16 +41,19 @@ def train_files(wells_path, grid_path, out, targets, attributes=None, context_ra
 
 
 def predict_files(bundle, grid_path, out, overwrite=False, crs: str | None = None, z_domain: str | None = None,
-                  segy_name: str | None = None) -> Path:
+                  segy_name: str | None = None, exceed: dict | None = None) -> Path:
     """Predict the bundle's targets on a grid file and write the maps (CSV, NetCDF or GeoTIFF).
 
     ``crs`` (e.g. "EPSG:32631") labels NetCDF and GeoTIFF outputs; without it a CRS carried by
     the input grid is kept.
     """
     check_target(out, overwrite)
+    if not isinstance(bundle, Bundle):
+        bundle = load_bundle(bundle)
+    check_exceedance(bundle.card, exceed)  # before the long work, not after it
     grid = read_seismic(grid_path, z_domain=z_domain, name=segy_name)
     check_format(out, is_volume(grid))  # before the long work, not after it
-    maps = predict_maps(bundle, grid)
+    maps = predict_maps(bundle, grid, exceed=exceed)
     crs = crs or grid.attrs.get("crs_wkt")
     if crs and Path(out).suffix.lower() == ".nc":
         from .io.geotiff import crs_to_wkt
@@ -74,4 +77,27 @@ def leaderboard_lines(trained: TrainedModels) -> list[str]:
             kind = "baseline" if row["baseline"] else "candidate"
             lines.append(f"  {mark} {row['candidate']:<28} {kind:<9} {tm.distances['chosen']} {row['cv'][key]:.4f}   "
                          f"random {row['cv_random'][key]:.4f}")
+    return lines
+
+
+METHOD_WORDS = {"debiased_seismic": "debiased with the seismic", "model_map": "mean of the model's map"}
+
+
+def field_wide_lines(trained: TrainedModels) -> list[str]:
+    """The recommended field-wide estimate per target, beside the raw wells' and the declustered one."""
+    lines = []
+    for name, tm in trained.targets.items():
+        wide = tm.field_wide
+        if wide is None:
+            continue
+        est = wide.estimates
+        if tm.task == "regression":
+            iv = wide.interval
+            lines.append(f"field-wide mean {name}: {est[wide.recommended]['mean']:.4g} (q10-q90 {iv['q10']:.4g}-"
+                         f"{iv['q90']:.4g}, {METHOD_WORDS[wide.recommended]}); raw wells "
+                         f"{est['naive']['mean']:.4g}, declustered {est['declustered_nearest_node']['mean']:.4g}")
+            continue
+        shares = est[wide.recommended]["proportions"]
+        parts = [f"{c} {v:.1%} (raw wells {est['naive']['proportions'][c]:.1%})" for c, v in shares.items()]
+        lines.append(f"field-wide {name} proportions ({METHOD_WORDS[wide.recommended]}): " + ", ".join(parts))
     return lines

@@ -203,3 +203,49 @@ def test_maps_csv_keeps_seven_significant_digits_in_every_column(bundle, tmp_pat
         maps = predict_maps(bundle, read_grid(GRID))
     for name in ("porosity", "porosity_q10", "porosity_q90", "facies_prob_sand"):
         np.testing.assert_allclose(written[name], maps[name].to_numpy().ravel(), rtol=1e-6, atol=0)
+
+
+def test_card_holds_field_wide_estimates_below_the_raw_wells(bundle):
+    # the demo's wells favour sand (high porosity); truth.nc holds the exhaustive truth
+    card = json.loads((bundle / "model_card.json").read_text())
+    truth = xr.open_dataset(DEMO / "truth.nc")
+    phi = card["global"]["porosity"]
+    assert phi["method"] in phi["estimates"] and phi["interval"]["q10"] <= phi["mean"] <= phi["interval"]["q90"]
+    true_mean = float(truth.porosity.mean())
+    raw_error = abs(card["naive"]["porosity"]["mean"] - true_mean)
+    assert abs(phi["mean"] - true_mean) < 0.5 * raw_error
+    sand = card["global"]["facies"]["proportions"]["sand"]
+    true_sand = float((truth.facies.to_numpy() == 2).mean())  # synthetic codes: 0 shale, 1 silt, 2 sand
+    assert abs(sand - true_sand) < 0.5 * abs(card["naive"]["facies"]["proportions"]["sand"] - true_sand)
+    assert sum(card["global"]["facies"]["proportions"].values()) == pytest.approx(1.0)
+    assert set(card["targets"]["facies"]["facies_map"]["rule_factors"]) == {"sand", "shale", "silt"}
+
+
+def test_exceedance_maps_and_facies_shares(bundle, tmp_path):
+    out = tmp_path / "maps.nc"
+    assert main(["predict", str(bundle), "--grid", GRID, "--out", str(out), "--exceed", "porosity:0.15",
+                 "--exceed", "porosity:0.25"]) == 0
+    maps = xr.open_dataset(out)
+    low, high = maps["porosity_prob_above_0p15"].to_numpy(), maps["porosity_prob_above_0p25"].to_numpy()
+    ok = np.isfinite(low)
+    assert np.all((low[ok] >= 0) & (low[ok] <= 1)) and np.all(low[ok] >= high[ok])
+    # nodes whose q10 is above the cutoff are above it with probability about 0.9 or more
+    sure = maps["porosity_q10"].to_numpy() > 0.15
+    assert np.nanmin(low[sure]) >= 0.85
+    card = json.loads((bundle / "model_card.json").read_text())
+    codes = maps["facies"].to_numpy()
+    classes = maps["facies"].attrs["flag_meanings"].split(" ")
+    rule = card["targets"]["facies"]["facies_map"]["rule"]
+    if rule == "proportions":  # the map draws the field-wide proportions
+        for k, cls in enumerate(classes):
+            assert np.mean(codes[codes >= 0] == k) == pytest.approx(card["global"]["facies"]["proportions"][cls],
+                                                                    abs=0.03)
+
+
+@pytest.mark.parametrize(("spec", "message"), [
+    ("porosity:1.5", "between 0 and 1"), ("density:3", "no target 'density'"),
+    ("facies:gravel", "no class 'gravel'"), ("porosity", "give TARGET:CUTOFF")])
+def test_bad_exceedance_cutoffs_exit_2_and_write_nothing(bundle, tmp_path, capsys, spec, message):
+    out = tmp_path / "maps.nc"
+    assert main(["predict", str(bundle), "--grid", GRID, "--out", str(out), "--exceed", spec]) == 2
+    assert message in capsys.readouterr().err and not out.exists()

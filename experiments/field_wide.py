@@ -1,0 +1,172 @@
+"""Field-wide numbers against the truth: mean porosity, sand share, facies maps, exceedance.
+
+    python experiments/field_wide.py [--set tuning|held_out|all] [--jobs 2]
+
+On the fields of experiments/matched_cv.py (dense and sparse, regular, random and strongly
+preferential drilling, one and two attributes), trained with the plain command
+(``--target porosity --target facies``), per field:
+
+- the error of each field-wide estimate (naive, cell- and nearest-node-declustered, debiased
+  with the seismic, the model map's mean) divided by the raw wells' error, for mean porosity
+  and the sand share;
+- the facies map's sand share under each decision rule, against the truth, with and without
+  the prior shift of the probabilities; balanced accuracy of each rule; the map's Brier score
+  against a logistic regression on the attributes fitted to the same wells;
+- the reliability of P(porosity > cutoff) at three cutoffs (the truth's 30th, 50th and 70th
+  percentiles): observed frequency against predicted probability in ten bins.
+
+The tuning seeds (1, 2) were used while developing; the held-out seeds (11, 12) never were.
+"""
+
+from __future__ import annotations
+
+import argparse
+import dataclasses
+import warnings
+from concurrent.futures import ProcessPoolExecutor
+
+import numpy as np
+import pandas as pd
+from matched_cv import HELD_OUT, LAYOUTS, TUNING, map_rows
+from sklearn.metrics import balanced_accuracy_score
+
+from predictor.errors import ModelError, PredictorWarning
+from predictor.field_wide import MAP_RULES, prior_shift_factors, rule_factors, shift
+from predictor.intervals import calibrate
+from predictor.predict import local_spread
+from predictor.synthetic import FACIES, FieldSpec, make_field
+from predictor.training import TrainOptions, train
+
+BINS = np.linspace(0, 1, 11)
+BIASED_PHI, BIASED_SAND = 0.02, 0.05  # raw-well errors above which drilling counts as biased (ratios shown)
+
+
+def brier(labels, proba, classes) -> float:
+    onehot = (np.asarray(labels)[:, None] == np.asarray(classes)[None, :]).astype(float)
+    return float(np.mean(np.sum((proba - onehot) ** 2, axis=1)))
+
+
+def one(layout: str, seed: int) -> tuple[dict, pd.DataFrame]:
+    warnings.simplefilter("ignore", PredictorWarning)
+    seismic, truth, wells = make_field(FieldSpec(seed=seed, **LAYOUTS[layout]))
+    try:
+        trained = train(wells, seismic, TrainOptions(targets=["porosity", "facies"]))
+    except ModelError:
+        trained = train(wells, seismic, TrainOptions(targets=["porosity"]))
+    X, xy, valid = map_rows(seismic, trained.feature_spec, trained.feature_names)
+    phi = trained.targets["porosity"]
+    true_phi = truth.porosity.to_numpy().ravel()[valid]
+    row = {"layout": layout, "seed": seed, "wells": len(wells)}
+    est = phi.field_wide.estimates
+    raw_error = abs(est["naive"]["mean"] - true_phi.mean())
+    row["phi_raw_error"] = raw_error
+    for method, value in est.items():
+        row[f"phi_{method}"] = abs(value["mean"] - true_phi.mean()) / raw_error
+    iv = phi.field_wide.interval
+    row["phi_in_interval"] = iv["q10"] <= true_phi.mean() <= iv["q90"]
+    # exceedance reliability, pooled over cutoffs
+    pred = phi.calibration.clip(phi.model.predict(X, xy))
+    spread = local_spread(phi.spread, phi.model, X, xy) if phi.calibration.scaled else None
+    rel = []
+    centred = dataclasses.replace(phi.calibration, residual_quantiles=list(
+        np.asarray(phi.calibration.residual_quantiles) - phi.calibration.residual_quantiles[50]))
+    constant = calibrate(phi.observed - phi.oof, phi.weights, bounds=(0.0, 1.0))
+    for level in (0.3, 0.5, 0.7):
+        cutoff = float(np.quantile(true_phi, level))
+        rel.append(pd.DataFrame({"p": phi.calibration.exceedance(pred, cutoff, spread),
+                                 "p_centred": centred.exceedance(pred, cutoff, spread),
+                                 "p_constant": constant.exceedance(pred, cutoff),
+                                 "hit": true_phi > cutoff, "level": level}))
+    row["map_bias"] = float(np.mean(pred - true_phi))
+    row["oof_residual_mean"] = float(np.average(phi.observed - phi.oof, weights=phi.weights))
+    rel = pd.concat(rel).assign(layout=layout, seed=seed)
+    if "facies" not in trained.targets:
+        return row, rel
+    fac = trained.targets["facies"]
+    classes = fac.classes
+    labels = np.array(FACIES)[truth.facies.to_numpy().ravel()[valid]]
+    true_share = {c: float(np.mean(labels == c)) for c in classes}
+    sand = classes.index("sand")
+    est = fac.field_wide.estimates
+    raw_error = abs(est["naive"]["proportions"]["sand"] - true_share["sand"])
+    row["sand_raw_error"] = raw_error
+    for method, value in est.items():
+        row[f"sand_{method}"] = abs(value["proportions"]["sand"] - true_share["sand"]) / raw_error
+    proba = fac.model.predict(X, xy)
+    logistic = fac.refit("logistic").predict(X, xy)
+    target = np.array([est[fac.field_wide.recommended]["proportions"][c] for c in classes])
+    shifted = shift(proba, prior_shift_factors(proba, target))
+    row["brier_ratio"] = brier(labels, proba, classes) / brier(labels, logistic, classes)
+    row["brier_ratio_shifted"] = brier(labels, shifted, classes) / brier(labels, logistic, classes)
+    row["bacc_logistic"] = balanced_accuracy_score(labels, np.array(classes)[logistic.argmax(1)])
+    for name, p in (("", proba), ("shifted_", shifted)):
+        for rule in MAP_RULES:
+            drawn = np.argmax(p * rule_factors(rule, p, target), axis=1)
+            row[f"{name}{rule}_sand_error"] = float(np.mean(drawn == sand)) - true_share["sand"]
+            row[f"{name}{rule}_bacc_gain"] = balanced_accuracy_score(labels, np.array(classes)[drawn]) - \
+                row["bacc_logistic"]
+    return row, rel
+
+
+def reliability(rel: pd.DataFrame, column: str = "p") -> pd.DataFrame:
+    rel = rel.assign(bin=np.clip(np.digitize(rel[column], BINS) - 1, 0, 9))
+    out = rel.groupby("bin").agg(predicted=(column, "mean"), observed=("hit", "mean"), nodes=(column, "size"))
+    out["centre"] = (BINS[:-1] + BINS[1:])[out.index] / 2
+    return out
+
+
+def summary(table: pd.DataFrame, rel: pd.DataFrame, label: str) -> None:
+    print(f"\n{label}: {len(table)} fields")
+    for what, floor in (("phi", BIASED_PHI), ("sand", BIASED_SAND)):
+        biased = table[table[f"{what}_raw_error"] > floor]
+        print(f"  {what}: {len(biased)} fields where the raw wells' error exceeds {floor} (ratios); all fields "
+              "(absolute errors)")
+        for method in ("declustered_cell", "declustered_nearest_node", "debiased_seismic", "model_map"):
+            r = biased[f"{what}_{method}"].dropna()
+            a = (table[f"{what}_{method}"] * table[f"{what}_raw_error"]).dropna()
+            print(f"    {method:<25}: error / raw-well error mean {r.mean():.3f}, worst {r.max():.3f}, "
+                  f"<= 0.20 on {np.mean(r <= 0.2):.0%}; absolute error mean {a.mean():.4f}, worst {a.max():.4f}")
+    print(f"  true mean porosity inside the bootstrap [q10, q90]: {table.phi_in_interval.mean():.0%}")
+    for name in ("", "shifted_"):
+        for rule in MAP_RULES:
+            e = table[f"{name}{rule}_sand_error"].dropna()
+            g = table[f"{name}{rule}_bacc_gain"].dropna()
+            print(f"  facies map {name}{rule:<14}: sand share error mean {e.abs().mean():.3f}, worst {e.abs().max():.3f}"
+                  f" (within 0.04 on {np.mean(e.abs() <= 0.04):.0%}); balanced accuracy - logistic: mean "
+                  f"{g.mean():+.3f}, worst {g.min():+.3f}")
+    for col in ("brier_ratio", "brier_ratio_shifted"):
+        b = table[col].dropna()
+        print(f"  map Brier / logistic ({col}): mean {b.mean():.3f}, worst {b.max():.3f}, <= 0.90 on "
+              f"{np.mean(b <= 0.9):.0%}")
+    print(f"  porosity map bias (mean prediction - truth): mean {table.map_bias.mean():+.4f}; weighted mean "
+          f"out-of-fold residual {table.oof_residual_mean.mean():+.4f}")
+    for column in ("p", "p_centred", "p_constant"):
+        r = reliability(rel, column)
+        dev = (r.observed - r.centre).abs()
+        print(f"  P(porosity > cutoff) reliability ({column}): worst |observed - bin centre| {dev.max():.3f}, "
+              f"worst |observed - mean predicted| {(r.observed - r.predicted).abs().max():.3f}")
+        print("    " + r.round(3).to_string().replace("\n", "\n    "))
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser()
+    parser.add_argument("--set", choices=["tuning", "held_out", "all"], default="all")
+    parser.add_argument("--jobs", type=int, default=2)
+    parser.add_argument("--layouts", nargs="*", default=list(LAYOUTS))
+    args = parser.parse_args()
+    seeds = {"tuning": TUNING, "held_out": HELD_OUT, "all": TUNING + HELD_OUT}[args.set]
+    jobs = [(layout, seed) for seed in seeds for layout in args.layouts]
+    with ProcessPoolExecutor(args.jobs) as pool:
+        results = list(pool.map(one, *zip(*jobs, strict=True)))
+    table = pd.DataFrame([r for r, _ in results])
+    rel = pd.concat([r for _, r in results])
+    pd.set_option("display.width", 250)
+    pd.set_option("display.max_columns", 40)
+    print(table.round(3).to_string(index=False))
+    for label, chosen in (("tuning seeds", TUNING), ("held-out seeds", HELD_OUT)):
+        if table.seed.isin(chosen).any():
+            summary(table[table.seed.isin(chosen)], rel[rel.seed.isin(chosen)], label)
+
+
+if __name__ == "__main__":
+    main()
