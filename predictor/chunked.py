@@ -103,12 +103,13 @@ def default_tile(grid: xr.Dataset) -> int:
 def predict_to_zarr(bundle_dir, grid_path, out, tile: int | None = None, threads: int | None = None,
                     workers: int | None = None, scheduler: str | None = None, overwrite: bool = False,
                     memory_limit: float | None = None, z_domain: str | None = None,
-                    segy_name: str | None = None, exceed: dict | None = None) -> Path:
+                    segy_name: str | None = None, exceed: dict | None = None, crs: str | None = None) -> Path:
     """Predict every target of the bundle over a (possibly larger-than-memory) grid or volume
     into ``out`` (.zarr).  Volume tiles are ``tile`` x ``tile`` traces, each with all its samples.
 
     A SEG-Y input is first copied into a temporary Zarr store beside ``out`` (SEG-Y has no
     tiles to read by), so it must fit in memory once; give NetCDF or Zarr for larger volumes.
+    The store carries the same CF attributes as NetCDF output, with ``crs`` (default: the grid's).
     """
     out = Path(out)
     if out.suffix.lower() != ".zarr":
@@ -126,10 +127,12 @@ def predict_to_zarr(bundle_dir, grid_path, out, tile: int | None = None, threads
             copy = write_zarr(volume, Path(scratch) / "input.zarr")
             del volume
             return predict_to_zarr(bundle_dir, copy, out, tile, threads, workers, scheduler, overwrite,
-                                   memory_limit, z_domain, exceed=exceed)
+                                   memory_limit, z_domain, exceed=exceed, crs=crs)
     folder, grid_path = str(Path(bundle_dir).resolve()), str(Path(grid_path).resolve())
     bundle = _bundle(folder)
     grid = _open(grid_path, z_domain)
+    from .io.geotiff import crs_to_wkt
+    from .io.netcdf import cf
     from .predict import check_exceedance, check_space
 
     check_space(bundle.card, grid)
@@ -147,8 +150,12 @@ def predict_to_zarr(bundle_dir, grid_path, out, tile: int | None = None, threads
     ny, nx = grid.sizes[ay], grid.sizes[ax]
     all_tiles = tiles(ny, nx, tile)
     with atomic_folder(out, overwrite=overwrite) as tmp:
-        _template(_layout(folder, grid_path, all_tiles, ny, nx, z_domain, exceed), grid, tile).to_zarr(
-            tmp, compute=False, mode="w", zarr_format=2)
+        layout = _template(_layout(folder, grid_path, all_tiles, ny, nx, z_domain, exceed), grid, tile)
+        crs = crs or grid.attrs.get("crs_wkt")
+        layout = cf(layout, crs_to_wkt(crs) if crs else None)
+        if "affine" in layout.attrs:  # Zarr attributes are JSON: a plain list
+            layout.attrs["affine"] = [float(v) for v in layout.attrs["affine"]]
+        layout.to_zarr(tmp, compute=False, mode="w", zarr_format=2)
         extrapolated = 0
         done = _run(folder, grid_path, all_tiles, threads, workers, scheduler, z_domain, exceed)
         for (y0, y1, x0, x1), part, outside in progress(done, "tiles", total=len(all_tiles)):

@@ -204,7 +204,7 @@ def _cmd_predict(args) -> int:
 
         path = predict_to_zarr(args.bundle, args.grid, args.out, tile=args.tile, threads=args.threads,
                                workers=args.workers, scheduler=args.scheduler, overwrite=args.overwrite,
-                               z_domain=args.z_domain, segy_name=args.segy_name, exceed=exceed)
+                               z_domain=args.z_domain, segy_name=args.segy_name, exceed=exceed, crs=args.crs)
     else:
         path = predict_files(args.bundle, args.grid, args.out, overwrite=args.overwrite, crs=args.crs,
                              z_domain=args.z_domain, segy_name=args.segy_name, exceed=exceed)

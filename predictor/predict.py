@@ -150,7 +150,8 @@ def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int 
             flags[valid] = aoa.inside(X).astype(np.int8)
             applicable = xr.DataArray(flags.reshape(shape), dims=dims, attrs={
                 "long_name": f"inside the area of applicability of the {target} model (1) or not (0)",
-                "flag_values": np.array([0, 1], dtype=np.int8), "_FillValue": np.int8(-1),
+                "flag_values": np.array([0, 1], dtype=np.int8), "flag_meanings": "outside inside",
+                "_FillValue": np.int8(-1),
                 "comment": "Meyer & Pebesma (2021) dissimilarity index against the training wells"})
         if info["task"] == "classification":
             classes = info["classes"]
@@ -175,12 +176,13 @@ def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int 
         raw = cal.clip(raw)
         log = info.get("transform") == "log10"
         back = (lambda v: 10.0**v) if log else (lambda v: v)
-        units = "mD" if target == "permeability" else ("1" if target == "porosity" else "")
+        # UDUNITS spells mD "millidarcy" ("mD" is not a unit there; "md" would be millidays)
+        units = "millidarcy" if target == "permeability" else ("1" if target == "porosity" else "")
         point = "10 to the mean of log10 (about the median)" if log else "mean (least-squares prediction)"
         for suffix, values, label in (("", raw, point), ("_q10", q10, "10th percentile (q10)"),
                                       ("_q90", q90, "90th percentile (q90)")):
             out[f"{target}{suffix}"] = (dims, on_grid(back(values)))
-            out[f"{target}{suffix}"].attrs.update(units=units, long_name=f"{target} {label}")
+            out[f"{target}{suffix}"].attrs.update(units=units, long_name=f"{target} {label}" + (" in mD" if log else ""))
         for cutoff in (exceed or {}).get(target, []):
             model_cutoff = np.log10(cutoff) if log else cutoff
             name = exceedance_name(target, cutoff)
@@ -190,7 +192,8 @@ def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int 
                                    "around the map's prediction (calibrated predictive distribution)")
         if applicable is not None:
             out[f"{target}_applicable"] = applicable
-    out.attrs.update(source="predictor", bundle=str(bundle.folder), grid=str(grid.attrs.get("source", "")),
+    # file names, not absolute paths: a shared file should not disclose the folders it was made in
+    out.attrs.update(source="predictor", bundle=Path(bundle.folder).name, grid=Path(str(grid.attrs.get("source", ""))).name,
                      caution="a predicted map is a model, not a measurement",
                      percentiles="q10/q90 are non-exceedance percentiles",
                      extrapolated_share=float(outside.mean()))

@@ -78,3 +78,26 @@ def test_tiles_equal_in_memory_when_the_first_corner_holds_no_data(bundle, tmp_p
     for var in ref.data_vars:
         assert np.array_equal(tiled[var].to_numpy(), ref[var].to_numpy(), equal_nan=True), var
     assert (tiled["facies"].to_numpy()[:24, :24] == -1).all()  # the tile in the hole was never predicted
+
+
+def test_netcdf_and_zarr_carry_cf_units_crs_and_flags_read_by_independent_readers(bundle, tmp_path):
+    # netCDF4 (Unidata's library, not xarray) and plain zarr read what predictor wrote
+    netCDF4 = pytest.importorskip("netCDF4")
+    zarr = pytest.importorskip("zarr")
+    nc_path, zarr_path = tmp_path / "maps.nc", tmp_path / "maps.zarr"
+    for path in (nc_path, zarr_path):
+        assert main(["predict", str(bundle), "--grid", GRID_NC, "--out", str(path), "--crs", "EPSG:32631"]) == 0
+    with netCDF4.Dataset(nc_path) as nc:
+        assert nc.Conventions == "CF-1.8"
+        assert nc["permeability"].units == "millidarcy" and "mD" in nc["permeability"].long_name
+        assert nc["crs"].grid_mapping_name == "transverse_mercator"  # UTM 31N (EPSG registry)
+        assert nc["crs"].longitude_of_central_meridian == pytest.approx(3.0)
+        assert nc["porosity"].grid_mapping == "crs"
+        assert "_FillValue" not in nc["x"].ncattrs() and "_FillValue" not in nc["y"].ncattrs()
+        assert nc["porosity_applicable"].flag_meanings == "outside inside"
+        assert "/" not in nc.bundle and "/" not in nc.grid  # file names, not the folders they sit in
+    store = zarr.open_group(str(zarr_path), mode="r")
+    assert store.attrs["Conventions"] == "CF-1.8"
+    assert store["crs"].attrs["grid_mapping_name"] == "transverse_mercator"
+    assert store["permeability"].attrs["units"] == "millidarcy"
+    assert store["x"].attrs["standard_name"] == "projection_x_coordinate" and store["x"].attrs["units"] == "m"

@@ -49,7 +49,7 @@ def read_netcdf_grid(path: Path, lazy: bool = False) -> xr.Dataset:
     return check_grid(ds, str(path))
 
 
-def _cf(ds: xr.Dataset, crs_wkt: str | None) -> xr.Dataset:
+def cf(ds: xr.Dataset, crs_wkt: str | None) -> xr.Dataset:
     """A copy with CF-1.8 attributes on the coordinates, a grid mapping and storable attributes."""
     out = ds.copy()
     out.attrs = {k: (np.asarray(v, float) if k == "affine" else v if isinstance(v, int | float | str) else str(v))
@@ -66,18 +66,40 @@ def _cf(ds: xr.Dataset, crs_wkt: str | None) -> xr.Dataset:
         out["z"].attrs.setdefault("units", {"depth": "m", "time": "ms"}.get(domain, "1"))
         out["z"].attrs.update(long_name={"depth": "depth", "time": "two-way time"}.get(domain, "sample axis"),
                               positive="down", axis="Z")
+    for name in ("inline", "crossline"):
+        if name in out.coords:
+            out[name].attrs.update(long_name=f"{name} number of the survey", units="1")
+    for name in out.coords:  # coordinates are never missing: no fill value (CF 2.5.1)
+        out[name].encoding["_FillValue"] = None
     if crs_wkt:
-        out["crs"] = xr.DataArray(0, attrs={"crs_wkt": crs_wkt, "spatial_ref": crs_wkt})
+        out["crs"] = xr.DataArray(np.int32(0), attrs=grid_mapping(crs_wkt))
         for var in ds.data_vars:
             out[var].attrs["grid_mapping"] = "crs"
     return out
+
+
+def grid_mapping(crs_wkt: str) -> dict:
+    """CF grid-mapping attributes of a CRS (``grid_mapping_name`` and its parameters, CF 5.6),
+    with the WKT kept as ``crs_wkt``; pyproj translates the CRS into CF terms."""
+    try:
+        import pyproj
+
+        attrs = {k: v for k, v in pyproj.CRS.from_user_input(crs_wkt).to_cf().items() if v is not None}
+    except ImportError:
+        raise InputError("labelling NetCDF or Zarr maps with a CRS needs pyproj: `pip install pyproj` (or the "
+                         "[formats] extra)") from None
+    except Exception as err:  # pyproj raises its own CRSError
+        raise InputError(f"unknown coordinate reference system ({str(err)[:120]}); give e.g. EPSG:32631") from None
+    attrs["crs_wkt"] = crs_wkt
+    attrs["spatial_ref"] = crs_wkt  # the name GDAL reads
+    return attrs
 
 
 def write_netcdf(ds: xr.Dataset, target: str | Path, overwrite: bool = True, crs_wkt: str | None = None) -> Path:
     """Write a grid or volume as CF-1.8 NetCDF-4, atomically (temporary name, then rename)."""
     from .atomic import atomic_file
 
-    out = _cf(ds, crs_wkt)
+    out = cf(ds, crs_wkt)
     with atomic_file(target, overwrite=overwrite) as tmp:
         out.to_netcdf(tmp, engine="h5netcdf")
     return Path(target)
@@ -87,7 +109,7 @@ def write_zarr(ds: xr.Dataset, target: str | Path, overwrite: bool = True, crs_w
     """Write a grid or volume as a Zarr store with the same CF attributes, atomically."""
     from .atomic import atomic_folder
 
-    out = _cf(ds, crs_wkt)
+    out = cf(ds, crs_wkt)
     if "affine" in out.attrs:  # Zarr attributes are JSON: a plain list, not an array
         out.attrs["affine"] = [float(v) for v in out.attrs["affine"]]
     # chunks a tiled reader can take one at a time: whole traces of 64 x 64 for volumes, 512 x 512 for maps
