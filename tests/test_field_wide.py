@@ -74,3 +74,19 @@ def test_exceedance_follows_the_residual_distribution():
     assert p[0] == pytest.approx(1 - stats.norm.cdf(1.0), abs=0.005)
     assert cal.exceedance(np.array([0.2]), 0.2)[0] == pytest.approx(0.5, abs=0.005)
     assert cal.exceedance(np.array([0.2]), 0.5)[0] == 0.0 and cal.exceedance(np.array([0.2]), -0.5)[0] == 1.0
+
+
+def test_narrow_attribute_range_at_the_wells_is_warned_and_unknown_rules_refused():
+    import pandas as pd
+
+    from predictor.errors import InputError
+    from predictor.training import TrainOptions, _attribute_cover
+
+    on_map = pd.DataFrame({"impedance": np.linspace(6000, 12000, 1000)})
+    narrow = pd.DataFrame({"impedance": [6000.0, 7000.0, 8000.0]})  # a third of the map's range
+    wide = pd.DataFrame({"impedance": [6100.0, 9000.0, 11900.0]})
+    (message,) = _attribute_cover(narrow, on_map, ["impedance"])
+    assert "less than half of its range over the map" in message and "add wells" in message
+    assert _attribute_cover(wide, on_map, ["impedance"]) == []
+    with pytest.raises(InputError, match="facies_map = 'argmax' is not known; choose one of most-probable"):
+        TrainOptions(targets=["facies"], facies_map="argmax").check()
