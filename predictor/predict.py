@@ -246,7 +246,7 @@ def maps_table(maps: xr.Dataset) -> pd.DataFrame:
     for var in maps.data_vars:
         values = maps[var].to_numpy().ravel()
         meanings = maps[var].attrs.get("flag_meanings")
-        if meanings:
+        if meanings and maps[var].dtype == np.int16:  # class codes become labels; 0/1 flags (int8) stay numbers
             labels = np.array(meanings.split(" ") + [""], dtype=object)
             values = labels[np.where(values >= 0, values, len(labels) - 1)]
         elif "_FillValue" in maps[var].attrs:  # integer flags: the fill value becomes an empty cell
