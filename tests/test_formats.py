@@ -18,6 +18,7 @@ def _maps():
     codes[0, 0] = -1
     ds = xr.Dataset({"porosity": (("y", "x"), values / 100),
                      "facies": (("y", "x"), codes)}, coords={"x": xs, "y": ys})
+    ds["porosity"].attrs.update(units="1")
     ds["facies"].attrs.update(flag_meanings="sand shale silt", _FillValue=np.int16(-1))
     return ds
 
@@ -30,7 +31,8 @@ def test_geotiff_round_trips_coordinates_bounds_and_crs(tmp_path):
         assert src.bounds == pytest.approx((512000 - 12.5, 7204000 - 25.0, 512125 + 12.5, 7204150 + 25.0))
         assert src.crs.to_epsg() == 32631
         assert list(src.descriptions) == ["porosity", "facies"]
-        assert src.tags(2)["flag_meanings"] == "sand shale silt"
+        assert src.tags(2)["flag_meanings"] == "sand shale silt" and src.tags(2)["flag_values"] == "0 1 2"
+        assert src.units[0] == "1" and not src.units[1]  # porosity is a fraction; the facies codes have no unit
     back = read_geotiff(path)
     np.testing.assert_allclose(back.x, maps.x)
     np.testing.assert_allclose(back.y, maps.y)

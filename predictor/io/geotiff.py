@@ -1,7 +1,8 @@
 """GeoTIFF maps through rasterio: one float32 band per map variable, north-up, band names kept.
 
 Integer flag variables (facies codes, applicability) are written as floats with NaN where
-empty, like the rest; their meanings go into the band tags.
+empty, like the rest (a GeoTIFF holds one data type for all bands); their ``flag_values`` and
+``flag_meanings`` go into the band tags, units into each band's unit type.
 """
 
 from __future__ import annotations
@@ -43,9 +44,16 @@ def write_geotiff(maps: xr.Dataset, target: str | Path, crs: str | None = None, 
                     values = np.where(values == fill, np.nan, values)
                 dst.write(values[::-1], i)
                 dst.set_band_description(i, name)
-                meanings = maps[name].attrs.get("flag_meanings")
-                if meanings:
-                    dst.update_tags(i, flag_meanings=meanings)
+                attrs = maps[name].attrs
+                if attrs.get("units"):
+                    dst.set_band_unit(i, str(attrs["units"]))
+                if attrs.get("long_name"):
+                    dst.update_tags(i, long_name=str(attrs["long_name"]))
+                meanings = attrs.get("flag_meanings")
+                if meanings:  # codes 0..n-1, stored as floats like every band (one dtype per file)
+                    flag_values = attrs.get("flag_values", np.arange(len(meanings.split(" "))))
+                    dst.update_tags(i, flag_meanings=meanings,
+                                    flag_values=" ".join(str(int(v)) for v in np.atleast_1d(flag_values)))
     return Path(target)
 
 
