@@ -121,7 +121,8 @@ def build_parser() -> argparse.ArgumentParser:
     pr.add_argument("--crs", help="coordinate reference system of the maps, e.g. EPSG:32631 (default: the grid's)")
     pr.add_argument("--exceed", action="append", metavar="TARGET:CUTOFF",
                     help="also map the probability that a target exceeds a cutoff, in the target's units, from the "
-                         "calibrated predictive distribution, e.g. --exceed porosity:0.15 --exceed permeability:100 "
+                         "out-of-fold residual distribution around the map (a ranking more than calibrated odds: "
+                         "see the README), e.g. --exceed porosity:0.15 --exceed permeability:100 "
                          "(written as porosity_prob_above_0p15); repeatable")
     pr.add_argument("--overwrite", action="store_true", help="replace an existing maps file")
 
