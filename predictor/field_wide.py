@@ -38,6 +38,9 @@ MIN_WELLS_PER_BIN = 5
 MAX_BINS = 10
 N_BOOTSTRAP = 200
 RECOMMENDED = "debiased_seismic"
+METHOD_LABELS = {"naive": "raw wells", "declustered_cell": "declustered (cell)",
+                 "declustered_nearest_node": "declustered (nearest-node)",
+                 "debiased_seismic": "debiased with the seismic", "model_map": "mean of the model's map"}
 
 
 def secondary_bins(at_wells: np.ndarray, on_map: np.ndarray, weights: np.ndarray,
@@ -101,7 +104,7 @@ class FieldWide:
     interval: dict  # q10/q90 of the recommended estimate (bootstrap over wells)
     reason: str
     outside_share: float
-    distribution: dict  # recommended method -> weighted quantiles (regression) for the CDF plot
+    distribution: dict  # levels and weighted quantiles per method (regression), for the CDF plot
 
     def to_dict(self) -> dict:
         out = {**self.estimates[self.recommended], "interval": self.interval, "method": self.recommended,

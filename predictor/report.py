@@ -20,6 +20,7 @@ from .checks import check_data, write_check
 from .errors import InputError, PredictorWarning
 from .explain import KRIGING
 from .explanations import contribution_maps, explain_wells
+from .field_wide import METHOD_LABELS
 from .grid import read_seismic
 from .io.atomic import atomic_file
 from .predict import predict_maps
@@ -240,11 +241,6 @@ def _maps(maps, wells, card, fig):
                      f"{_fmt(inside[key], 4) if inside else 'n/a'} ({a.get('wells_inside')} wells); outside: "
                      f"{_fmt(outside[key], 4) if outside else 'n/a'} ({a.get('wells_outside')} wells).</p>")
     return _section("maps", "Maps between the wells", body)
-
-
-METHOD_LABELS = {"naive": "raw wells", "declustered_cell": "declustered (cell)",
-                 "declustered_nearest_node": "declustered (nearest-node)",
-                 "debiased_seismic": "debiased with the seismic", "model_map": "mean of the model's map"}
 
 
 def _report_cutoffs(card) -> dict:

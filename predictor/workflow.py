@@ -11,6 +11,7 @@ from pathlib import Path
 
 from .bundle import Bundle, load_bundle, save_bundle, sha256
 from .features import FeatureSpec
+from .field_wide import METHOD_LABELS
 from .grid import read_seismic
 from .io.atomic import check_target
 from .io.tables import read_wells
@@ -80,9 +81,6 @@ def leaderboard_lines(trained: TrainedModels) -> list[str]:
     return lines
 
 
-METHOD_WORDS = {"debiased_seismic": "debiased with the seismic", "model_map": "mean of the model's map"}
-
-
 def field_wide_lines(trained: TrainedModels) -> list[str]:
     """The recommended field-wide estimate per target, beside the raw wells' and the declustered one."""
     lines = []
@@ -94,10 +92,10 @@ def field_wide_lines(trained: TrainedModels) -> list[str]:
         if tm.task == "regression":
             iv = wide.interval
             lines.append(f"field-wide mean {name}: {est[wide.recommended]['mean']:.4g} (q10-q90 {iv['q10']:.4g}-"
-                         f"{iv['q90']:.4g}, {METHOD_WORDS[wide.recommended]}); raw wells "
+                         f"{iv['q90']:.4g}, {METHOD_LABELS[wide.recommended]}); raw wells "
                          f"{est['naive']['mean']:.4g}, declustered {est['declustered_nearest_node']['mean']:.4g}")
             continue
         shares = est[wide.recommended]["proportions"]
         parts = [f"{c} {v:.1%} (raw wells {est['naive']['proportions'][c]:.1%})" for c, v in shares.items()]
-        lines.append(f"field-wide {name} proportions ({METHOD_WORDS[wide.recommended]}): " + ", ".join(parts))
+        lines.append(f"field-wide {name} proportions ({METHOD_LABELS[wide.recommended]}): " + ", ".join(parts))
     return lines
