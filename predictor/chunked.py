@@ -3,11 +3,13 @@
 Each tile is read with enough surrounding nodes for the smoothing features (see
 :func:`predictor.features.halo_cells`), predicted with exactly the in-memory code
 (:func:`predictor.predict.predict_maps`), trimmed to its interior and written into its region
-of the output store, so tile edges never show and memory stays flat in the grid size.  Tiles
-run on local threads by default, or on a Dask cluster: ``workers=N`` starts a local one,
+of the output store by the thread or worker that predicted it, so tile edges never show, memory
+stays flat in the grid size and no map data funnels through the client.  Tiles run on local
+threads (all cores by default), or on a Dask cluster: ``workers=N`` starts a local one,
 ``scheduler=ADDRESS`` joins an existing dask.distributed scheduler.  Each worker loads the
-bundle once (LightGBM text and JSON from the bundle folder, which workers must be able to read)
-and predicts with one LightGBM thread per task, so LightGBM and Dask never oversubscribe cores.
+bundle once (LightGBM text and JSON from the bundle folder) and predicts with one thread per
+task, so LightGBM and Dask never oversubscribe cores; the workers must be able to read the
+bundle and the grid and write beside the output store (one shared file system).
 """
 
 from __future__ import annotations
@@ -76,11 +78,33 @@ def predict_tile(folder: str, grid_path: str, tile: tuple[int, int, int, int],
     part = grid.isel({ay: slice(ya, yb), ax: slice(xa, xb)}).load()
     part.attrs = dict(grid.attrs)
     interior = {ay: slice(y0 - ya, y0 - ya + (y1 - y0)), ax: slice(x0 - xa, x0 - xa + (x1 - x0))}
-    try:
-        inner = predict_maps(bundle, part, warn=False, interior=interior, exceed=exceed)  # warnings are not thread-safe:
+    try:  # no warnings from threads (not thread-safe); one thread per tile: tiles already run side by side
+        inner = predict_maps(bundle, part, warn=False, interior=interior, exceed=exceed, threads=1)
     except NoValidNodes:  # a tile in a hole of the survey: its region keeps the store's fill values
         return tile, None, False
     return tile, inner, inner.attrs["extrapolated_share"] > 0  # reported once, at the end
+
+
+def write_tile(folder: str, grid_path: str, tile: tuple[int, int, int, int], store: str,
+               z_domain: str | None = None, exceed: dict | None = None) -> tuple[tuple, bool, bool]:
+    """Predict one tile and write its interior into its own region of the Zarr ``store``, on the
+    thread or Dask worker that predicted it; only (tile, written, extrapolated) travels back, so
+    the client never holds map data.  Tiles match the store's chunks: writers never overlap."""
+    tile, part, outside = predict_tile(folder, grid_path, tile, z_domain, exceed)
+    if part is None:
+        return tile, False, False
+    grid = _open(grid_path, z_domain)
+    ay, ax = lateral_axes(grid)
+    part = part.drop_vars(list(part.coords))
+    part.attrs = {}
+    for var in part.data_vars:
+        part[var].attrs = {}
+    y0, y1, x0, x1 = tile
+    region = {ay: slice(y0, y1), ax: slice(x0, x1)}
+    if "z" in grid.dims:
+        region["z"] = slice(0, grid.sizes["z"])
+    part.to_zarr(store, region=region, zarr_format=2)
+    return tile, True, outside
 
 
 def _open(grid_path: str, z_domain: str | None):
@@ -142,11 +166,15 @@ def predict_to_zarr(bundle_dir, grid_path, out, tile: int | None = None, threads
     depth = grid.sizes.get("z", 1)
     tile = tile or default_tile(grid)
     need = (tile + 2 * hy) * (tile + 2 * hx) * depth * BYTES_PER_NODE
+    # tiles in flight at once on this machine: one per thread, or one per local Dask worker (a
+    # worker runs one task at a time); a remote cluster's workers are checked one tile each
+    in_flight = 1 if scheduler else (workers or threads or os.cpu_count() or 1)
     limit = memory_limit or _available_memory()
-    if limit and need * max(threads or 1, 1) > limit:
+    if limit and need * in_flight > limit:
         what = f"{tile} x {tile} traces of {depth} samples" if depth > 1 else f"{tile} nodes"
-        raise InputError(f"tiles of {what} (plus a halo of {hy} x {hx}) need about {need / 1e9:.1f} GB each, "
-                         f"more than the {limit / 1e9:.1f} GB available; use a smaller --tile")
+        raise InputError(f"{in_flight} tiles of {what} (plus a halo of {hy} x {hx}) in flight need about "
+                         f"{need * in_flight / 1e9:.1f} GB, more than the {limit / 1e9:.1f} GB available; use a "
+                         "smaller --tile" + (" or fewer --threads/--workers" if in_flight > 1 else ""))
     ny, nx = grid.sizes[ay], grid.sizes[ax]
     all_tiles = tiles(ny, nx, tile)
     with atomic_folder(out, overwrite=overwrite) as tmp:
@@ -157,19 +185,9 @@ def predict_to_zarr(bundle_dir, grid_path, out, tile: int | None = None, threads
             layout.attrs["affine"] = [float(v) for v in layout.attrs["affine"]]
         layout.to_zarr(tmp, compute=False, mode="w", zarr_format=2)
         extrapolated = 0
-        done = _run(folder, grid_path, all_tiles, threads, workers, scheduler, z_domain, exceed)
-        for (y0, y1, x0, x1), part, outside in progress(done, "tiles", total=len(all_tiles)):
+        done = _run(folder, grid_path, all_tiles, str(tmp), threads, workers, scheduler, z_domain, exceed)
+        for _, _, outside in progress(done, "tiles", total=len(all_tiles)):
             extrapolated += outside
-            if part is None:
-                continue
-            part = part.drop_vars(list(part.coords))
-            part.attrs = {}
-            for var in part.data_vars:
-                part[var].attrs = {}
-            region = {ay: slice(y0, y1), ax: slice(x0, x1)}
-            if depth > 1:
-                region["z"] = slice(0, depth)
-            part.to_zarr(tmp, region=region, zarr_format=2)
     if extrapolated:
         warnings.warn(f"{extrapolated} of {len(all_tiles)} tiles hold nodes with feature values outside the range "
                       "seen at the wells; predictions there are extrapolations", PredictorWarning, stacklevel=2)
@@ -186,8 +204,9 @@ def _layout(folder, grid_path, all_tiles, ny, nx, z_domain, exceed=None) -> xr.D
     raise InputError(f"{grid_path}: no node has every feature the model needs")
 
 
-def _run(folder, grid_path, all_tiles, threads, workers, scheduler, z_domain=None, exceed=None):
-    """Yield (tile, interior maps, extrapolated) as tiles finish, on local threads or a Dask cluster."""
+def _run(folder, grid_path, all_tiles, store, threads, workers, scheduler, z_domain=None, exceed=None):
+    """Predict and write every tile into ``store`` on local threads or a Dask cluster; yield
+    each tile's (tile, written, extrapolated) as it finishes."""
     if workers or scheduler:
         from dask.distributed import Client, LocalCluster, as_completed
 
@@ -196,8 +215,8 @@ def _run(folder, grid_path, all_tiles, threads, workers, scheduler, z_domain=Non
         client = Client(scheduler or cluster)
         try:
             n = len(all_tiles)
-            futures = client.map(predict_tile, [folder] * n, [grid_path] * n, all_tiles, [z_domain] * n,
-                                 [exceed] * n, pure=False)
+            futures = client.map(write_tile, [folder] * n, [grid_path] * n, all_tiles, [store] * n,
+                                 [z_domain] * n, [exceed] * n, pure=False)
             for future in as_completed(futures):
                 yield future.result()
         finally:
@@ -207,10 +226,10 @@ def _run(folder, grid_path, all_tiles, threads, workers, scheduler, z_domain=Non
         return
     n = threads or os.cpu_count() or 1
     with ThreadPoolExecutor(max_workers=n) as pool:
-        # a bounded window of tiles in flight keeps memory flat however many tiles there are
+        # a bounded queue of tiles keeps the bookkeeping small however many tiles there are
         pending = deque()
         for t in all_tiles:
-            pending.append(pool.submit(predict_tile, folder, grid_path, t, z_domain, exceed))
+            pending.append(pool.submit(write_tile, folder, grid_path, t, store, z_domain, exceed))
             if len(pending) >= 2 * n:
                 yield pending.popleft().result()
         while pending:
@@ -248,5 +267,10 @@ def _available_memory() -> float | None:
                 if line.startswith("MemAvailable:"):
                     return float(line.split()[1]) * 1024
     except OSError:
+        pass
+    try:  # off Linux: psutil, which dask.distributed brings
+        import psutil
+
+        return float(psutil.virtual_memory().available)
+    except ImportError:
         return None
-    return None

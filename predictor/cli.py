@@ -47,6 +47,7 @@ def _monotone(text: str) -> tuple[str, int]:
 def build_parser() -> argparse.ArgumentParser:
     from .cv_design import DESIGNS
     from .field_wide import MAP_RULES
+    from .kriging import GLOBAL_WELLS, NEIGHBOURS
     from .training import TrainOptions
 
     parser = argparse.ArgumentParser(prog="predictor", description=__doc__.splitlines()[0])
@@ -100,11 +101,15 @@ def build_parser() -> argparse.ArgumentParser:
                     help="how the facies map draws one class per node from the probabilities: balanced "
                     "(largest probability relative to the class's field-wide share; default, see the README), "
                     "proportions (class thresholds that reproduce the field-wide proportions) or most-probable")
+    tr.add_argument("--kriging-neighbours", type=int, metavar="N",
+                    help=f"wells each map tile is kriged from (default: every well up to {GLOBAL_WELLS} wells, above "
+                    f"that the nearest {NEIGHBOURS})")
     tr.add_argument("--candidate", action="append",
                     help="only these candidates (repeatable, e.g. --candidate lightgbm --candidate linear)")
     tr.add_argument("--drop-outside", action="store_true", help="leave out wells off the grid, with a warning")
     tr.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
-    tr.add_argument("--threads", type=int, default=1, help="LightGBM threads (default 1; results do not depend on it)")
+    tr.add_argument("--threads", type=int, help="LightGBM threads, used above a few thousand training rows where they "
+                    "pay off (default: all cores; results do not depend on it)")
 
     pr = sub.add_parser("predict", help="map every target of a bundle on a grid (CSV or NetCDF by extension)")
     pr.add_argument("bundle", help="bundle folder written by `predictor train`")
@@ -115,7 +120,8 @@ def build_parser() -> argparse.ArgumentParser:
                     ".sgy (one SEG-Y file per output variable)")
     pr.add_argument("--tile", type=int, help="with .zarr: tile side in nodes or traces (default 512 for maps; "
                     "for volumes about a million samples per tile)")
-    pr.add_argument("--threads", type=int, help="with .zarr: local threads (default: all cores)")
+    pr.add_argument("--threads", type=int, help="threads predicting chunks of nodes (or tiles, with .zarr) side "
+                    "by side (default: all cores; the maps do not depend on it)")
     pr.add_argument("--workers", type=int, help="with .zarr: start a local Dask cluster of this many workers")
     pr.add_argument("--scheduler", help="with .zarr: address of an existing dask.distributed scheduler")
     pr.add_argument("--crs", help="coordinate reference system of the maps, e.g. EPSG:32631 (default: the grid's)")
@@ -181,6 +187,7 @@ def _cmd_train(args) -> int:
                                   monotone=dict(args.monotone) if args.monotone else None, well_ties=args.well_ties,
                                   interval_spread=args.interval_spread, drop_outside=args.drop_outside,
                                   seed=args.seed, n_threads=args.threads, candidates=args.candidate,
+                                  kriging_neighbours=args.kriging_neighbours,
                                   porosity_percent=args.porosity_percent, x=args.x_column, y=args.y_column,
                                   z=args.z_column, z_domain=args.z_domain, segy_name=args.segy_name,
                                   vertical_radii=args.vertical_radius, z_trend=args.z_trend,
@@ -208,7 +215,7 @@ def _cmd_predict(args) -> int:
                                z_domain=args.z_domain, segy_name=args.segy_name, exceed=exceed, crs=args.crs)
     else:
         path = predict_files(args.bundle, args.grid, args.out, overwrite=args.overwrite, crs=args.crs,
-                             z_domain=args.z_domain, segy_name=args.segy_name, exceed=exceed)
+                             z_domain=args.z_domain, segy_name=args.segy_name, exceed=exceed, threads=args.threads)
     print(f"maps: {path}")
     return 0
 

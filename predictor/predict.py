@@ -9,7 +9,9 @@ attribute is missing stay empty.
 
 from __future__ import annotations
 
+import os
 import warnings
+from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 
 import numpy as np
@@ -32,12 +34,6 @@ RULE_LABELS = {"most-probable": "most probable class",
 
 class NoValidNodes(InputError):
     """No node of the grid (or of a tile of it) has every feature the model needs."""
-
-
-def _predict_chunks(model, X: pd.DataFrame, xy: np.ndarray, chunk_rows: int) -> np.ndarray:
-    parts = [model.predict(X.iloc[s:s + chunk_rows].reset_index(drop=True), xy[s:s + chunk_rows])
-             for s in range(0, len(X), chunk_rows)]
-    return np.concatenate(parts) if parts else np.empty(0)
 
 
 def local_spread(spread, model, X: pd.DataFrame, xy: np.ndarray) -> np.ndarray:
@@ -94,11 +90,13 @@ def check_exceedance(card: dict, exceed: dict[str, list] | None) -> None:
 
 def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int = CHUNK_ROWS,
                  warn: bool = True, interior: dict | None = None,
-                 exceed: dict[str, list] | None = None) -> xr.Dataset:
+                 exceed: dict[str, list] | None = None, threads: int | None = None) -> xr.Dataset:
     """Predict every target of the bundle on every valid node of ``grid``.
 
     ``exceed`` (target -> cutoffs, in the target's units) adds P(target > cutoff) per node,
-    from the matched CV's out-of-fold residuals around the map's prediction.
+    from the matched CV's out-of-fold residuals around the map's prediction.  Chunks of
+    ``chunk_rows`` nodes run on ``threads`` threads (default: every core); the values do not
+    depend on the thread count.
 
     The share of nodes whose features lie outside the range seen at the wells is kept in
     ``attrs["extrapolated_share"]`` and, with ``warn``, reported as a warning.  ``interior``
@@ -139,54 +137,54 @@ def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int 
         full[valid] = values
         return full.reshape(shape)
 
+    def codes_on_grid(values, dtype) -> np.ndarray:
+        full = np.full(valid.size, -1, dtype=dtype)
+        full[valid] = values
+        return full.reshape(shape)
+
+    chunks = [slice(s, s + chunk_rows) for s in range(0, len(X), chunk_rows)]
+    work = lambda rows: _node_values(bundle, X.iloc[rows].reset_index(drop=True), xy[rows], exceed)  # noqa: E731
+    n_threads = max(1, threads or os.cpu_count() or 1)
+    if n_threads > 1 and len(chunks) > 1:  # the models release the GIL: chunks run side by side
+        with ThreadPoolExecutor(max_workers=n_threads) as pool:
+            parts = list(pool.map(work, chunks))
+    else:
+        parts = [work(rows) for rows in chunks]
+    values = {key: np.concatenate([p[key] for p in parts]) for key in parts[0]}
+
     out = xr.Dataset(coords={c: grid.coords[c] for c in grid.coords if set(grid.coords[c].dims) <= set(dims)})
     for target, info in card["targets"].items():
-        model = bundle.models[target]
-        raw = _predict_chunks(model, X, xy, chunk_rows)
-        aoa = bundle.applicability.get(target)
         applicable = None
-        if aoa is not None:
-            flags = np.full(valid.size, -1, dtype=np.int8)
-            flags[valid] = aoa.inside(X).astype(np.int8)
-            applicable = xr.DataArray(flags.reshape(shape), dims=dims, attrs={
+        if f"{target}_applicable" in values:
+            applicable = xr.DataArray(codes_on_grid(values[f"{target}_applicable"], np.int8), dims=dims, attrs={
                 "long_name": f"inside the area of applicability of the {target} model (1) or not (0)",
                 "flag_values": np.array([0, 1], dtype=np.int8), "flag_meanings": "outside inside",
                 "_FillValue": np.int8(-1),
                 "comment": "Meyer & Pebesma (2021) dissimilarity index against the training wells"})
         if info["task"] == "classification":
             classes = info["classes"]
-            rule = info.get("facies_map")  # the stated rule draws one class per node
-            factors = np.array([rule["rule_factors"][c] for c in classes]) if rule else np.ones(len(classes))
-            codes = np.full(valid.size, -1, dtype=np.int16)
-            codes[valid] = np.argmax(raw * factors, axis=1)
-            out[target] = (dims, codes.reshape(shape))
+            rule = info.get("facies_map")
+            out[target] = (dims, codes_on_grid(values[target], np.int16))
             out[target].attrs.update(flag_values=np.arange(len(classes), dtype=np.int16),
                                      flag_meanings=" ".join(c.replace(" ", "_") for c in classes),
                                      _FillValue=np.int16(-1),
                                      long_name=f"{target} ({RULE_LABELS[rule['rule'] if rule else 'most-probable']})")
-            for i, cls in enumerate(classes):
-                out[f"{target}_prob_{cls}"] = (dims, on_grid(raw[:, i]))
+            for cls in classes:
+                out[f"{target}_prob_{cls}"] = (dims, on_grid(values[f"{target}_prob_{cls}"]))
                 out[f"{target}_prob_{cls}"].attrs.update(units="1", long_name=f"probability of {target} {cls}")
             if applicable is not None:
                 out[f"{target}_applicable"] = applicable
             continue
-        cal = bundle.calibrations[target]
-        spread = local_spread(bundle.spreads[target], model, X, xy) if cal.scaled else None
-        q10, q90 = cal.apply(raw, spread)
-        raw = cal.clip(raw)
         log = info.get("transform") == "log10"
-        back = (lambda v: 10.0**v) if log else (lambda v: v)
         # UDUNITS spells mD "millidarcy" ("mD" is not a unit there; "md" would be millidays)
         units = "millidarcy" if target == "permeability" else ("1" if target == "porosity" else "")
         point = "10 to the mean of log10 (about the median)" if log else "mean (least-squares prediction)"
-        for suffix, values, label in (("", raw, point), ("_q10", q10, "10th percentile (q10)"),
-                                      ("_q90", q90, "90th percentile (q90)")):
-            out[f"{target}{suffix}"] = (dims, on_grid(back(values)))
+        for suffix, label in (("", point), ("_q10", "10th percentile (q10)"), ("_q90", "90th percentile (q90)")):
+            out[f"{target}{suffix}"] = (dims, on_grid(values[f"{target}{suffix}"]))
             out[f"{target}{suffix}"].attrs.update(units=units, long_name=f"{target} {label}" + (" in mD" if log else ""))
         for cutoff in (exceed or {}).get(target, []):
-            model_cutoff = np.log10(cutoff) if log else cutoff
             name = exceedance_name(target, cutoff)
-            out[name] = (dims, on_grid(cal.exceedance(raw, model_cutoff, spread)))
+            out[name] = (dims, on_grid(values[name]))
             out[name].attrs.update(units="1", long_name=f"probability that {target} exceeds {cutoff:g}{' mD' if log else ''}",
                                    cutoff=float(cutoff), comment="from the out-of-fold residuals of the matched CV "
                                    "around the map's prediction; in experiments/field_wide.py mid-range values ran about 0.1 above "
@@ -202,6 +200,37 @@ def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int 
         if key in grid.attrs:
             out.attrs[key] = grid.attrs[key]
     return out
+
+
+def _node_values(bundle: Bundle, X: pd.DataFrame, xy: np.ndarray, exceed: dict | None) -> dict[str, np.ndarray]:
+    """Every output variable's values at these rows of valid nodes, by variable name."""
+    values: dict[str, np.ndarray] = {}
+    for target, info in bundle.card["targets"].items():
+        model = bundle.models[target]
+        raw = model.predict(X, xy)
+        aoa = bundle.applicability.get(target)
+        if aoa is not None:
+            values[f"{target}_applicable"] = aoa.inside(X).astype(np.int8)
+        if info["task"] == "classification":
+            rule = info.get("facies_map")  # the stated rule draws one class per node
+            classes = info["classes"]
+            factors = np.array([rule["rule_factors"][c] for c in classes]) if rule else np.ones(len(classes))
+            values[target] = np.argmax(raw * factors, axis=1).astype(np.int16)
+            for i, cls in enumerate(classes):
+                values[f"{target}_prob_{cls}"] = raw[:, i]
+            continue
+        cal = bundle.calibrations[target]
+        spread = local_spread(bundle.spreads[target], model, X, xy) if cal.scaled else None
+        q10, q90 = cal.apply(raw, spread)
+        raw = cal.clip(raw)
+        log = info.get("transform") == "log10"
+        back = (lambda v: 10.0**v) if log else (lambda v: v)
+        for suffix, v in (("", raw), ("_q10", q10), ("_q90", q90)):
+            values[f"{target}{suffix}"] = back(v)
+        for cutoff in (exceed or {}).get(target, []):
+            model_cutoff = np.log10(cutoff) if log else cutoff
+            values[exceedance_name(target, cutoff)] = cal.exceedance(raw, model_cutoff, spread)
+    return values
 
 
 def check_space(card: dict, grid: xr.Dataset) -> None:

@@ -28,7 +28,7 @@ from .cv_design import (
     unit_heads,
 )
 from .declustering import declustered_statistics
-from .errors import InputError, ModelError, PredictorWarning
+from .errors import InputError, ModelError, PredictorWarning, list_rows
 from .explain import (
     KRIGING,
     Applicability,
@@ -55,6 +55,7 @@ from .field_wide import (
 )
 from .grid import spacing
 from .intervals import PHYSICAL_BOUNDS, IntervalCalibration, SpreadModel, calibrate, effective_size
+from .kriging import GLOBAL_WELLS, NEIGHBOURS
 from .models import (
     Blend,
     FaciesMixture,
@@ -100,9 +101,10 @@ class TrainOptions:
     sample_method: Literal["bilinear", "nearest"] = "bilinear"
     drop_outside: bool = False
     seed: int = 0
-    n_threads: int = 1
+    n_threads: int | None = None  # LightGBM threads; None: every core (used only on large tables, see models)
     candidates: list[str] | None = None  # restrict the leaderboard to these names (baselines included)
     facies_map: MapRule = "balanced"  # how the facies map picks one class per node (see field_wide)
+    kriging_neighbours: int | None = None  # wells per kriging neighbourhood; None: all up to kriging.GLOBAL_WELLS
 
     def to_dict(self) -> dict:
         out = asdict(self)
@@ -119,6 +121,9 @@ class TrainOptions:
                 raise InputError(f"{key} = {getattr(self, key)!r} is not known; choose one of {', '.join(values)}")
         if not (isinstance(self.n_splits, int) and self.n_splits >= 2):
             raise InputError(f"the number of CV folds (--folds, n_splits) must be an integer of 2 or more, got {self.n_splits!r}")
+        k = self.kriging_neighbours
+        if k is not None and not (isinstance(k, int) and k >= 3):
+            raise InputError(f"--kriging-neighbours {k!r}: a kriging neighbourhood needs 3 wells or more")
 
 
 @dataclass
@@ -220,10 +225,27 @@ def _check_inputs(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) 
         raise InputError(f"{source}: all {len(wells)} rows sit at one position (x {spots.x.iloc[0]:g}, y "
                          f"{spots.y.iloc[0]:g}); spatial CV and mapping need wells at several positions: check the "
                          "coordinate columns (--x-column, --y-column)")
+    if not is_volume(grid):
+        _check_well_positions(wells, source, options)
     errors = [f for f in physical_findings(wells, source) + grid_findings(grid) if f.severity == "error"]
     if errors:
         raise InputError(errors[0].message + ("" if len(errors) == 1 else f" (and {len(errors) - 1} more problems; "
                                               "run `predictor qc` for the full list)"))
+
+
+def _check_well_positions(wells: pd.DataFrame, source: str, options: TrainOptions) -> None:
+    """A map's wells at distinct positions (two wells at one point make kriging's system singular),
+    and a kriging neighbourhood no larger than the wells."""
+    same = wells[wells.duplicated(["x", "y"], keep=False)]
+    if len(same):
+        ids = same["well_id"].astype(str) if "well_id" in same else same.index.astype(str)
+        groups = same.assign(_id=ids.to_numpy()).groupby(["x", "y"])["_id"].apply(lambda s: "=".join(s))
+        raise InputError(f"{source}: wells at identical coordinates: {list_rows(list(groups))}; kriging cannot "
+                         "tell them apart: merge each group into one row (average its values) or remove one")
+    n = options.kriging_neighbours
+    if n is not None and n > len(wells):
+        raise InputError(f"--kriging-neighbours {n}: there are only {len(wells)} wells; give 3 to {len(wells)}, or "
+                         f"leave it out (every well up to {GLOBAL_WELLS} wells, then the nearest {NEIGHBOURS})")
 
 
 def _chosen(cell, nearest: np.ndarray, method: str) -> tuple[np.ndarray, dict]:
@@ -596,7 +618,7 @@ def _target_table(prep: _Prepared, target: str, options: TrainOptions) -> _Targe
     data = FitData(prep.X.iloc[idx].reset_index(drop=True), y, prep.weights[idx], prep.xy[idx],
                    np.zeros(idx.size, int), classes, None if prep.facies_codes is None else prep.facies_codes[idx],
                    prep.facies_classes, options.seed, options.n_threads, units=head_of, map_distances=g_map,
-                   n_splits=options.n_splits)
+                   n_splits=options.n_splits, kriging_neighbours=options.kriging_neighbours)
     return _TargetTable(data, y, classes, transform, units, heads, head_of, baseline_y, notes, idx)
 
 

@@ -45,8 +45,27 @@ class VariogramModel:
         return np.where(h > 0, self.nugget + self.sill * _shape(self.kind, h, self.range), 0.0)
 
     def covariance(self, h) -> np.ndarray:
-        """C(h) = total sill - gamma(h); C(0) includes the nugget."""
-        return (self.nugget + self.sill) - self(h)
+        """C(h) = total sill - gamma(h); C(0) includes the nugget.
+
+        Evaluated in place (a map asks for nodes x wells of them): sill * (1 - shape) off the
+        wells, plus the nugget at distance 0.
+        """
+        h = np.asarray(h, dtype=float)
+        c = h / self.range
+        if self.kind == "spherical":  # 1 - 1.5 r + 0.5 r^3 for r < 1, else 0
+            np.minimum(c, 1.0, out=c)
+            c *= c * c * 0.5 - 1.5
+            c += 1.0
+        elif self.kind in ("exponential", "gaussian"):
+            if self.kind == "gaussian":
+                c *= c
+            c *= -3.0
+            np.exp(c, out=c)
+        else:
+            _shape(self.kind, h, self.range)  # raises for an unknown kind
+        c *= self.sill
+        c[h == 0] += self.nugget
+        return c
 
     def to_dict(self) -> dict:
         return asdict(self)

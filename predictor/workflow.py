@@ -42,11 +42,11 @@ def train_files(wells_path, grid_path, out, targets, attributes=None, context_ra
 
 
 def predict_files(bundle, grid_path, out, overwrite=False, crs: str | None = None, z_domain: str | None = None,
-                  segy_name: str | None = None, exceed: dict | None = None) -> Path:
+                  segy_name: str | None = None, exceed: dict | None = None, threads: int | None = None) -> Path:
     """Predict the bundle's targets on a grid file and write the maps (CSV, NetCDF or GeoTIFF).
 
     ``crs`` (e.g. "EPSG:32631") labels NetCDF and GeoTIFF outputs; without it a CRS carried by
-    the input grid is kept.
+    the input grid is kept.  ``threads`` (default: every core) predict chunks of nodes side by side.
     """
     check_target(out, overwrite)
     if not isinstance(bundle, Bundle):
@@ -54,7 +54,7 @@ def predict_files(bundle, grid_path, out, overwrite=False, crs: str | None = Non
     check_exceedance(bundle.card, exceed)  # before the long work, not after it
     grid = read_seismic(grid_path, z_domain=z_domain, name=segy_name)
     check_format(out, is_volume(grid))  # before the long work, not after it
-    maps = predict_maps(bundle, grid, exceed=exceed)
+    maps = predict_maps(bundle, grid, exceed=exceed, threads=threads)
     crs = crs or grid.attrs.get("crs_wkt")
     if crs and Path(out).suffix.lower() == ".nc":
         from .io.geotiff import crs_to_wkt

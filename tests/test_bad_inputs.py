@@ -109,6 +109,12 @@ TRAIN_CASES = {
     "truncated NetCDF": (lambda t: tr(str(DEMO / "wells.csv"), _bytes(t, (DEMO / "seismic.nc").read_bytes()[:500],
                                                                        "g.nc")), "not a readable NetCDF"),
     "bad fold count": (lambda t: tr(str(DEMO / "wells.csv"), GRID, "--folds", "1"), "n_splits"),
+    "two wells at one position": (lambda t: tr(_wells_with(t, lambda f: f.assign(
+        x=[f.x[1]] + list(f.x[1:]), y=[f.y[1]] + list(f.y[1:])))), "identical coordinates"),
+    "kriging neighbourhood below 3": (lambda t: tr(str(DEMO / "wells.csv"), GRID, "--kriging-neighbours", "2"),
+                                      "3 wells or more"),
+    "kriging neighbourhood above the wells": (lambda t: tr(str(DEMO / "wells.csv"), GRID, "--kriging-neighbours",
+                                                           "100000"), "there are only"),
 }
 
 

@@ -101,3 +101,46 @@ def test_netcdf_and_zarr_carry_cf_units_crs_and_flags_read_by_independent_reader
     assert store["crs"].attrs["grid_mapping_name"] == "transverse_mercator"
     assert store["permeability"].attrs["units"] == "millidarcy"
     assert store["x"].attrs["standard_name"] == "projection_x_coordinate" and store["x"].attrs["units"] == "m"
+
+
+def _wider_grid(path, times):
+    """The demo map mirrored ``times`` x ``times`` on the same spacing: a larger map of the same kind."""
+    from predictor.io.netcdf import write_netcdf
+
+    grid = read_grid(GRID_NC)
+    values = grid.impedance.to_numpy()
+    for axis in (0, 1):
+        values = np.concatenate([values, np.flip(values, axis)] * (times // 2) or [values], axis=axis)
+    ny, nx = values.shape
+    x, y = grid.x.to_numpy(), grid.y.to_numpy()
+    wide = xr.Dataset({"impedance": (("y", "x"), values)},
+                      coords={"x": x[0] + (x[1] - x[0]) * np.arange(nx), "y": y[0] + (y[1] - y[0]) * np.arange(ny)})
+    return write_netcdf(wide, path)
+
+
+def test_dask_workers_write_their_own_tiles_and_the_client_stays_flat(bundle, tmp_path):
+    import tracemalloc
+
+    TILE = 240  # noqa: N806
+    from dask.distributed import LocalCluster
+
+    from predictor.chunked import predict_to_zarr
+
+    small, large = _wider_grid(tmp_path / "small.nc", 1), _wider_grid(tmp_path / "large.nc", 4)
+    peaks = {}
+    with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None) as cluster:
+        for name, grid in (("small", small), ("large", large)):
+            tracemalloc.start()
+            with pytest.warns(PredictorWarning):
+                predict_to_zarr(bundle, grid, tmp_path / f"{name}.zarr", tile=TILE,
+                                scheduler=cluster.scheduler_address)
+            peaks[name] = tracemalloc.get_traced_memory()[1]
+            tracemalloc.stop()
+    maps = xr.open_zarr(tmp_path / "large.zarr")
+    tile_bytes = sum(maps[v].nbytes for v in maps.data_vars) * TILE**2 / (maps.sizes["x"] * maps.sizes["y"])
+    assert maps.sizes["x"] == 4 * read_grid(GRID_NC).sizes["x"]
+    assert np.isfinite(maps.porosity.to_numpy()).mean() > 0.9  # the workers filled the store
+    # 16 times the nodes: the client's peak Python memory stays about the same, and below what one
+    # tile's maps would take if they came back to it (they did before workers wrote their own)
+    assert peaks["large"] < 1.5 * peaks["small"] + 1e6, peaks
+    assert peaks["large"] < 0.5 * tile_bytes, (peaks, tile_bytes)

@@ -150,3 +150,67 @@ def test_fit_restarts_escape_a_local_minimum_and_flag_pure_nugget():
     assert misfit < 1e-4 and not best.pure_nugget
     flat = Experimental(lags, 1.0 + 0.01 * np.sin(lags), np.full(15, 100))
     assert fit_variogram(flat).pure_nugget
+
+
+def _primal(pts, values, model, q):
+    """Ordinary kriging as the textbook writes it: one system per query point's covariances
+    (Isaaks & Srivastava 1989, ch. 12; here all right-hand sides at once)."""
+    n = len(values)
+    lhs = np.ones((n + 1, n + 1))
+    lhs[:n, :n] = model.covariance(cdist(pts, pts)) + np.eye(n) * 1e-10 * (model.nugget + model.sill)
+    lhs[n, n] = 0.0
+    rhs = np.ones((n + 1, len(q)))
+    rhs[:n] = model.covariance(cdist(pts, q))
+    sol = np.linalg.solve(lhs, rhs)
+    return sol[:n].T @ values, model.nugget + model.sill - np.sum(sol[:n] * rhs[:n], axis=0) - sol[n]
+
+
+@pytest.mark.parametrize("kind", ["spherical", "exponential", "gaussian"])
+def test_dual_form_equals_the_primal_solve(kind):
+    pts, values = _wells(seed=11, n=80)
+    model = VariogramModel(kind, 0.05, 0.8, 900.0)
+    q = np.random.default_rng(12).uniform(0, 2000, (3000, 2))
+    ok = OrdinaryKriging(model).fit(pts[:, 0], pts[:, 1], values)
+    est, var = ok.predict(q[:, 0], q[:, 1], return_variance=True)
+    ref_est, ref_var = _primal(pts, values, model, q)
+    np.testing.assert_allclose(est, ref_est, atol=1e-8)
+    np.testing.assert_allclose(var, np.maximum(ref_var, 0), atol=1e-8)
+    np.testing.assert_array_equal(ok.predict(q[:, 0], q[:, 1]), est)  # the variance is optional, not a change
+
+
+def test_moving_neighbourhood_holding_every_well_is_the_global_estimate():
+    pts, values = _wells(seed=13, n=70)
+    model = VariogramModel("spherical", 0.05, 0.8, 700.0)
+    q = np.random.default_rng(14).uniform(-200, 2200, (5000, 2))
+    glob = OrdinaryKriging(model).fit(pts[:, 0], pts[:, 1], values)
+    every = OrdinaryKriging(model, neighbours=70).fit(pts[:, 0], pts[:, 1], values)
+    assert every.local_ and len(every.predict(q[:, 0], q[:, 1])) == 5000 and len(every._tiles) > 4
+    for a, b in zip(glob.predict(q[:, 0], q[:, 1], True), every.predict(q[:, 0], q[:, 1], True), strict=True):
+        np.testing.assert_allclose(b, a, atol=1e-8)
+    # a smaller neighbourhood still honours the wells (each well is in its own tile's neighbourhood)
+    near = OrdinaryKriging(VariogramModel("spherical", 0.0, 0.8, 700.0), neighbours=25).fit(pts[:, 0], pts[:, 1],
+                                                                                             values)
+    np.testing.assert_allclose(near.predict(pts[:, 0], pts[:, 1]), values, atol=1e-6)
+    back = OrdinaryKriging.from_dict(near.to_dict())
+    np.testing.assert_array_equal(back.predict(q[:, 0], q[:, 1]), near.predict(q[:, 0], q[:, 1]))
+
+
+def test_many_wells_switch_to_a_moving_neighbourhood(monkeypatch):
+    import predictor.kriging as kriging
+
+    monkeypatch.setattr(kriging, "GLOBAL_WELLS", 50)
+    pts, values = _wells(seed=15, n=60)
+    ok = OrdinaryKriging().fit(pts[:, 0], pts[:, 1], values)
+    assert ok.local_ and ok.neighbours_ == min(kriging.NEIGHBOURS, 60)
+    assert not OrdinaryKriging().fit(pts[:50, 0], pts[:50, 1], values[:50]).local_
+
+
+def test_wells_at_one_point_are_named_not_solved():
+    from predictor.errors import ModelError
+
+    pts, values = _wells(seed=16, n=20)
+    pts[7] = pts[3]
+    with pytest.raises(ModelError, match="wells 3 and 7"):
+        OrdinaryKriging().fit(pts[:, 0], pts[:, 1], values)
+    with pytest.raises(ModelError, match="3 or more"):
+        OrdinaryKriging(neighbours=2).fit(pts[:3, 0], pts[:3, 1], values[:3])
