@@ -2,7 +2,8 @@
 
 Each tile is read with enough surrounding nodes for the smoothing features (see
 :func:`predictor.features.halo_cells`), predicted with exactly the in-memory code
-(:func:`predictor.predict.predict_maps`), trimmed to its interior and written into its region
+(:func:`predictor.predict.predict_maps`; the same values, to rounding where a long smoothing
+kernel runs by FFT), trimmed to its interior and written into its region
 of the output store by the thread or worker that predicted it, so tile edges never show, memory
 stays flat in the grid size and no map data funnels through the client.  Tiles run on local
 threads (all cores by default), or on a Dask cluster: ``workers=N`` starts a local one,

@@ -11,7 +11,8 @@ from dataclasses import asdict, dataclass, field
 import numpy as np
 import pandas as pd
 import xarray as xr
-from scipy.ndimage import gaussian_filter
+from scipy.ndimage import gaussian_filter1d
+from scipy.signal import oaconvolve
 
 from .errors import InputError
 from .grid import sample_at, spacing
@@ -61,12 +62,42 @@ class FeatureSpec:
         return cls(**data)
 
 
+TRUNCATE = 4.0  # kernel half-width in standard deviations (scipy.ndimage's default)
+FFT_TAPS = 129  # longer kernels run by FFT: the same sums to rounding, at a cost independent of the radius
+
+
+def gaussian(values: np.ndarray, sigma_cells) -> np.ndarray:
+    """Separable Gaussian smoothing, edges extended by their nearest value.
+
+    The kernel is scipy.ndimage.gaussian_filter1d's (truncated at ``TRUNCATE`` sd); short
+    kernels run through it, long ones (a context radius of many nodes) as an FFT convolution
+    of the edge-padded array, which agrees with it to rounding (tests/test_models.py).
+    """
+    out = np.asarray(values, dtype=float)
+    for axis, sigma in enumerate(sigma_cells):
+        if sigma <= 1e-15:  # not smoothed along this axis (as scipy.ndimage.gaussian_filter)
+            continue
+        radius = int(TRUNCATE * sigma + 0.5)
+        if 2 * radius + 1 <= FFT_TAPS:
+            out = gaussian_filter1d(out, sigma, axis=axis, mode="nearest", truncate=TRUNCATE)
+            continue
+        taps = np.exp(-0.5 * (np.arange(-radius, radius + 1) / sigma) ** 2)
+        shape = [1] * out.ndim
+        shape[axis] = taps.size
+        pad = [(0, 0)] * out.ndim
+        pad[axis] = (radius, radius)
+        out = oaconvolve(np.pad(out, pad, mode="edge"), (taps / taps.sum()).reshape(shape), mode="valid",
+                         axes=axis)
+    return out
+
+
 def _smooth(values: np.ndarray, sigma_cells) -> np.ndarray:
     """Gaussian smoothing that ignores NaN nodes (normalised convolution)."""
     valid = np.isfinite(values)
-    filled = np.where(valid, values, 0.0)
-    num = gaussian_filter(filled, sigma_cells, mode="nearest")
-    den = gaussian_filter(valid.astype(float), sigma_cells, mode="nearest")
+    if valid.all():  # the weights sum to one: no normalisation needed
+        return gaussian(values, sigma_cells)
+    num = gaussian(np.where(valid, values, 0.0), sigma_cells)
+    den = gaussian(valid.astype(float), sigma_cells)
     with np.errstate(invalid="ignore", divide="ignore"):
         out = num / den
     return np.where(valid, out, np.nan)
