@@ -13,7 +13,6 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
-from . import plots
 from .declustering import (
     Declustering,
     cell_declustering,
@@ -98,6 +97,8 @@ def check_data(wells: pd.DataFrame, grid: xr.Dataset, tolerance: float = 1.0) ->
 
 def write_check(check: DataCheck, json_path: str | Path | None = None, figures: str | Path | None = None) -> list[Path]:
     """Write the JSON record and the QC figures; returns the paths written."""
+    from . import plots  # matplotlib loads when a figure is drawn, not on import
+
     written = []
     if json_path:
         written.append(write_json(check.to_dict(), json_path))

@@ -259,13 +259,28 @@ def main(argv: list[str] | None = None) -> int:
     from .progress import set_quiet
 
     set_quiet(args.quiet)
-    warnings.simplefilter("always", PredictorWarning)
-    warnings.showwarning = _show_warning
-    sys.unraisablehook = _quiet_unraisable
-    try:  # on SIGINT/SIGTERM: stop, clean up half-written outputs, commit nothing more
-        previous = {s: signal.signal(s, _stop) for s in (signal.SIGINT, signal.SIGTERM)}
-    except ValueError:  # not the main thread: leave signals alone
-        previous = {}
+    # warning display, the unraisable hook, signal handlers and the stop flag are this call's
+    # alone: a notebook that calls main() finds them as they were afterwards
+    with warnings.catch_warnings():  # restores filters and showwarning on the way out
+        warnings.simplefilter("always", PredictorWarning)
+        warnings.showwarning = _show_warning
+        hook, sys.unraisablehook = sys.unraisablehook, _quiet_unraisable
+        try:  # on SIGINT/SIGTERM: stop, clean up half-written outputs, commit nothing more
+            previous = {s: signal.signal(s, _stop) for s in (signal.SIGINT, signal.SIGTERM)}
+        except ValueError:  # not the main thread: leave signals alone
+            previous = {}
+        try:
+            return _run(args)
+        finally:
+            for sig, handler in previous.items():
+                signal.signal(sig, handler)
+            sys.unraisablehook = hook
+            from .io.atomic import clear_interrupt
+
+            clear_interrupt()
+
+
+def _run(args) -> int:
     try:
         return COMMANDS[args.command](args)
     except PredictorError as err:
@@ -283,16 +298,13 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("predictor: interrupted; no partial outputs were kept", file=sys.stderr)
         return 130
-    finally:
-        for sig, handler in previous.items():
-            signal.signal(sig, handler)
 
 
-def _quiet_unraisable(unraisable, default=sys.unraisablehook):
+def _quiet_unraisable(unraisable):
     # a stop signal that lands in library clean-up code is reported as "Exception ignored";
     # the stop is still honoured (nothing more is committed), so say nothing about it
     if not issubclass(unraisable.exc_type, KeyboardInterrupt):
-        default(unraisable)
+        sys.__unraisablehook__(unraisable)
 
 
 def _stop(signum, frame):

@@ -13,7 +13,6 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
-from . import plots
 from .checks import check_data, write_check
 from .errors import PredictorWarning
 from .explanations import explain_bundle
@@ -41,6 +40,8 @@ def demo_inputs(folder: Path) -> dict[str, Path]:
 
 def run_demo(out: Path, overwrite: bool = False) -> list[str]:
     """Run every step on the demo field; returns the lines to print."""
+    from . import plots  # matplotlib loads when a figure is drawn, not on import
+
     lines = []
     with atomic_folder(out, overwrite=overwrite) as tmp:
         figures = tmp / "figures"

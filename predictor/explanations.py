@@ -6,7 +6,6 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
-from . import plots
 from .bundle import Bundle, load_bundle
 from .explain import KRIGING, contributions, importance
 from .features import build_features, feature_matrix
@@ -73,6 +72,8 @@ def contribution_maps(bundle: Bundle, grid: xr.Dataset, target: str, chunk: int 
 
 def explain_bundle(bundle_dir, out, grid: xr.Dataset | None = None, overwrite: bool = False) -> list[str]:
     """Write importance tables, SHAP at the wells, figures and (with a grid) contribution maps."""
+    from . import plots  # matplotlib loads when a figure is drawn, not on import
+
     bundle = load_bundle(bundle_dir)
     names = bundle.card["features"]["names"]
     lines = []

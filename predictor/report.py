@@ -14,7 +14,6 @@ from string import Template
 import numpy as np
 import pandas as pd
 
-from . import plots
 from .bundle import load_bundle
 from .checks import check_data, write_check
 from .errors import InputError, PredictorWarning
@@ -162,6 +161,8 @@ def _bias(check, card, fig):
 
 
 def _leaderboard(bundle, fig):
+    from . import plots  # matplotlib loads when a figure is drawn, not on import
+
     card = bundle.card
     body = ""
     for t, info in card["targets"].items():
@@ -217,6 +218,8 @@ def _design_sentences(design: dict) -> str:
 
 
 def _maps(maps, wells, card, fig):
+    from . import plots  # matplotlib loads when a figure is drawn, not on import
+
     body = ""
     if "z_shown" in maps.attrs:
         domain = maps.attrs.get("z_domain", "unknown")
@@ -249,6 +252,7 @@ def _report_cutoffs(card) -> dict:
 
 
 def _field_wide(card, maps, wells, fig):
+    from . import plots  # matplotlib loads when a figure is drawn, not on import
     from .predict import exceedance_name
 
     body = ("<p>Wells drilled in the good rock over-state the field. Declustering re-weights them by the area each "
@@ -310,6 +314,8 @@ def _intervals(card):
 
 
 def _why(bundle, grid, wells, fig):
+    from . import plots  # matplotlib loads when a figure is drawn, not on import
+
     names = bundle.card["features"]["names"]
     body = ("<p class='small'>Contributions (SHAP values) add up to the model output at every node. LightGBM parts "
             "use TreeSHAP (path-dependent); linear parts are exact; kriging parts form one column, "

@@ -136,3 +136,33 @@ def test_fuzzed_files_give_only_clear_errors(reader, seed_bytes, tmp_path):
             assert str(err) and "\n" not in str(err)
             outcomes["refused"] += 1
     assert outcomes["read"] > 0 and outcomes["refused"] > 0
+
+
+def test_a_stopped_command_leaves_the_process_as_it_found_it(tmp_path, monkeypatch):
+    # a notebook calls main(), presses Ctrl-C, then keeps working in the same process
+    import sys
+    import warnings
+
+    import predictor.cli as cli
+    from predictor.io.atomic import atomic_file
+
+    before = (warnings.showwarning, sys.unraisablehook, signal.getsignal(signal.SIGINT), list(warnings.filters))
+
+    def stopped(args):
+        cli._stop(signal.SIGINT, None)
+
+    monkeypatch.setitem(cli.COMMANDS, "qc", stopped)
+    assert cli.main(["qc", "--wells", "w.csv", "--grid", "g.csv"]) == 130
+    assert (warnings.showwarning, sys.unraisablehook, signal.getsignal(signal.SIGINT), list(warnings.filters)) == before
+    with atomic_file(tmp_path / "after.txt") as tmp:
+        tmp.write_text("kept")
+    assert (tmp_path / "after.txt").read_text() == "kept"
+
+
+def test_import_predictor_does_not_load_matplotlib():
+    # plots load when a figure is drawn: a notebook importing the API pays no plotting start-up
+    import subprocess
+    import sys
+
+    code = "import sys, predictor; print('matplotlib' in sys.modules)"
+    assert subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout.strip() == "False"

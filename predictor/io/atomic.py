@@ -32,6 +32,12 @@ def interrupt() -> None:
     _interrupted = True
 
 
+def clear_interrupt() -> None:
+    """Forget a stop request once its command has returned (the next call may commit again)."""
+    global _interrupted
+    _interrupted = False
+
+
 def _commit_allowed() -> None:
     # a stop signal can be swallowed when it lands inside library clean-up code; checking here
     # makes sure nothing is renamed into place once one has arrived
