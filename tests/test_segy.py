@@ -95,3 +95,38 @@ def test_inconsistent_geometry_is_a_clear_error(tmp_path):
     broken.write_bytes((tmp_path / "dup.sgy").read_bytes()[:3000])
     with pytest.raises(InputError, match="not a readable SEG-Y"):
         read_segy(broken)
+
+
+def test_written_headers_read_by_obspy(tmp_path):
+    # independent reader: ObsPy's SEG-Y module (PyPI "obspy"), headers unpacked by its own byte
+    # layout of SEG-Y revision 1 (binary 3201-3600, trace 1-240)
+    obspy_segy = pytest.importorskip("obspy.io.segy.segy")
+    cube = _cube((25, 4, 5), seed=3)
+    ds = read_segy(_write(tmp_path / "v.sgy", cube, np.arange(10, 14), np.arange(100, 105), angle=10.0,
+                          samples=1500.0 + 4.0 * np.arange(25)))
+    ds.attrs.update(z_domain="depth", crs_wkt="EPSG:32631")
+    ds["amplitude"].attrs.update(units="1", long_name="porosity 10th percentile (q10)")
+    path = write_segy(ds, "amplitude", tmp_path / "out.sgy")
+    st = obspy_segy._read_segy(str(path), unpack_headers=True)
+    assert st.binary_file_header.seg_y_format_revision_number == 0x0100  # rev 1.0, major byte first
+    assert st.binary_file_header.measurement_system == 1  # metres
+    assert st.binary_file_header.data_sample_format_code == 5
+    text = st.textual_file_header.decode("ascii")
+    assert st.textual_header_encoding == "EBCDIC" and len(text) == 3200  # segyio writes the standard's EBCDIC
+    lines = [text[k:k + 80] for k in range(0, 3200, 80)]
+    assert lines[0].startswith("C 1 ") and lines[39].startswith("C40 ")
+    assert "VARIABLE: amplitude" in text and "UNITS: 1" in text and "Z DOMAIN: DEPTH" in text
+    assert "EPSG:32631" in text and "q10" in text
+    assert path.read_bytes()[:3200].decode("cp500") == text  # plain ASCII: the same through any EBCDIC table
+    h = [tr.header for tr in st.traces]
+    assert [x.trace_sequence_number_within_line for x in h] == list(range(1, 21))
+    assert len({x.ensemble_number for x in h}) == 20 and min(x.ensemble_number for x in h) == 1
+    assert {x.trace_identification_code for x in h} == {1} and {x.coordinate_units for x in h} == {1}
+    first = h[0]
+    assert first.for_3d_poststack_data_this_field_is_for_in_line_number == 10
+    assert first.for_3d_poststack_data_this_field_is_for_cross_line_number == 100
+    assert first.scalar_to_be_applied_to_all_coordinates == -100
+    assert first.x_coordinate_of_ensemble_position_of_this_trace / 100 == pytest.approx(float(ds.cdp_x[0, 0]), abs=0.01)
+    np.testing.assert_array_equal(st.traces[0].data, cube[:, 0, 0])
+    # and this tool reads the depth domain back from the header it wrote
+    assert read_segy(path).attrs["z_domain"] == "depth"

@@ -51,6 +51,7 @@ def read_segy(path: str | Path, name: str = "amplitude") -> xr.Dataset:
             cy = _scaled(f.attributes(tf.CDP_Y)[:], scalar)
             samples = np.asarray(f.samples, float)
             traces = f.trace.raw[:].astype(float)
+            text = bytes(f.text[0]).decode("ascii", errors="replace")
     except InputError:
         raise
     except Exception as err:  # segyio raises RuntimeError/OSError on a damaged file
@@ -90,11 +91,70 @@ def read_segy(path: str | Path, name: str = "amplitude") -> xr.Dataset:
                             "cdp_y": (("inline", "crossline"), y0 + dyi * gi + dyx * gj)})
     ds.attrs.update(source=str(path), affine=[float(v) for v in (x0, dxi, dxx, y0, dyi, dyx)],
                     missing_traces=int(cube.shape[1] * cube.shape[2] - il.size))
+    line = next((text[k:k + 80] for k in range(0, len(text), 80) if text[k:k + 80].startswith(TEXT_DOMAIN)), "")
+    domain = line[len(TEXT_DOMAIN):].strip().lower()
+    if domain in ("depth", "time"):  # written by this tool: the header says which
+        ds.attrs["z_domain"] = domain
     return ds
 
 
+TEXT_DOMAIN = "C 4 Z DOMAIN: "  # the textual header line the reader takes the z domain from
+
+
+def _ascii(text: str) -> str:
+    # the textual header must survive EBCDIC conversion: printable ASCII only
+    return "".join(c if 32 <= ord(c) < 127 else "?" for c in str(text))
+
+
+def _crs_label(wkt: str | None) -> str:
+    if not wkt:
+        return "NOT GIVEN"
+    try:
+        from pyproj import CRS
+
+        crs = CRS.from_user_input(wkt)
+        epsg = crs.to_epsg()
+        return f"EPSG:{epsg} ({crs.name})" if epsg else crs.name
+    except Exception:  # pyproj absent or an unusual WKT: its name as written
+        return wkt.split('"')[1] if '"' in wkt else wkt[:60]
+
+
+def textual_header(ds: xr.Dataset, var: str, z: np.ndarray) -> str:
+    """The 3200-byte textual header: 40 lines of 80 ASCII characters, ``C 1`` to ``C40``,
+    naming the variable, its units, the z domain and units, the CRS and the header bytes used."""
+    attrs = ds[var].attrs
+    domain = str(ds.attrs.get("z_domain", "unknown")).upper()
+    z_units = {"DEPTH": "M", "TIME": "MS"}.get(domain, "AS GIVEN")
+    interval = float(z[1] - z[0]) if z.size > 1 else 1.0
+    lines = ["PREDICTOR OUTPUT VOLUME - A PREDICTED VOLUME IS A MODEL, NOT A MEASUREMENT",
+             f"VARIABLE: {var}",
+             f"MEANING: {attrs.get('long_name', var)}; UNITS: {attrs.get('units') or 'NONE GIVEN'}",
+             None,  # the z domain line, written with TEXT_DOMAIN
+             f"SAMPLES: {z.size}, FIRST {z[0]:g} {z_units}, INTERVAL {interval:g} {z_units} (HEADER X 1000)",
+             f"CRS: {_crs_label(ds.attrs.get('crs_wkt'))}",
+             "INLINE BYTES 189-192, CROSSLINE 193-196, CDP X 181-184, CDP Y 185-188",
+             "COORDINATE SCALAR -100 (CENTIMETRES), COORDINATE UNITS 1 (LENGTH, METRES)",
+             "SAMPLE FORMAT 5 (4-BYTE IEEE FLOAT); TRACES WITH NO VALUE LEFT OUT",
+             "MISSING SAMPLES WRITTEN AS 0; FLAGS AND CLASS CODES AS NUMBERS (SEE NETCDF)",
+             f"BUNDLE: {ds.attrs.get('bundle', '')}; GRID: {ds.attrs.get('grid', '')}",
+             "DRILLING, RESERVES AND SAFETY DECISIONS REST WITH QUALIFIED PROFESSIONALS"]
+    text = []
+    for k in range(40):
+        if k == 3:
+            body = f"Z DOMAIN: {domain}"
+        elif k == 38:
+            body = "SEG-Y REV 1.0"
+        elif k == 39:
+            body = "END TEXTUAL HEADER"
+        else:
+            body = lines[k] if k < len(lines) else ""
+        text.append(_ascii(f"C{k + 1:2d} {body}")[:80].ljust(80))
+    return "".join(text)
+
+
 def write_segy(ds: xr.Dataset, var: str, target: str | Path, overwrite: bool = True) -> Path:
-    """Write one variable of a volume as SEG-Y (IEEE floats); traces that are all NaN are left out."""
+    """Write one variable of a volume as SEG-Y revision 1 (IEEE floats, metres, a textual header
+    that names the variable, units, z domain and CRS); traces that are all NaN are left out."""
     segyio = _segyio()
     cube = ds[var].transpose("z", "inline", "crossline").to_numpy().astype(np.float32)
     inl, xln = np.meshgrid(ds.inline.to_numpy(), ds.crossline.to_numpy(), indexing="ij")
@@ -108,8 +168,13 @@ def write_segy(ds: xr.Dataset, var: str, target: str | Path, overwrite: bool = T
     tf = segyio.TraceField
     with atomic_file(target, overwrite=overwrite) as tmp:
         with segyio.create(str(tmp), spec) as f:
+            f.text[0] = textual_header(ds, var, z).encode("ascii")
             for n, (i, j) in enumerate(zip(*np.nonzero(keep), strict=True)):
                 f.header[n] = {tf.INLINE_3D: int(inl[i, j]), tf.CROSSLINE_3D: int(xln[i, j]),
+                               tf.TRACE_SEQUENCE_LINE: n + 1, tf.TRACE_SEQUENCE_FILE: n + 1,
+                               tf.CDP: int(i * inl.shape[1] + j + 1),  # a running number over the survey grid
+                               tf.CDP_TRACE: 1, tf.TraceIdentificationCode: 1,  # one seismic-like trace per CDP
+                               tf.CoordinateUnits: 1, tf.TraceValueMeasurementUnit: -1,  # metres; "other"
                                tf.SourceGroupScalar: -100,
                                tf.CDP_X: int(round(float(ds.cdp_x[i, j]) * 100)),
                                tf.CDP_Y: int(round(float(ds.cdp_y[i, j]) * 100)),
@@ -117,6 +182,8 @@ def write_segy(ds: xr.Dataset, var: str, target: str | Path, overwrite: bool = T
                                tf.TRACE_SAMPLE_COUNT: z.size, tf.DelayRecordingTime: int(round(z[0]))}
                 f.trace[n] = np.nan_to_num(cube[:, i, j], nan=0.0)
             f.bin.update(hns=z.size, hdt=int(round(interval * 1000)), format=5)
+            f.bin.update({segyio.BinField.SEGYRevision: 1, segyio.BinField.SEGYRevisionMinor: 0,
+                          segyio.BinField.MeasurementSystem: 1, segyio.BinField.ExtendedHeaders: 0})
     return Path(target)
 
 
@@ -137,5 +204,6 @@ def write_segy_set(ds: xr.Dataset, target: str | Path, overwrite: bool = False) 
             values = ds[var].astype(np.float32)
             if "_FillValue" in ds[var].attrs:  # flags and class codes: the fill becomes NaN, then a dead sample
                 values = values.where(ds[var] != ds[var].attrs["_FillValue"])
+            values.attrs = dict(ds[var].attrs)
             write_segy(ds.assign({var: values}), var, tmp, overwrite=True)
     return target.with_name(f"{target.stem}_*{target.suffix}")
