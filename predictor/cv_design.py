@@ -121,19 +121,18 @@ def _deal(xy: np.ndarray, clusters: np.ndarray, k: int) -> np.ndarray:
     """Folds from clusters: big clusters (>= n/k wells) become folds of their own, the others are
     dealt round-robin in the order of their centroids along the wells' first principal axis."""
     n = len(xy)
-    ids, sizes = np.unique(clusters, return_counts=True)
-    big = ids[sizes >= n / k][:k]
-    folds = np.full(n, -1)
-    for f, c in enumerate(big):
-        folds[clusters == c] = f
-    rest = [c for c in ids if c not in set(big)]
-    if rest:
+    _, of, sizes = np.unique(clusters, return_inverse=True, return_counts=True)  # of: each well's cluster
+    fold_of = np.full(sizes.size, -1)
+    big = np.flatnonzero(sizes >= n / k)[:k]
+    fold_of[big] = np.arange(big.size)
+    rest = np.flatnonzero(fold_of < 0)
+    if rest.size:  # per-cluster sums by bincount: thousands of wells and clusters stay fast
         centred = xy - xy.mean(axis=0)
         axis = np.linalg.svd(centred, full_matrices=False)[2][0]
-        order = sorted(rest, key=lambda c: float(centred[clusters == c].mean(axis=0) @ axis))
-        for i, c in enumerate(order):
-            folds[clusters == c] = (len(big) + i) % k
-    return folds
+        centroids = np.column_stack([np.bincount(of, centred[:, i], sizes.size) for i in (0, 1)]) / sizes[:, None]
+        order = rest[np.argsort(centroids[rest] @ axis, kind="stable")]
+        fold_of[order] = (big.size + np.arange(order.size)) % k
+    return fold_of[of]
 
 
 def knndm_folds(xy: np.ndarray, g_map: np.ndarray, k: int, seed: int = 0,

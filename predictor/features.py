@@ -244,4 +244,4 @@ def feature_matrix(features: xr.Dataset, names: list[str]) -> tuple[np.ndarray, 
     """Flattened features at every node: (matrix of shape (n_valid, n_features), valid mask of the grid)."""
     stack = np.stack([features[n].to_numpy().ravel() for n in names], axis=1)
     valid = np.all(np.isfinite(stack), axis=1)
-    return stack[valid], valid
+    return (stack if valid.all() else stack[valid]), valid

@@ -131,32 +131,31 @@ def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int 
                       f"wells (most: {worst}); predictions there are extrapolations", PredictorWarning, stacklevel=2)
     dims = features[names[0]].dims
     shape = features[names[0]].shape
-
-    def on_grid(values) -> np.ndarray:
-        full = np.full(valid.size, np.nan)
-        full[valid] = values
-        return full.reshape(shape)
-
-    def codes_on_grid(values, dtype) -> np.ndarray:
-        full = np.full(valid.size, -1, dtype=dtype)
-        full[valid] = values
-        return full.reshape(shape)
+    del features  # the matrix holds what the models need; a large map should not keep both
 
     chunks = [slice(s, s + chunk_rows) for s in range(0, len(X), chunk_rows)]
     work = lambda rows: _node_values(bundle, X.iloc[rows].reset_index(drop=True), xy[rows], exceed)  # noqa: E731
     n_threads = max(1, threads or os.cpu_count() or 1)
-    if n_threads > 1 and len(chunks) > 1:  # the models release the GIL: chunks run side by side
-        with ThreadPoolExecutor(max_workers=n_threads) as pool:
-            parts = list(pool.map(work, chunks))
-    else:
-        parts = [work(rows) for rows in chunks]
-    values = {key: np.concatenate([p[key] for p in parts]) for key in parts[0]}
+    node_of_row = np.flatnonzero(valid)
+    full: dict[str, np.ndarray] = {}  # each output on the whole grid, filled chunk by chunk (codes: -1 empty)
+    with ThreadPoolExecutor(max_workers=n_threads) as pool:  # the models release the GIL: chunks side by side
+        for rows, part in zip(chunks, pool.map(work, chunks) if n_threads > 1 else map(work, chunks), strict=True):
+            for key, v in part.items():
+                if key not in full:
+                    full[key] = np.full(valid.size, -1, v.dtype) if v.dtype.kind == "i" else np.full(valid.size, np.nan)
+                full[key][node_of_row[rows]] = v
+
+    def on_grid(key) -> np.ndarray:
+        return full.pop(key).reshape(shape)
+
+    def codes_on_grid(key, dtype) -> np.ndarray:
+        return on_grid(key).astype(dtype, copy=False)
 
     out = xr.Dataset(coords={c: grid.coords[c] for c in grid.coords if set(grid.coords[c].dims) <= set(dims)})
     for target, info in card["targets"].items():
         applicable = None
-        if f"{target}_applicable" in values:
-            applicable = xr.DataArray(codes_on_grid(values[f"{target}_applicable"], np.int8), dims=dims, attrs={
+        if f"{target}_applicable" in full:
+            applicable = xr.DataArray(codes_on_grid(f"{target}_applicable", np.int8), dims=dims, attrs={
                 "long_name": f"inside the area of applicability of the {target} model (1) or not (0)",
                 "flag_values": np.array([0, 1], dtype=np.int8), "flag_meanings": "outside inside",
                 "_FillValue": np.int8(-1),
@@ -164,13 +163,13 @@ def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int 
         if info["task"] == "classification":
             classes = info["classes"]
             rule = info.get("facies_map")
-            out[target] = (dims, codes_on_grid(values[target], np.int16))
+            out[target] = (dims, codes_on_grid(target, np.int16))
             out[target].attrs.update(flag_values=np.arange(len(classes), dtype=np.int16),
                                      flag_meanings=" ".join(c.replace(" ", "_") for c in classes),
                                      _FillValue=np.int16(-1),
                                      long_name=f"{target} ({RULE_LABELS[rule['rule'] if rule else 'most-probable']})")
             for cls in classes:
-                out[f"{target}_prob_{cls}"] = (dims, on_grid(values[f"{target}_prob_{cls}"]))
+                out[f"{target}_prob_{cls}"] = (dims, on_grid(f"{target}_prob_{cls}"))
                 out[f"{target}_prob_{cls}"].attrs.update(units="1", long_name=f"probability of {target} {cls}")
             if applicable is not None:
                 out[f"{target}_applicable"] = applicable
@@ -180,11 +179,11 @@ def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int 
         units = "millidarcy" if target == "permeability" else ("1" if target == "porosity" else "")
         point = "10 to the mean of log10 (about the median)" if log else "mean (least-squares prediction)"
         for suffix, label in (("", point), ("_q10", "10th percentile (q10)"), ("_q90", "90th percentile (q90)")):
-            out[f"{target}{suffix}"] = (dims, on_grid(values[f"{target}{suffix}"]))
+            out[f"{target}{suffix}"] = (dims, on_grid(f"{target}{suffix}"))
             out[f"{target}{suffix}"].attrs.update(units=units, long_name=f"{target} {label}" + (" in mD" if log else ""))
         for cutoff in (exceed or {}).get(target, []):
             name = exceedance_name(target, cutoff)
-            out[name] = (dims, on_grid(values[name]))
+            out[name] = (dims, on_grid(name))
             out[name].attrs.update(units="1", long_name=f"probability that {target} exceeds {cutoff:g}{' mD' if log else ''}",
                                    cutoff=float(cutoff), comment="from the out-of-fold residuals of the matched CV "
                                    "around the map's prediction; in experiments/field_wide.py mid-range values ran about 0.1 above "
