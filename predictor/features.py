@@ -6,10 +6,12 @@ well values) means training sees exactly what prediction sees: no train/predict 
 
 from __future__ import annotations
 
+import os
 from dataclasses import asdict, dataclass, field
 
 import numpy as np
 import pandas as pd
+import scipy.fft
 import xarray as xr
 from scipy.ndimage import gaussian_filter1d
 from scipy.signal import oaconvolve
@@ -103,8 +105,17 @@ def _smooth(values: np.ndarray, sigma_cells) -> np.ndarray:
     return np.where(valid, out, np.nan)
 
 
-def build_features(grid: xr.Dataset, spec: FeatureSpec) -> xr.Dataset:
-    """Every feature of ``spec`` as a variable on the grid or volume (same dims and coordinates)."""
+def build_features(grid: xr.Dataset, spec: FeatureSpec, threads: int | None = None) -> xr.Dataset:
+    """Every feature of ``spec`` as a variable on the grid or volume (same dims and coordinates).
+
+    ``threads`` (default: every core) run the FFTs of long smoothing kernels; the values do
+    not depend on it.
+    """
+    with scipy.fft.set_workers(max(1, threads or os.cpu_count() or 1)):
+        return _build_features(grid, spec)
+
+
+def _build_features(grid: xr.Dataset, spec: FeatureSpec) -> xr.Dataset:
     missing = [a for a in spec.attributes if a not in grid.data_vars]
     if missing:
         raise InputError(

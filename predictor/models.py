@@ -190,7 +190,7 @@ def lightgbm_params(task: str, n: int, n_classes: int, seed: int, n_threads: int
         "feature_pre_filter": False,
         "deterministic": True,
         "force_row_wise": True,
-        # threads pay off only on large tables: the demo's 150 wells trained in 12.1 s on one
+        # threads pay off only on large tables: the demo's 60 wells trained in 12.1 s on one
         # thread and 13.2 s on two; results are the same either way (deterministic, row-wise)
         "num_threads": (n_threads or os.cpu_count() or 1) if n >= PARALLEL_ROWS else 1,
         "seed": seed,

@@ -108,7 +108,7 @@ def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int 
     card = bundle.card
     check_space(card, grid)
     check_exceedance(card, exceed)
-    features = build_features(grid, bundle.feature_spec)
+    features = build_features(grid, bundle.feature_spec, threads)
     if interior:
         features, grid = features.isel(interior), grid.isel(interior)
     names = card["features"]["names"]

@@ -193,6 +193,10 @@ def test_moving_neighbourhood_holding_every_well_is_the_global_estimate():
     np.testing.assert_allclose(near.predict(pts[:, 0], pts[:, 1]), values, atol=1e-6)
     back = OrdinaryKriging.from_dict(near.to_dict())
     np.testing.assert_array_equal(back.predict(q[:, 0], q[:, 1]), near.predict(q[:, 0], q[:, 1]))
+    # a bundle written before the dual form stored no neighbourhood: it loads as the global system
+    older = glob.to_dict()
+    older.pop("neighbours")
+    np.testing.assert_array_equal(OrdinaryKriging.from_dict(older).predict(q[:, 0], q[:, 1]), glob.predict(q[:, 0], q[:, 1]))
 
 
 def test_many_wells_switch_to_a_moving_neighbourhood(monkeypatch):
