@@ -53,9 +53,18 @@ def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(prog="predictor", description=__doc__.splitlines()[0])
     parser.add_argument("--debug", action="store_true", help="show the full traceback on errors")
     parser.add_argument("--quiet", action="store_true", help="no progress bars")
-    sub = parser.add_subparsers(dest="command", required=True)
+    # the same two options after the subcommand too (predictor train ... --quiet)
+    common = argparse.ArgumentParser(add_help=False)
+    common.add_argument("--debug", action="store_true", default=argparse.SUPPRESS, help=argparse.SUPPRESS)
+    common.add_argument("--quiet", action="store_true", default=argparse.SUPPRESS, help="no progress bars")
+    commands = parser.add_subparsers(dest="command", required=True)
 
-    qc = sub.add_parser("qc", help="check wells and grid: statistics, non-physical values, duplicates, "
+    def sub_parser(name: str, summary: str):
+        description, writes, example = COMMAND_HELP[name]
+        return commands.add_parser(name, help=summary, parents=[common], description=f"{description}\n\n{writes}",
+                                   epilog=f"example:\n  {example}", formatter_class=argparse.RawDescriptionHelpFormatter)
+
+    qc = sub_parser("qc", "check wells and grid: statistics, non-physical values, duplicates, "
                         "outliers per facies, drilling bias, declustering")
     _wells_options(qc)
     qc.add_argument("--json", help="write the full QC record as JSON here")
@@ -63,7 +72,7 @@ def build_parser() -> argparse.ArgumentParser:
     qc.add_argument("--duplicate-distance", type=float, default=1.0,
                     help="wells closer than this (m) count as duplicates (default 1)")
 
-    tr = sub.add_parser("train", help="train facies/porosity/permeability models with spatial CV; write a bundle")
+    tr = sub_parser("train", "train facies/porosity/permeability models with spatial CV; write a bundle")
     _wells_options(tr)
     tr.add_argument("--target", action="append", required=True,
                     help="well column to model (repeat for several: --target porosity --target facies)")
@@ -111,7 +120,7 @@ def build_parser() -> argparse.ArgumentParser:
     tr.add_argument("--threads", type=int, help="LightGBM threads, used above a few thousand training rows where they "
                     "pay off (default: all cores; results do not depend on it)")
 
-    pr = sub.add_parser("predict", help="map every target of a bundle on a grid (CSV or NetCDF by extension)")
+    pr = sub_parser("predict", "map every target of a bundle on a grid (CSV or NetCDF by extension)")
     pr.add_argument("bundle", help="bundle folder written by `predictor train`")
     pr.add_argument("--grid", required=True, help="map or volume with the attributes the bundle was trained on")
     _volume_options(pr)
@@ -132,7 +141,7 @@ def build_parser() -> argparse.ArgumentParser:
                          "(written as porosity_prob_above_0p15); repeatable")
     pr.add_argument("--overwrite", action="store_true", help="replace an existing maps file")
 
-    ex = sub.add_parser("explain", help="SHAP importance, summary and dependence plots, SHAP at the wells and "
+    ex = sub_parser("explain", "SHAP importance, summary and dependence plots, SHAP at the wells and "
                         "contribution maps for every target of a bundle")
     ex.add_argument("bundle", help="bundle folder written by `predictor train`")
     ex.add_argument("--grid", help="grid for contribution maps (optional; a volume is shown at the wells' middle z)")
@@ -140,19 +149,51 @@ def build_parser() -> argparse.ArgumentParser:
     ex.add_argument("--out", default="explanations", help="output folder (default explanations)")
     ex.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
 
-    rp = sub.add_parser("report", help="one self-contained HTML report of a bundle (figures embedded)")
+    rp = sub_parser("report", "one self-contained HTML report of a bundle (figures embedded)")
     rp.add_argument("bundle", help="bundle folder written by `predictor train`")
     rp.add_argument("--out", default="report.html", help="HTML file to write (default report.html)")
     rp.add_argument("--grid", help="grid to map (default: the grid the bundle was trained on)")
     _volume_options(rp)
     rp.add_argument("--overwrite", action="store_true", help="replace an existing report")
 
-    demo = sub.add_parser("demo", help="run the whole job on the bundled synthetic Tarnwick field")
+    demo = sub_parser("demo", "run the whole job on the bundled synthetic Tarnwick field")
     demo.add_argument("--out", default="demo_output", help="output folder (default demo_output)")
     demo.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
     demo.add_argument("--volume", action="store_true",
                       help="the 3-D scenario instead: well samples and a SEG-Y impedance volume (generated)")
     return parser
+
+
+COMMAND_HELP = {  # per subcommand: what it does, what it writes, an example on the demo files
+    "qc": ("Check the wells and the grid before modelling: statistics per column and facies, non-physical "
+           "values, duplicated wells, outliers, how far the wells' attribute values are from the map's "
+           "(drilling bias) and the declustering weights.",
+           "Writes: a summary on screen; with --json the full record; with --figures PNG figures.",
+           "predictor qc --wells demo_data/wells.csv --grid demo_data/seismic.csv --figures qc_figures"),
+    "train": ("Train facies, porosity or permeability models from the grid's attributes, scored against "
+              "linear/logistic, kriging and regression-kriging baselines on the same spatial CV folds.",
+              "Writes: a bundle folder (models, model_card.json with the leaderboard and field-wide numbers, "
+              "out-of-fold predictions per well).",
+              "predictor train --wells demo_data/wells.csv --grid demo_data/seismic.csv --target porosity "
+              "--target facies --out models/demo"),
+    "predict": ("Map every target of a bundle on a grid or volume: the prediction, q10/q90, class "
+                "probabilities and the area of applicability.",
+                "Writes: one maps file, its format chosen by the extension (.csv, .nc, .tif, .zarr; volumes "
+                "also .sgy).",
+                "predictor predict models/demo --grid demo_data/seismic.csv --out maps.nc"),
+    "explain": ("Why the models predict what they do: SHAP importance, summary and dependence plots, SHAP at "
+                "the wells and, with --grid, contribution maps.",
+                "Writes: a folder of PNG figures and CSV tables.",
+                "predictor explain models/demo --grid demo_data/seismic.csv --out explanations"),
+    "report": ("One self-contained HTML report of a bundle: data, validation, maps, uncertainty, field-wide "
+               "numbers and explanations, with the cautions.",
+               "Writes: one HTML file with its figures embedded.",
+               "predictor report models/demo --out report.html"),
+    "demo": ("Run the whole job on the invented Tarnwick field: checks, training, maps, explanations and the "
+             "report, compared with the field's known truth.",
+             "Writes: a folder with the inputs, the bundle, maps, figures and the report.",
+             "predictor demo --out demo_output"),
+}
 
 
 def _cmd_qc(args) -> int:

@@ -9,6 +9,7 @@ attribute is missing stay empty.
 
 from __future__ import annotations
 
+import importlib.util
 import os
 import warnings
 from concurrent.futures import ThreadPoolExecutor
@@ -27,6 +28,7 @@ from .io.netcdf import write_netcdf
 from .volume import is_volume
 
 CHUNK_ROWS = 250_000
+FORMAT_LIBRARIES = {".tif": "rasterio", ".tiff": "rasterio", ".sgy": "segyio", ".segy": "segyio", ".zarr": "zarr"}
 RULE_LABELS = {"most-probable": "most probable class",
                "balanced": "largest probability relative to the class's field-wide share",
                "proportions": "class thresholds that reproduce the field-wide proportions"}
@@ -145,17 +147,14 @@ def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int 
                     full[key] = np.full(valid.size, -1, v.dtype) if v.dtype.kind == "i" else np.full(valid.size, np.nan)
                 full[key][node_of_row[rows]] = v
 
-    def on_grid(key) -> np.ndarray:
+    def on_grid(key) -> np.ndarray:  # class codes and flags keep their integer dtype
         return full.pop(key).reshape(shape)
-
-    def codes_on_grid(key, dtype) -> np.ndarray:
-        return on_grid(key).astype(dtype, copy=False)
 
     out = xr.Dataset(coords={c: grid.coords[c] for c in grid.coords if set(grid.coords[c].dims) <= set(dims)})
     for target, info in card["targets"].items():
         applicable = None
         if f"{target}_applicable" in full:
-            applicable = xr.DataArray(codes_on_grid(f"{target}_applicable", np.int8), dims=dims, attrs={
+            applicable = xr.DataArray(on_grid(f"{target}_applicable"), dims=dims, attrs={
                 "long_name": f"inside the area of applicability of the {target} model (1) or not (0)",
                 "flag_values": np.array([0, 1], dtype=np.int8), "flag_meanings": "outside inside",
                 "_FillValue": np.int8(-1),
@@ -163,7 +162,7 @@ def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int 
         if info["task"] == "classification":
             classes = info["classes"]
             rule = info.get("facies_map")
-            out[target] = (dims, codes_on_grid(target, np.int16))
+            out[target] = (dims, on_grid(target))
             out[target].attrs.update(flag_values=np.arange(len(classes), dtype=np.int16),
                                      flag_meanings=" ".join(c.replace(" ", "_") for c in classes),
                                      _FillValue=np.int16(-1),
@@ -293,6 +292,10 @@ def check_format(path: str | Path, volume: bool) -> Path:
         what = "volume" if volume else "map"
         hint = " (GeoTIFF holds maps, not volumes)" if suffix in (".tif", ".tiff") else ""
         raise InputError(f"{path}: unknown {what} format {suffix!r}{hint}; use {', '.join(formats)}")
+    library = FORMAT_LIBRARIES.get(suffix)
+    if library and importlib.util.find_spec(library) is None:  # refused before the prediction, not after it
+        raise InputError(f"{path}: writing {suffix} needs {library}, which is not installed; `pip install {library}` "
+                         "(a dependency of predictor: reinstalling predictor brings it) or choose another format")
     return path
 
 

@@ -68,3 +68,17 @@ def test_demo_runs_and_declusters(tmp_path, capsys):
     out = capsys.readouterr().out
     assert "declustered" in out and (tmp_path / "out" / "qc.json").exists()
     assert main(["demo", "--out", str(tmp_path / "out")]) == 2  # refuses to overwrite
+
+
+def test_global_options_after_the_subcommand_and_help_with_an_example():
+    from predictor.cli import build_parser
+
+    parser = build_parser()
+    args = parser.parse_args(["train", "--wells", "w.csv", "--grid", "g.csv", "--target", "porosity", "--out", "b",
+                              "--quiet", "--debug"])
+    assert args.quiet and args.debug
+    assert not parser.parse_args(["predict", "b", "--grid", "g.csv", "--out", "m.nc"]).quiet
+    assert parser.parse_args(["--quiet", "demo"]).quiet
+    for command in ("qc", "train", "predict", "explain", "report", "demo"):
+        text = parser._subparsers._group_actions[0].choices[command].format_help()
+        assert "Writes:" in text and f"example:\n  predictor {command} " in text, command

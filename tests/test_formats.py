@@ -68,3 +68,16 @@ def test_predict_to_geotiff(tmp_path):
     assert main(["predict", str(tmp_path / "b"), "--grid", str(DEMO / "seismic.csv"), "--crs", "EPSG:999999",
                  "--out", str(tmp_path / "bad.tif")]) == 2
     assert not (tmp_path / "bad.tif").exists()
+
+
+def test_a_format_whose_library_is_missing_is_refused_before_any_work(tmp_path, monkeypatch):
+    import importlib.util
+
+    from predictor.errors import InputError
+    from predictor.predict import check_format
+
+    real = importlib.util.find_spec
+    monkeypatch.setattr(importlib.util, "find_spec", lambda name, *a: None if name == "rasterio" else real(name, *a))
+    with pytest.raises(InputError, match="needs rasterio, which is not installed"):
+        check_format(tmp_path / "maps.tif", volume=False)
+    assert check_format(tmp_path / "maps.nc", volume=False).suffix == ".nc"

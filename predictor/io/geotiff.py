@@ -22,7 +22,7 @@ def write_geotiff(maps: xr.Dataset, target: str | Path, crs: str | None = None, 
         import rasterio
         from rasterio.transform import from_origin
     except ImportError:
-        raise InputError("writing GeoTIFF needs rasterio: `pip install rasterio` (or the [formats] extra)") from None
+        raise InputError("writing GeoTIFF needs rasterio: `pip install rasterio` (a dependency of predictor: reinstall it)") from None
     names = [str(v) for v in maps.data_vars if maps[v].dims == ("y", "x")]
     dx = float(maps.x[1] - maps.x[0])
     dy = float(maps.y[1] - maps.y[0])

@@ -86,8 +86,8 @@ def grid_mapping(crs_wkt: str) -> dict:
 
         attrs = {k: v for k, v in pyproj.CRS.from_user_input(crs_wkt).to_cf().items() if v is not None}
     except ImportError:
-        raise InputError("labelling NetCDF or Zarr maps with a CRS needs pyproj: `pip install pyproj` (or the "
-                         "[formats] extra)") from None
+        raise InputError("labelling NetCDF or Zarr maps with a CRS needs pyproj: `pip install pyproj` (a dependency of "
+                         "predictor: reinstall it)") from None
     except Exception as err:  # pyproj raises its own CRSError
         raise InputError(f"unknown coordinate reference system ({str(err)[:120]}); give e.g. EPSG:32631") from None
     attrs["crs_wkt"] = crs_wkt

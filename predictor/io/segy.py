@@ -24,7 +24,7 @@ def _segyio():
     try:
         import segyio
     except ImportError:
-        raise InputError("reading or writing SEG-Y needs segyio: `pip install segyio` (or the [formats] extra)") from None
+        raise InputError("reading or writing SEG-Y needs segyio: `pip install segyio` (a dependency of predictor: reinstall it)") from None
     return segyio
 
 
