@@ -57,8 +57,11 @@ def _section(key: str, title: str, body: str, css: str = "") -> tuple[str, str]:
 
 
 def build_report(bundle_dir, out, grid_path=None, overwrite: bool = False, z_domain: str | None = None,
-                 segy_name: str | None = None) -> Path:
+                 segy_name: str | None = None, scenario: list[str] | None = None) -> Path:
     """Write the HTML report of a bundle; the grid defaults to the one the bundle was trained on.
+
+    ``scenario`` (lines of text) opens the report, e.g. the demo's statement that its data are
+    invented and its comparison with the known truth.
 
     A volume is shown as its map view at the middle z of the training samples (axes in survey
     line numbers); every statistic and score covers the whole volume.
@@ -91,13 +94,13 @@ def build_report(bundle_dir, out, grid_path=None, overwrite: bool = False, z_dom
         if is_volume(grid):  # the figures show the map view at the middle of the wells' samples
             z = view_depth(grid, wells)
             maps, shown_wells = map_view(maps, z), wells_in_view(wells, grid, z)
-        sections = [_summary(card, check), _data(check, fig), _bias(check, card, fig), _leaderboard(bundle, fig),
+        sections = [_summary(card, check, scenario), _data(check, fig), _bias(check, card, fig), _leaderboard(bundle, fig),
                     _maps(maps, shown_wells, card, fig), _field_wide(card, maps, shown_wells, fig), _intervals(card), _why(bundle, grid, shown_wells, fig),
                     _warnings(card, [str(w.message) for w in caught]), _provenance(card)]
     nav = " ".join(f'<a href="#{k}">{html.escape(t)}</a>' for k, t in NAV)
     template = Template(resources.files("predictor").joinpath("templates/report.html").read_text(encoding="utf-8"))
     page = template.substitute(title="predictor report: " + html.escape(", ".join(card["targets"])),
-                               subtitle=html.escape(f"bundle {bundle.folder} · grid {grid_path} · "
+                               subtitle=html.escape(f"bundle {Path(bundle.folder).name} · grid {Path(grid_path).name} · "
                                                     f"predictor {card['versions']['predictor']}"),
                                nav=nav, sections="\n".join(s for _, s in sections))
     with atomic_file(out, overwrite=overwrite) as tmp:
@@ -111,7 +114,7 @@ NAV = [("glance", "At a glance"), ("data", "Data and checks"), ("bias", "Drillin
        ("warnings", "Warnings"), ("provenance", "Provenance")]
 
 
-def _summary(card, check):
+def _summary(card, check, scenario=None):
     rows = []
     for t, info in card["targets"].items():
         key = "rmse" if info["task"] == "regression" else "balanced_accuracy"
@@ -120,7 +123,10 @@ def _summary(card, check):
         rows.append({"target": t, "chosen model": info["chosen"], "matched CV": info["cv"][key],
                      "random CV (optimistic)": random if random is not None else np.nan,
                      "metric": key + unit, "wells": info["n_wells"]})
-    body = (f'<p class="caution">{html.escape(CAUTION)}</p>'
+    lines = [html.escape(line.strip()) for line in scenario or []]
+    intro = (f'<div class="scenario"><p>{lines[0]}</p>' + (f"<p>{'<br>'.join(lines[1:])}</p>" if lines[1:] else "")
+             + "</div>") if lines else ""
+    body = (intro + f'<p class="caution">{html.escape(CAUTION)}</p>'
             f"<p>{html.escape(check.qc.bias[next(iter(check.qc.bias))]['verdict'])}</p>"
             + _table(pd.DataFrame(rows))
             + '<p class="small">The matched CV holds wells out as far from their training wells as the map\'s '
@@ -350,7 +356,8 @@ def _warnings(card, extra):
 
 def _provenance(card):
     inputs = card.get("inputs", {})
-    rows = [{"item": f"input {k}", "value": f"{v.get('path')} (SHA-256 {v.get('sha256', '')[:16]}…)"}
+    # file names, not the folders training ran in (a demo or a batch job may have used a scratch folder)
+    rows = [{"item": f"input {k}", "value": f"{Path(str(v.get('path'))).name} (SHA-256 {(v.get('sha256') or '')[:16]}…)"}
             for k, v in inputs.items()]
     rows += [{"item": f"version {k}", "value": v} for k, v in card["versions"].items()]
     rows += [{"item": f"option {k}", "value": str(v)} for k, v in card["options"].items()]

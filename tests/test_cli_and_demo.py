@@ -67,6 +67,11 @@ def test_demo_runs_and_declusters(tmp_path, capsys):
     assert main(["demo", "--out", str(tmp_path / "out")]) == 0
     out = capsys.readouterr().out
     assert "declustered" in out and (tmp_path / "out" / "qc.json").exists()
+    report = (tmp_path / "out" / "report.html").read_text()
+    # the report says its data are invented, carries the truth comparison the console prints, and
+    # names no scratch folder the demo was built in
+    assert "The data of this report are invented" in report and "against the truth of this synthetic field" in report
+    assert ".part" not in report and str(tmp_path) not in report
     assert main(["demo", "--out", str(tmp_path / "out")]) == 2  # refuses to overwrite
 
 
