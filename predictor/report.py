@@ -122,7 +122,8 @@ def _summary(card, check, scenario=None):
         random = (info.get("cv_random") or {}).get(key)
         rows.append({"target": t, "chosen model": info["chosen"], "matched CV": info["cv"][key],
                      "random CV (optimistic)": random if random is not None else np.nan,
-                     "metric": key + unit, "wells": info["n_wells"]})
+                     "metric": key + unit, "against the best baseline": against_baseline(info),
+                     "wells": info["n_wells"]})
     lines = [html.escape(line.strip()) for line in scenario or []]
     intro = (f'<div class="scenario"><p>{lines[0]}</p>' + (f"<p>{'<br>'.join(lines[1:])}</p>" if lines[1:] else "")
              + "</div>") if lines else ""
@@ -134,6 +135,28 @@ def _summary(card, check, scenario=None):
               "estimates the error over the map. Random k-fold is shown for contrast only: nearby wells are alike, "
               "so on clustered wells it flatters the model.</p>")
     return _section("glance", "At a glance", body)
+
+
+def against_baseline(info: dict) -> str:
+    """How the chosen model compares with the best baseline on the matched CV, in words: the
+    relative change of the metric, and whether the loss difference is within one standard error."""
+    board = info["leaderboard"]
+    chosen = next(r for r in board if r["chosen"])
+    regression = info["task"] == "regression"
+    key, loss = ("rmse", lambda r: r["cv"]["rmse"] ** 2) if regression else ("balanced_accuracy",
+                                                                            lambda r: r["cv"]["log_loss"])
+    baselines = [r for r in board if r["baseline"] and r is not chosen]
+    if chosen["baseline"] or not baselines:
+        return "the chosen model is a baseline"
+    best = min(baselines, key=lambda r: r["cv"][key]) if regression else max(baselines, key=lambda r: r["cv"][key])
+    a, b = chosen["cv"][key], best["cv"][key]
+    change = (b - a) / b if regression else (a - b) / b  # positive: the chosen model is better
+    noise = abs(loss(chosen) - loss(best)) <= (chosen.get("cv_se") or 0.0)
+    word = "lower" if regression else "higher"
+    if change <= 0:
+        return f"no better than {best['candidate']} ({a:.4g} vs {b:.4g})"
+    return (f"{change:.1%} {word} {key} than {best['candidate']} ({a:.4g} vs {b:.4g})"
+            + ("; within one standard error" if noise else ""))
 
 
 def _data(check, fig):

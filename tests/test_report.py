@@ -59,3 +59,19 @@ def test_report_opens_in_headless_chromium(report, tmp_path):
     subprocess.run([browser, *FLAGS, f"--user-data-dir={profile}", "--window-size=1280,2400",
                     f"--screenshot={shot}", report.as_uri()], capture_output=True, timeout=120)
     assert shot.exists() and shot.stat().st_size > 50_000
+
+
+def test_at_a_glance_compares_the_chosen_model_with_the_best_baseline():
+    from predictor.report import against_baseline
+
+    def row(name, rmse, baseline, chosen=False, se=0.0):
+        return {"candidate": name, "baseline": baseline, "chosen": chosen, "cv": {"rmse": rmse}, "cv_se": se}
+
+    info = {"task": "regression", "leaderboard": [row("linear", 0.040, True), row("regression_kriging", 0.036, True),
+                                                  row("blend", 0.030, False, True, se=1e-5)]}
+    # 0.030 against the best baseline's 0.036: 16.7 % lower; the squared-error gap 4.0e-4 exceeds the se
+    assert against_baseline(info) == "16.7% lower rmse than regression_kriging (0.03 vs 0.036)"
+    info["leaderboard"][2] = row("blend", 0.0359, False, True, se=1e-3)
+    assert against_baseline(info).endswith("; within one standard error")
+    info["leaderboard"][2] = row("blend", 0.037, False, True)
+    assert against_baseline(info) == "no better than regression_kriging (0.037 vs 0.036)"
