@@ -95,7 +95,7 @@ def build_report(bundle_dir, out, grid_path=None, overwrite: bool = False, z_dom
             z = view_depth(grid, wells)
             maps, shown_wells = map_view(maps, z), wells_in_view(wells, grid, z)
         sections = [_summary(card, check, scenario), _data(check, fig), _bias(check, card, fig), _leaderboard(bundle, fig),
-                    _maps(maps, shown_wells, card, fig), _field_wide(card, maps, shown_wells, fig), _intervals(card), _why(bundle, grid, shown_wells, fig),
+                    _maps(maps, shown_wells, card, fig), _field_wide(card, maps, shown_wells, fig), _intervals(card, maps), _why(bundle, grid, shown_wells, fig),
                     _warnings(card, [str(w.message) for w in caught]), _provenance(card)]
     nav = " ".join(f'<a href="#{k}">{html.escape(t)}</a>' for k, t in NAV)
     template = Template(resources.files("predictor").joinpath("templates/report.html").read_text(encoding="utf-8"))
@@ -326,18 +326,28 @@ def _field_wide(card, maps, wells, fig):
     return _section("field", "Field-wide numbers", body)
 
 
-def _intervals(card):
+def _intervals(card, maps):
     rows = []
     for t, info in card["targets"].items():
         c = info.get("calibration")
-        if c:
-            rows.append({"target": t, "q10 offset": c["lower"], "q90 offset": c["upper"],
-                         "scaled by local spread": str(c["scaled"]),
+        if c and f"{t}_q10" in maps:
+            q10, q90 = (maps[f"{t}_{q}"].to_numpy().ravel() for q in ("q10", "q90"))
+            ok = np.isfinite(q10) & np.isfinite(q90)
+            if info.get("transform") == "log10":  # permeability: a factor between q10 and q90
+                ratio = q90[ok] / q10[ok]
+                width = f"q90/q10 = {np.median(ratio):.3g} x (10-90 % of nodes: {np.quantile(ratio, 0.1):.3g} to " \
+                        f"{np.quantile(ratio, 0.9):.3g} x)"
+            else:
+                w = q90[ok] - q10[ok]
+                unit = " (fraction)" if t == "porosity" else ""
+                width = f"{np.median(w):.3g}{unit} (10-90 % of nodes: {np.quantile(w, 0.1):.3g} to {np.quantile(w, 0.9):.3g})"
+            rows.append({"target": t, "median width of [q10, q90] on the map": width,
+                         "width varies with the local spread": "yes" if c["scaled"] else "no (constant)",
                          "effective wells": c.get("n_effective_wells") or c["n_effective"],
-                         "spread": info.get("interval_spread") or "none"})
+                         "spread model": info.get("interval_spread") or "none"})
     body = ("<p>q10 and q90 are non-exceedance percentiles: the property has a 10 % chance of being below q10 and a "
-            "10 % chance of being above q90. The trade often reads P10/P90 the other way round (exceedance). The "
-            "offsets come from the matched-CV out-of-fold errors, weighted by the declustering weights, so about "
+            "10 % chance of being above q90. The trade often reads P10/P90 the other way round (exceedance). Its "
+            "width comes from the matched-CV out-of-fold errors, weighted by the declustering weights, so about "
             "80 % of map cells should fall inside [q10, q90].</p>" + (_table(pd.DataFrame(rows)) if rows else ""))
     return _section("intervals", "Uncertainty: the q10-q90 interval", body)
 
