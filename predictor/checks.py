@@ -122,6 +122,12 @@ def write_check(check: DataCheck, json_path: str | Path | None = None, figures: 
         if "facies" in wells:
             table = wells.assign(**{attribute: _at_wells(wells, grid, attribute)})
             written.append(plots.facies_distributions(table, numeric, folder / "facies_distributions.png"))
+        measured = [c for c in ("porosity", "permeability") if c in wells and wells[c].notna().sum() >= 6]
+        if measured:
+            written.append(plots.crossplot(wells, attribute, _at_wells(wells, grid, attribute), measured,
+                                           folder / "crossplot.png"))
+            if not is_volume(grid):  # one value per well; in a volume the lateral semivariogram needs well means
+                written.append(plots.semivariograms(wells, measured, folder / "semivariograms.png"))
         written.append(plots.declustering_figure(check.declustering, folder / "declustering_curve.png"))
         if check.declustering.variable:
             var = check.declustering.variable

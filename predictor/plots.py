@@ -374,3 +374,61 @@ def exceedance_map(maps: xr.Dataset, variable: str, wells: pd.DataFrame | None, 
     _wells_on(ax, wells)
     ax.set_title(maps[variable].attrs.get("long_name", variable), fontsize=10)
     return save(fig, path)
+
+
+def _property(wells: pd.DataFrame, col: str) -> tuple[np.ndarray, str]:
+    """A well property as plotted: permeability as log10 (mD), porosity as a fraction."""
+    v = wells[col].to_numpy(dtype=float)
+    if col == "permeability":
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return np.where(v > 0, np.log10(v), np.nan), "log10 permeability (mD)"
+    return v, "porosity (fraction)" if col == "porosity" else col
+
+
+def crossplot(wells: pd.DataFrame, attribute: str, at_wells: np.ndarray, properties: list[str], path) -> Path:
+    """The attribute at the wells against each property, wells coloured by facies, with the
+    least-squares line of each facies (3 wells or more) and of all wells (dashed)."""
+    fig, axes = plt.subplots(1, len(properties), figsize=(5.2 * len(properties), 4.0), squeeze=False)
+    a = np.asarray(at_wells, float)
+    facies = wells["facies"].astype(str).to_numpy() if "facies" in wells else np.full(len(wells), "all wells")
+    colours = _category_colours(facies)
+    for ax, col in zip(axes[0], properties, strict=True):
+        v, label = _property(wells, col)
+        ok = np.isfinite(a) & np.isfinite(v)
+        groups = [(c, ok & (facies == c)) for c in colours] + [("all wells", ok)]
+        for name, sel in groups:
+            whole = name == "all wells"
+            if not whole:
+                ax.scatter(a[sel], v[sel], s=22, c=colours[name], edgecolor="k", linewidths=0.5, label=name)
+            if sel.sum() >= 3 and np.ptp(a[sel]) > 0:
+                slope, icept = np.polyfit(a[sel], v[sel], 1)
+                xs = np.array([a[sel].min(), a[sel].max()])
+                ax.plot(xs, icept + slope * xs, linestyle="--" if whole else "-", color="k" if whole else colours[name],
+                        linewidth=1.2, label=f"{name}: fit" if whole else None)
+        ax.set_xlabel(f"{attribute} at the wells")
+        ax.set_ylabel(label)
+        ax.legend(fontsize=7)
+    return save(fig, path)
+
+
+def semivariograms(wells: pd.DataFrame, properties: list[str], path) -> Path:
+    """Experimental omnidirectional semivariogram of each property at the wells (points sized by
+    pair count) and the fitted model (line), as kriging and the CV block size use it."""
+    from .variogram import auto_variogram, experimental
+
+    fig, axes = plt.subplots(1, len(properties), figsize=(5.0 * len(properties), 3.8), squeeze=False)
+    x, y = wells["x"].to_numpy(float), wells["y"].to_numpy(float)
+    for ax, col in zip(axes[0], properties, strict=True):
+        v, label = _property(wells, col)
+        ok = np.isfinite(v)
+        exp = experimental(x[ok], y[ok], v[ok], n_lags=12)
+        ax.scatter(exp.lags, exp.gamma, s=10 + 40 * exp.counts / exp.counts.max(), c="tab:blue", label="experimental")
+        model = auto_variogram(x[ok], y[ok], v[ok])
+        h = np.linspace(0, exp.lags.max() * 1.05, 200)
+        ax.plot(h, model(h), "k-", label=f"{model.kind}: nugget {model.nugget:.3g}, sill {model.nugget + model.sill:.3g}, "
+                f"range {model.range:.0f} m")
+        ax.set_xlabel("lag distance (m)")
+        ax.set_ylabel(f"semivariance of {label}")
+        ax.set_ylim(bottom=0)
+        ax.legend(fontsize=7)
+    return save(fig, path)

@@ -167,8 +167,30 @@ def _data(check, fig):
             + "<h3>Summary statistics (all wells)</h3>" + _table(stats)
             + _img(fig / "wells_on_map.png", "wells over the attribute map")
             + (_img(fig / "facies_distributions.png", "distributions per facies")
-               if (fig / "facies_distributions.png").exists() else ""))
+               if (fig / "facies_distributions.png").exists() else "")
+            + _facies_table(check)
+            + (_img(fig / "crossplot.png", "attribute at the wells against porosity and permeability, coloured by "
+                    "facies, with a least-squares line per facies and for all wells (dashed)")
+               if (fig / "crossplot.png").exists() else "")
+            + (_img(fig / "semivariograms.png", "experimental semivariograms at the wells (points sized by pair "
+                    "count) and the fitted models")
+               if (fig / "semivariograms.png").exists() else ""))
     return _section("data", "The data and its checks", body)
+
+
+def _facies_table(check) -> str:
+    """Per-facies statistics of porosity and permeability at the wells (raw, not declustered)."""
+    rows = []
+    for key, columns in check.qc.summary.items():
+        if not key.startswith("facies="):
+            continue
+        for col, s in columns.items():
+            rows.append({"facies": key.split("=", 1)[1], "property": col, "wells": s["count"], "mean": s["mean"],
+                         "q25": s["q25"], "median": s["median"], "q75": s["q75"]})
+    if not rows:
+        return ""
+    return ("<h3>Per facies (wells, not declustered)</h3>"
+            + _table(pd.DataFrame(rows).sort_values(["property", "facies"], kind="stable")))
 
 
 def _bias(check, card, fig):

@@ -75,3 +75,11 @@ def test_at_a_glance_compares_the_chosen_model_with_the_best_baseline():
     assert against_baseline(info).endswith("; within one standard error")
     info["leaderboard"][2] = row("blend", 0.037, False, True)
     assert against_baseline(info) == "no better than regression_kriging (0.037 vs 0.036)"
+
+
+def test_report_has_the_practitioners_plots_and_tables(report):
+    text = report.read_text()
+    assert "Per facies (wells, not declustered)" in text  # per-facies statistics
+    assert "least-squares line per facies" in text  # the attribute-property cross-plot
+    assert "experimental semivariograms at the wells" in text
+    assert "against the best baseline" in text and "median width of [q10, q90] on the map" in text
