@@ -174,6 +174,12 @@ def node_table(ds: xr.Dataset) -> pd.DataFrame:
     return pd.DataFrame(table)
 
 
+def _geographic(x, y) -> bool:
+    """Coordinates that fit longitude/latitude in degrees (|x| <= 180, |y| <= 90)."""
+    x, y = np.asarray(x, float), np.asarray(y, float)
+    return bool(np.nanmax(np.abs(x)) <= 180 and np.nanmax(np.abs(y)) <= 90)
+
+
 def sample_at(ds: xr.Dataset, x: np.ndarray, y: np.ndarray, labels=None,
               method: SampleMethod = "bilinear", drop_outside: bool = False) -> tuple[pd.DataFrame, np.ndarray]:
     """Sample every grid variable at points (x, y).
@@ -213,10 +219,17 @@ def sample_at(ds: xr.Dataset, x: np.ndarray, y: np.ndarray, labels=None,
     kept = ~(outside | gap)
     if problems:
         message = "; ".join(problems)
+        if outside.all():  # every well off the map: most often the two are in different coordinate systems
+            message += (f"; the wells span x {np.nanmin(x):.6g} to {np.nanmax(x):.6g}, y {np.nanmin(y):.6g} to "
+                        f"{np.nanmax(y):.6g}, the grid x {float(ds.x.min()):.6g} to {float(ds.x.max()):.6g}, y "
+                        f"{float(ds.y.min()):.6g} to {float(ds.y.max()):.6g}")
+            if _geographic(x, y) != _geographic(ds.x.to_numpy(), ds.y.to_numpy()):
+                message += ("; one of them looks like longitude/latitude in degrees and the other like projected "
+                            "metres: give both in the same projected CRS")
         if not drop_outside:
             raise InputError(
                 f"wells {message} (grid {ds.attrs.get('source', '')}); fix the coordinates, or pass "
-                "--drop-outside (drop_outside=True) to leave them out"
+                "--drop-outside to leave them out"
             )
         warnings.warn(f"left out wells {message}", PredictorWarning, stacklevel=2)
     out = {}

@@ -100,8 +100,8 @@ def physical_findings(wells: pd.DataFrame, source: str = "wells") -> list[Findin
         flag(np.isinf(phi), "porosity", "is infinite")
     if "permeability" in wells:
         k = wells["permeability"].to_numpy(dtype=float)
-        flag(k <= 0, "permeability", "is zero or negative (permeability in mD must be > 0; "
-             "log10 of it is modelled)")
+        flag(k <= 0, "permeability", "is zero or negative (permeability in mD must be > 0: log10 of it is "
+             "modelled; a value below detection is best given as the detection limit, e.g. 0.001)")
         flag(np.isinf(k), "permeability", "is infinite")
         finite = k[np.isfinite(k) & (k > 0)]
         if finite.size and np.median(finite) < 1e-9:

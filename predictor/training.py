@@ -227,7 +227,9 @@ def _check_inputs(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) 
                          "coordinate columns (--x-column, --y-column)")
     if not is_volume(grid):
         _check_well_positions(wells, source, options)
-    errors = [f for f in physical_findings(wells, source) + grid_findings(grid) if f.severity == "error"]
+    # a property that is not trained on never blocks training (QC still reports it)
+    errors = [f for f in physical_findings(wells, source) + grid_findings(grid) if f.severity == "error"
+              and not (f.column in ("porosity", "permeability") and f.column not in options.targets)]
     if errors:
         raise InputError(errors[0].message + ("" if len(errors) == 1 else f" (and {len(errors) - 1} more problems; "
                                               "run `predictor qc` for the full list)"))
@@ -547,6 +549,8 @@ def _residual_range(wells: pd.DataFrame, grid: xr.Dataset, attrs: list[str], opt
             ok &= y > 0
             y = np.log10(np.where(ok, y, 1.0))
         n = int(ok.sum())
+        if n < 6:  # too few wells on the grid to fit anything (the clear error comes later)
+            return None
         data = FitData(X[ok].reset_index(drop=True), y[ok], np.ones(n), sub[["x", "y"]].to_numpy(float)[ok],
                        np.zeros(n, int))
         resid = pd.Series(y[ok] - Linear(attrs).fit(data).predict(data.X))

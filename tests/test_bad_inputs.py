@@ -109,6 +109,8 @@ TRAIN_CASES = {
     "truncated NetCDF": (lambda t: tr(str(DEMO / "wells.csv"), _bytes(t, (DEMO / "seismic.nc").read_bytes()[:500],
                                                                        "g.nc")), "not a readable NetCDF"),
     "bad fold count": (lambda t: tr(str(DEMO / "wells.csv"), GRID, "--folds", "1"), "n_splits"),
+    "wells in degrees, grid in metres": (lambda t: tr(_wells_with(t, lambda f: f.assign(x=f.x / 1e5, y=f.y / 1e5))),
+                                         "looks like longitude/latitude in degrees"),
     "two wells at one position": (lambda t: tr(_wells_with(t, lambda f: f.assign(
         x=[f.x[1]] + list(f.x[1:]), y=[f.y[1]] + list(f.y[1:])))), "identical coordinates"),
     "kriging neighbourhood below 3": (lambda t: tr(str(DEMO / "wells.csv"), GRID, "--kriging-neighbours", "2"),
@@ -215,8 +217,10 @@ def test_number_of_bad_inputs_tried():
 
 
 def test_common_variations_work(tmp_path):
-    # BOM, CRLF, upper-case X/Y, semicolons with decimal commas, an extra unused column
+    # BOM, CRLF, upper-case X/Y, semicolons with decimal commas, an extra unused column, and 0 mD
+    # (below detection) in permeability, which is not a target here and so must not block training
     frame = pd.read_csv(DEMO / "wells.csv").rename(columns={"x": "X", "y": "Y"}).assign(comment="ok")
+    frame.loc[:2, "permeability"] = 0.0
     text = frame.to_csv(index=False, sep=";").replace(".", ",")
     (tmp_path / "w.csv").write_bytes(("\ufeff" + text).replace("\n", "\r\n").encode("utf-8"))
     assert main(["train", "--wells", str(tmp_path / "w.csv"), "--grid", GRID, "--target", "porosity",
