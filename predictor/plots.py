@@ -153,9 +153,22 @@ def weighted_histograms(values, weights, name: str, path, truth=None) -> Path:
     return save(fig, path)
 
 
-def _wells_on(ax, wells: pd.DataFrame | None):
-    if wells is not None:
-        ax.scatter(wells["x"], wells["y"], s=12, c="white", edgecolor="k", linewidths=0.6, label="wells")
+def _wells_on(ax, wells: pd.DataFrame | None, column: str | None = None, image=None, colours: dict | None = None,
+              log: bool = False):
+    """Wells on a map panel with a dark edge; with ``column``, filled with their own logged value
+    on the panel's colour scale (``image``) or class colour (``colours``), so a misfit shows."""
+    if wells is None:
+        return
+    fill: object = "white"
+    if column and column in wells and colours is not None:
+        fill = [colours.get(str(v), "white") for v in wells[column]]
+    elif column and column in wells and image is not None:
+        v = wells[column].to_numpy(dtype=float)
+        if log:
+            with np.errstate(divide="ignore", invalid="ignore"):
+                v = np.where(v > 0, np.log10(v), np.nan)
+        fill = [image.cmap(image.norm(x)) if np.isfinite(x) else (1, 1, 1, 1) for x in v]
+    ax.scatter(wells["x"], wells["y"], s=18, c=fill, edgecolor="k", linewidths=0.8, label="wells")
 
 
 def facies_maps(maps: xr.Dataset, target: str, wells: pd.DataFrame | None, path) -> Path:
@@ -172,7 +185,7 @@ def facies_maps(maps: xr.Dataset, target: str, wells: pd.DataFrame | None, path)
                      vmax=len(classes) - 0.5)
     bar = fig.colorbar(im, ax=ax, shrink=0.7, ticks=range(len(classes)), location="bottom")
     bar.ax.set_xticklabels(classes, fontsize=8)
-    _wells_on(ax, wells)
+    _wells_on(ax, wells, target, colours=colours)  # each well in the colour of its logged class
     ax.set_title("\n".join(_wrap(maps[target].attrs.get("long_name", f"most probable {target}"), 40)), fontsize=9)
     for ax, cls in zip(axes[0][1:], classes, strict=True):
         im = _background(ax, maps, f"{target}_prob_{cls}", cmap="magma", vmin=0, vmax=1)
@@ -194,10 +207,12 @@ def property_maps(maps: xr.Dataset, target: str, wells: pd.DataFrame | None, pat
     unit = " (log10 mD)" if log else ""
     im = _background(axes[0], shown, "_q50", cmap="viridis")
     fig.colorbar(im, ax=axes[0], shrink=0.7, location="bottom", label=f"{target} q50{unit}")
+    _wells_on(axes[0], wells, target, image=im, log=log)  # the wells' logged values on the map's scale
     im = _background(axes[1], shown, "_width", cmap="cividis")
     fig.colorbar(im, ax=axes[1], shrink=0.7, location="bottom", label=f"q90 - q10{unit}")
-    for ax, title in zip(axes, (f"{target}: median (q50)", f"{target}: 80 % interval width"), strict=True):
-        _wells_on(ax, wells)
+    _wells_on(axes[1], wells)
+    for ax, title in zip(axes, (f"{target}: median (q50), wells filled with their logged value",
+                                f"{target}: 80 % interval width"), strict=True):
         ax.set_title(title, fontsize=10)
     return save(fig, path)
 
