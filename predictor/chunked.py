@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import functools
 import os
+import tempfile
 import warnings
 from collections import deque
 from concurrent.futures import ThreadPoolExecutor
@@ -27,7 +28,7 @@ import xarray as xr
 
 from .bundle import load_bundle
 from .errors import InputError, PredictorWarning
-from .features import halo_cells
+from .features import halo_cells, wide_radii
 from .grid import read_seismic, spacing
 from .io.atomic import atomic_folder, check_target
 from .progress import progress
@@ -49,13 +50,19 @@ def lateral_axes(grid: xr.Dataset) -> tuple[str, str]:
     return ("inline", "crossline") if is_volume(grid) else ("y", "x")
 
 
-def halo(grid: xr.Dataset, spec) -> tuple[int, int]:
-    """Halo (nodes along the first and second lateral axis) a tile needs for exact features."""
+def halo(grid: xr.Dataset, spec, presmoothed: bool = False) -> tuple[int, int]:
+    """Halo (nodes along the first and second lateral axis) a tile needs for exact features;
+    with ``presmoothed``, a map's wide context radii come smoothed beforehand and need none."""
     if is_volume(grid):
         d_il, d_xl = lateral_spacing(grid)
         return halo_cells(spec, d_xl, d_il)
     dx, dy = spacing(grid)
-    return halo_cells(spec, dx, dy)
+    return halo_cells(spec, dx, dy, wide_radii(spec, dx, dy) if presmoothed else None)
+
+
+@functools.lru_cache(maxsize=4)
+def _presmoothed(path: str) -> xr.Dataset:
+    return xr.open_zarr(path, consolidated=False, zarr_format=2)  # once per process, read tile by tile
 
 
 @functools.lru_cache(maxsize=4)
@@ -63,35 +70,38 @@ def _bundle(folder: str):
     return load_bundle(folder)  # once per process: a Dask worker keeps it between tasks
 
 
-def predict_tile(folder: str, grid_path: str, tile: tuple[int, int, int, int],
-                 z_domain: str | None = None, exceed: dict | None = None) -> tuple[tuple, xr.Dataset, bool]:
+def predict_tile(folder: str, grid_path: str, tile: tuple[int, int, int, int], z_domain: str | None = None,
+                 exceed: dict | None = None, smoothed: str | None = None) -> tuple[tuple, xr.Dataset, bool]:
     """Predict one tile (with its halo): its interior, and whether some of it lies outside the
-    feature range seen at the wells."""
+    feature range seen at the wells.  ``smoothed``: a store of the map's wide context radii,
+    smoothed beforehand over the whole map (:func:`predictor.features.smooth_store`)."""
     from .predict import NoValidNodes, predict_maps
 
     bundle = _bundle(folder)
     grid = _open(grid_path, z_domain)
     ay, ax = lateral_axes(grid)
-    hy, hx = halo(grid, bundle.feature_spec)
+    hy, hx = halo(grid, bundle.feature_spec, presmoothed=smoothed is not None)
     y0, y1, x0, x1 = tile
     ya, yb = max(0, y0 - hy), min(grid.sizes[ay], y1 + hy)
     xa, xb = max(0, x0 - hx), min(grid.sizes[ax], x1 + hx)
     part = grid.isel({ay: slice(ya, yb), ax: slice(xa, xb)}).load()
     part.attrs = dict(grid.attrs)
+    wide = _presmoothed(smoothed).isel({ay: slice(ya, yb), ax: slice(xa, xb)}).load() if smoothed else None
     interior = {ay: slice(y0 - ya, y0 - ya + (y1 - y0)), ax: slice(x0 - xa, x0 - xa + (x1 - x0))}
     try:  # no warnings from threads (not thread-safe); one thread per tile: tiles already run side by side
-        inner = predict_maps(bundle, part, warn=False, interior=interior, exceed=exceed, threads=1)
+        inner = predict_maps(bundle, part, warn=False, interior=interior, exceed=exceed, threads=1, smoothed=wide)
     except NoValidNodes:  # a tile in a hole of the survey: its region keeps the store's fill values
         return tile, None, False
     return tile, inner, inner.attrs["extrapolated_share"] > 0  # reported once, at the end
 
 
 def write_tile(folder: str, grid_path: str, tile: tuple[int, int, int, int], store: str,
-               z_domain: str | None = None, exceed: dict | None = None) -> tuple[tuple, bool, bool]:
+               z_domain: str | None = None, exceed: dict | None = None,
+               smoothed: str | None = None) -> tuple[tuple, bool, bool]:
     """Predict one tile and write its interior into its own region of the Zarr ``store``, on the
     thread or Dask worker that predicted it; only (tile, written, extrapolated) travels back, so
     the client never holds map data.  Tiles match the store's chunks: writers never overlap."""
-    tile, part, outside = predict_tile(folder, grid_path, tile, z_domain, exceed)
+    tile, part, outside = predict_tile(folder, grid_path, tile, z_domain, exceed, smoothed)
     if part is None:
         return tile, False, False
     grid = _open(grid_path, z_domain)
@@ -142,8 +152,6 @@ def predict_to_zarr(bundle_dir, grid_path, out, tile: int | None = None, threads
     if tile is not None and tile < 8:
         raise InputError(f"tile size {tile} is too small; use 64 or more nodes a side")
     if Path(grid_path).suffix.lower() in SEGY_SUFFIXES:
-        import tempfile
-
         from .io.netcdf import write_zarr
 
         check_target(out, overwrite)
@@ -163,7 +171,8 @@ def predict_to_zarr(bundle_dir, grid_path, out, tile: int | None = None, threads
     check_space(bundle.card, grid)
     check_exceedance(bundle.card, exceed)
     ay, ax = lateral_axes(grid)
-    hy, hx = halo(grid, bundle.feature_spec)
+    presmooth = not is_volume(grid) and bool(wide_radii(bundle.feature_spec, *spacing(grid)))
+    hy, hx = halo(grid, bundle.feature_spec, presmoothed=presmooth)
     depth = grid.sizes.get("z", 1)
     tile = tile or default_tile(grid)
     need = (tile + 2 * hy) * (tile + 2 * hx) * depth * BYTES_PER_NODE
@@ -178,15 +187,23 @@ def predict_to_zarr(bundle_dir, grid_path, out, tile: int | None = None, threads
                          "smaller --tile" + (" or fewer --threads/--workers" if in_flight > 1 else ""))
     ny, nx = grid.sizes[ay], grid.sizes[ax]
     all_tiles = tiles(ny, nx, tile)
-    with atomic_folder(out, overwrite=overwrite) as tmp:
-        layout = _template(_layout(folder, grid_path, all_tiles, ny, nx, z_domain, exceed), grid, tile)
+    with atomic_folder(out, overwrite=overwrite) as tmp, tempfile.TemporaryDirectory(
+            prefix=f".{out.name}.smoothed.", dir=out.parent) as scratch:
+        smoothed = None
+        if presmooth:  # wide context radii: smoothed once over the whole map, tiles read their part
+            from .features import smooth_store
+
+            wide = wide_radii(bundle.feature_spec, *spacing(grid))
+            smooth_store(grid, bundle.feature_spec, wide, Path(scratch) / "smoothed.zarr")
+            smoothed = str(Path(scratch) / "smoothed.zarr")
+        layout = _template(_layout(folder, grid_path, all_tiles, ny, nx, z_domain, exceed, smoothed), grid, tile)
         crs = crs or grid.attrs.get("crs_wkt")
         layout = cf(layout, crs_to_wkt(crs) if crs else None)
         if "affine" in layout.attrs:  # Zarr attributes are JSON: a plain list
             layout.attrs["affine"] = [float(v) for v in layout.attrs["affine"]]
         layout.to_zarr(tmp, compute=False, mode="w", zarr_format=2)
         extrapolated = 0
-        done = _run(folder, grid_path, all_tiles, str(tmp), threads, workers, scheduler, z_domain, exceed)
+        done = _run(folder, grid_path, all_tiles, str(tmp), threads, workers, scheduler, z_domain, exceed, smoothed)
         for _, _, outside in progress(done, "tiles", total=len(all_tiles)):
             extrapolated += outside
     if extrapolated:
@@ -195,17 +212,18 @@ def predict_to_zarr(bundle_dir, grid_path, out, tile: int | None = None, threads
     return out
 
 
-def _layout(folder, grid_path, all_tiles, ny, nx, z_domain, exceed=None) -> xr.Dataset:
+def _layout(folder, grid_path, all_tiles, ny, nx, z_domain, exceed=None, smoothed=None) -> xr.Dataset:
     """A predicted part that shows the store's layout (variables, dtypes, attributes): a corner
     of a few nodes when it holds data (cheap), else the first tile that does."""
     for part in [(0, min(8, ny), 0, min(8, nx)), *all_tiles]:
-        predicted = predict_tile(folder, grid_path, part, z_domain, exceed)[1]
+        predicted = predict_tile(folder, grid_path, part, z_domain, exceed, smoothed)[1]
         if predicted is not None:
             return predicted
     raise InputError(f"{grid_path}: no node has every feature the model needs")
 
 
-def _run(folder, grid_path, all_tiles, store, threads, workers, scheduler, z_domain=None, exceed=None):
+def _run(folder, grid_path, all_tiles, store, threads, workers, scheduler, z_domain=None, exceed=None,
+         smoothed=None):
     """Predict and write every tile into ``store`` on local threads or a Dask cluster; yield
     each tile's (tile, written, extrapolated) as it finishes."""
     if workers or scheduler:
@@ -217,7 +235,7 @@ def _run(folder, grid_path, all_tiles, store, threads, workers, scheduler, z_dom
         try:
             n = len(all_tiles)
             futures = client.map(write_tile, [folder] * n, [grid_path] * n, all_tiles, [store] * n,
-                                 [z_domain] * n, [exceed] * n, pure=False)
+                                 [z_domain] * n, [exceed] * n, [smoothed] * n, pure=False)
             for future in as_completed(futures):
                 yield future.result()
         finally:
@@ -230,7 +248,7 @@ def _run(folder, grid_path, all_tiles, store, threads, workers, scheduler, z_dom
         # a bounded queue of tiles keeps the bookkeeping small however many tiles there are
         pending = deque()
         for t in all_tiles:
-            pending.append(pool.submit(write_tile, folder, grid_path, t, store, z_domain, exceed))
+            pending.append(pool.submit(write_tile, folder, grid_path, t, store, z_domain, exceed, smoothed))
             if len(pending) >= 2 * n:
                 yield pending.popleft().result()
         while pending:

@@ -66,6 +66,7 @@ class FeatureSpec:
 
 TRUNCATE = 4.0  # kernel half-width in standard deviations (scipy.ndimage's default)
 FFT_TAPS = 129  # longer kernels run by FFT: the same sums to rounding, at a cost independent of the radius
+WIDE_HALO = 256  # nodes: a wider halo makes tiles mostly halo, so tiled maps smooth such radii beforehand
 
 
 def gaussian(values: np.ndarray, sigma_cells) -> np.ndarray:
@@ -93,6 +94,48 @@ def gaussian(values: np.ndarray, sigma_cells) -> np.ndarray:
     return out
 
 
+def smooth_store(grid: xr.Dataset, spec: FeatureSpec, radii: list[float], store, block: int = 512) -> xr.Dataset:
+    """The smoothed attributes of ``radii`` over the whole of a (lazily opened) map, written to the
+    Zarr ``store`` without holding the map: the Gaussian is separable, so it runs along y over
+    blocks of columns, then along x over blocks of rows, as :func:`_smooth` does in memory (the
+    same sums, to rounding).  Returns the store, opened lazily."""
+    import zarr
+
+    dx, dy = spacing(grid)
+    ny, nx = grid.sizes["y"], grid.sizes["x"]
+    root = zarr.open_group(str(store), mode="w", zarr_format=2)
+    chunks = (min(block, ny), min(block, nx))
+    names = []
+    for attr in spec.attributes:
+        for radius in radii:
+            sigma = (radius / dy, radius / dx)
+            name = f"{attr}_smooth{radius:g}m"
+            parts = {k: root.create_array(f"{name}.{k}", shape=(ny, nx), chunks=chunks, dtype="f8")
+                     for k in ("num", "den")}
+            any_missing = False
+            for c0 in range(0, nx, block):  # along y, a block of whole columns at a time
+                values = grid[attr].isel(x=slice(c0, c0 + block)).to_numpy().astype(float)
+                valid = np.isfinite(values)
+                any_missing |= not valid.all()
+                parts["num"][:, c0:c0 + block] = gaussian(np.where(valid, values, 0.0), (sigma[0], 0.0))
+                parts["den"][:, c0:c0 + block] = gaussian(valid.astype(float), (sigma[0], 0.0))
+            out = root.create_array(name, shape=(ny, nx), chunks=chunks, dtype="f8", fill_value=np.nan,
+                                    dimension_names=None, attributes={"_ARRAY_DIMENSIONS": ["y", "x"]})
+            for r0 in range(0, ny, block):  # then along x, a block of whole rows at a time
+                num = gaussian(parts["num"][r0:r0 + block, :], (0.0, sigma[1]))
+                values = grid[attr].isel(y=slice(r0, r0 + block)).to_numpy().astype(float)
+                if any_missing:
+                    den = gaussian(parts["den"][r0:r0 + block, :], (0.0, sigma[1]))
+                    with np.errstate(invalid="ignore", divide="ignore"):
+                        num = num / den
+                out[r0:r0 + block, :] = np.where(np.isfinite(values), num, np.nan)
+            for k in ("num", "den"):
+                del root[f"{name}.{k}"]
+            names.append(name)
+    smoothed = xr.open_zarr(str(store), consolidated=False, zarr_format=2)
+    return smoothed.assign_coords(x=grid.x.to_numpy(), y=grid.y.to_numpy())[names]
+
+
 def _smooth(values: np.ndarray, sigma_cells) -> np.ndarray:
     """Gaussian smoothing that ignores NaN nodes (normalised convolution)."""
     valid = np.isfinite(values)
@@ -105,17 +148,19 @@ def _smooth(values: np.ndarray, sigma_cells) -> np.ndarray:
     return np.where(valid, out, np.nan)
 
 
-def build_features(grid: xr.Dataset, spec: FeatureSpec, threads: int | None = None) -> xr.Dataset:
+def build_features(grid: xr.Dataset, spec: FeatureSpec, threads: int | None = None,
+                   smoothed: xr.Dataset | None = None) -> xr.Dataset:
     """Every feature of ``spec`` as a variable on the grid or volume (same dims and coordinates).
 
     ``threads`` (default: every core) run the FFTs of long smoothing kernels; the values do
-    not depend on it.
+    not depend on it.  ``smoothed`` (maps) holds ``<attribute>_smooth<R>m`` variables already
+    smoothed over the whole grid, on the same nodes as ``grid`` (a tile's part of them).
     """
     with scipy.fft.set_workers(max(1, threads or os.cpu_count() or 1)):
-        return _build_features(grid, spec)
+        return _build_features(grid, spec, smoothed)
 
 
-def _build_features(grid: xr.Dataset, spec: FeatureSpec) -> xr.Dataset:
+def _build_features(grid: xr.Dataset, spec: FeatureSpec, smoothed: xr.Dataset | None = None) -> xr.Dataset:
     missing = [a for a in spec.attributes if a not in grid.data_vars]
     if missing:
         raise InputError(
@@ -133,8 +178,12 @@ def _build_features(grid: xr.Dataset, spec: FeatureSpec) -> xr.Dataset:
         values = grid[attr].to_numpy().astype(float)
         out[attr] = values
         for radius in spec.context_radii:
-            smooth = _smooth(values, (radius / dy, radius / dx))
-            out[f"{attr}_smooth{radius:g}m"] = smooth
+            name = f"{attr}_smooth{radius:g}m"
+            if smoothed is not None and name in smoothed:
+                smooth = smoothed[name].to_numpy()
+            else:
+                smooth = _smooth(values, (radius / dy, radius / dx))
+            out[name] = smooth
             out[f"{attr}_contrast{radius:g}m"] = values - smooth
         if spec.gradient:
             gy, gx = np.gradient(values, dy, dx)
@@ -188,13 +237,21 @@ def _volume_features(vol: xr.Dataset, spec: FeatureSpec) -> xr.Dataset:
 TRUNCATE = 4.0  # scipy's default Gaussian truncation, in standard deviations
 
 
-def halo_cells(spec: FeatureSpec, dx: float, dy: float) -> tuple[int, int]:
-    """Nodes of context a tile needs on each side so its features equal those of the whole grid."""
+def halo_cells(spec: FeatureSpec, dx: float, dy: float, skip: list[float] | None = None) -> tuple[int, int]:
+    """Nodes of context a tile needs on each side so its features equal those of the whole grid
+    (``skip``: context radii smoothed beforehand over the whole grid, which need none)."""
     hy = hx = 1 if spec.gradient else 0
     for radius in spec.context_radii:
+        if radius in (skip or []):
+            continue
         hy = max(hy, int(TRUNCATE * radius / dy + 0.5) + 1)
         hx = max(hx, int(TRUNCATE * radius / dx + 0.5) + 1)
     return hy, hx
+
+
+def wide_radii(spec: FeatureSpec, dx: float, dy: float) -> list[float]:
+    """Context radii whose halo would exceed ``WIDE_HALO`` nodes: a tiled map smooths them beforehand."""
+    return [r for r in spec.context_radii if TRUNCATE * r / min(dx, dy) > WIDE_HALO]
 
 
 def location_features(names) -> list[str]:

@@ -92,7 +92,8 @@ def check_exceedance(card: dict, exceed: dict[str, list] | None) -> None:
 
 def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int = CHUNK_ROWS,
                  warn: bool = True, interior: dict | None = None,
-                 exceed: dict[str, list] | None = None, threads: int | None = None) -> xr.Dataset:
+                 exceed: dict[str, list] | None = None, threads: int | None = None,
+                 smoothed: xr.Dataset | None = None) -> xr.Dataset:
     """Predict every target of the bundle on every valid node of ``grid``.
 
     ``exceed`` (target -> cutoffs, in the target's units) adds P(target > cutoff) per node,
@@ -103,14 +104,15 @@ def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int 
     The share of nodes whose features lie outside the range seen at the wells is kept in
     ``attrs["extrapolated_share"]`` and, with ``warn``, reported as a warning.  ``interior``
     (dim -> slice) predicts only that part, with features built on the whole of ``grid``: a
-    tile's halo gives context to the features and is not predicted.
+    tile's halo gives context to the features and is not predicted; ``smoothed`` carries a
+    tile's part of its wide context radii, smoothed beforehand over the whole map.
     """
     if not isinstance(bundle, Bundle):
         bundle = load_bundle(bundle)
     card = bundle.card
     check_space(card, grid)
     check_exceedance(card, exceed)
-    features = build_features(grid, bundle.feature_spec, threads)
+    features = build_features(grid, bundle.feature_spec, threads, smoothed)
     if interior:
         features, grid = features.isel(interior), grid.isel(interior)
     names = card["features"]["names"]

@@ -144,3 +144,33 @@ def test_dask_workers_write_their_own_tiles_and_the_client_stays_flat(bundle, tm
     # tile's maps would take if they came back to it (they did before workers wrote their own)
     assert peaks["large"] < 1.5 * peaks["small"] + 1e6, peaks
     assert peaks["large"] < 0.5 * tile_bytes, (peaks, tile_bytes)
+
+
+def test_wide_context_radius_is_smoothed_beforehand_and_tiles_still_match(tmp_path, monkeypatch):
+    # a 1 500 m radius on 25 m nodes needs a halo of 241 nodes at full width; with WIDE_HALO set
+    # below it, tiles read the radius smoothed once over the whole map and keep a small halo
+    import predictor.features as features
+    from predictor.chunked import halo, predict_to_zarr
+
+    folder = tmp_path / "bundle"
+    assert main(["--quiet", "train", "--wells", str(DEMO / "wells.csv"), "--grid", GRID_NC, "--target", "porosity",
+                 "--context-radius", "100", "--context-radius", "1500", "--out", str(folder)]) == 0
+    grid = read_grid(GRID_NC)
+    with pytest.warns(PredictorWarning):
+        ref = predict_maps(folder, grid)
+    spec = load_bundle_spec(folder)
+    monkeypatch.setattr(features, "WIDE_HALO", 50)
+    assert features.wide_radii(spec, 25.0, 25.0) == [1500.0]
+    assert max(halo(grid, spec, presmoothed=True)) < 50 < max(halo(grid, spec))
+    with pytest.warns(PredictorWarning):
+        predict_to_zarr(folder, GRID_NC, tmp_path / "maps.zarr", tile=32)
+    tiled = xr.open_zarr(tmp_path / "maps.zarr").load()
+    for var in ref.data_vars:
+        np.testing.assert_allclose(tiled[var].to_numpy(), ref[var].to_numpy(), rtol=1e-10, atol=1e-12, err_msg=var)
+    assert not list(tmp_path.glob(".maps.zarr.smoothed.*"))  # the scratch store is gone
+
+
+def load_bundle_spec(folder):
+    from predictor.bundle import load_bundle
+
+    return load_bundle(folder).feature_spec
