@@ -65,7 +65,7 @@ def build_parser() -> argparse.ArgumentParser:
                                    epilog=f"example:\n  {example}", formatter_class=argparse.RawDescriptionHelpFormatter)
 
     qc = sub_parser("qc", "check wells and grid: statistics, non-physical values, duplicates, "
-                        "outliers per facies, drilling bias, declustering")
+                    "outliers per facies, drilling bias, declustering")
     _wells_options(qc)
     qc.add_argument("--json", help="write the full QC record as JSON here")
     qc.add_argument("--figures", help="write QC figures (PNG) into this folder")
@@ -142,7 +142,7 @@ def build_parser() -> argparse.ArgumentParser:
     pr.add_argument("--overwrite", action="store_true", help="replace an existing maps file")
 
     ex = sub_parser("explain", "SHAP importance, summary and dependence plots, SHAP at the wells and "
-                        "contribution maps for every target of a bundle")
+                    "contribution maps for every target of a bundle")
     ex.add_argument("bundle", help="bundle folder written by `predictor train`")
     ex.add_argument("--grid", help="grid for contribution maps (optional; a volume is shown at the wells' middle z)")
     _volume_options(ex)
