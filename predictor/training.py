@@ -225,8 +225,8 @@ def _check_inputs(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) 
         raise InputError(f"{source}: all {len(wells)} rows sit at one position (x {spots.x.iloc[0]:g}, y "
                          f"{spots.y.iloc[0]:g}); spatial CV and mapping need wells at several positions: check the "
                          "coordinate columns (--x-column, --y-column)")
-    if not is_volume(grid):
-        _check_well_positions(wells, source, options)
+    if not is_volume(grid) and any(task_of(wells, t) == "regression" for t in options.targets):
+        _check_well_positions(wells, source, options)  # numeric targets bring kriging (baselines, well ties)
     # a property that is not trained on never blocks training (QC still reports it)
     errors = [f for f in physical_findings(wells, source) + grid_findings(grid) if f.severity == "error"
               and not (f.column in ("porosity", "permeability") and f.column not in options.targets)]
