@@ -124,7 +124,7 @@ def build_parser() -> argparse.ArgumentParser:
     pr.add_argument("bundle", help="bundle folder written by `predictor train`")
     pr.add_argument("--grid", required=True, help="map or volume with the attributes the bundle was trained on")
     _volume_options(pr)
-    pr.add_argument("--out", required=True, help="maps file: .csv, .nc (CF NetCDF), .tif (GeoTIFF), or .zarr "
+    pr.add_argument("--out", required=True, help="maps file: .csv, .nc (CF NetCDF), .tif (GeoTIFF; class codes in <stem>_classes.tif), or .zarr "
                     "(tile by tile with bounded memory, for grids larger than memory); volumes: .csv, .nc, .zarr, "
                     ".sgy (one SEG-Y file per output variable)")
     pr.add_argument("--tile", type=int, help="with .zarr: tile side in nodes or traces (default 512 for maps; "

@@ -30,9 +30,12 @@ def test_geotiff_round_trips_coordinates_bounds_and_crs(tmp_path):
         # node-centred grid: the raster's edges sit half a cell outside the outer nodes
         assert src.bounds == pytest.approx((512000 - 12.5, 7204000 - 25.0, 512125 + 12.5, 7204150 + 25.0))
         assert src.crs.to_epsg() == 32631
-        assert list(src.descriptions) == ["porosity", "facies"]
-        assert src.tags(2)["flag_meanings"] == "sand shale silt" and src.tags(2)["flag_values"] == "0 1 2"
-        assert src.units[0] == "1" and not src.units[1]  # porosity is a fraction; the facies codes have no unit
+        assert list(src.descriptions) == ["porosity"] and src.dtypes == ("float32",)
+        assert src.units[0] == "1"  # porosity is a fraction
+    with rasterio.open(tmp_path / "m_classes.tif") as src:  # class codes as integers, in their own file
+        assert list(src.descriptions) == ["facies"] and src.dtypes == ("int16",) and src.nodata == -1
+        assert src.tags(1)["flag_meanings"] == "sand shale silt" and src.tags(1)["flag_values"] == "0 1 2"
+        assert not src.units[0] and src.read(1)[::-1][0, 0] == -1  # codes have no unit; -1 where empty
     back = read_geotiff(path)
     np.testing.assert_allclose(back.x, maps.x)
     np.testing.assert_allclose(back.y, maps.y)
@@ -63,8 +66,14 @@ def test_predict_to_geotiff(tmp_path):
                  "--target", "porosity", "--out", str(tmp_path / "b")]) == 0
     assert main(["predict", str(tmp_path / "b"), "--grid", str(DEMO / "seismic.csv"), "--crs", "EPSG:32631",
                  "--out", str(tmp_path / "m.tif")]) == 0
-    with rasterio.open(tmp_path / "m.tif") as src:
-        assert src.count == 4 and src.crs.to_epsg() == 32631 and src.width == 120 and src.height == 100
+    with rasterio.open(tmp_path / "m.tif") as src:  # values: porosity, q10, q90 as float32
+        assert src.count == 3 and src.crs.to_epsg() == 32631 and src.width == 120 and src.height == 100
+        assert set(src.dtypes) == {"float32"} and src.descriptions == ("porosity", "porosity_q10", "porosity_q90")
+    # class codes and flags as integers beside it (GDAL reads one data type per file)
+    with rasterio.open(tmp_path / "m_classes.tif") as src:
+        assert src.count == 1 and src.dtypes == ("int16",) and src.nodata == -1 and src.crs.to_epsg() == 32631
+        assert src.descriptions == ("porosity_applicable",) and src.tags(1)["flag_meanings"] == "outside inside"
+        assert set(np.unique(src.read(1))) <= {-1, 0, 1} and (src.read(1) == 1).mean() > 0.5
     assert main(["predict", str(tmp_path / "b"), "--grid", str(DEMO / "seismic.csv"), "--crs", "EPSG:999999",
                  "--out", str(tmp_path / "bad.tif")]) == 2
     assert not (tmp_path / "bad.tif").exists()
