@@ -93,6 +93,8 @@ def bias_figure(at_wells, over_map, attribute: str, verdict: str, path) -> Path:
     h.set_xlabel(attribute)
     h.set_ylabel("density")
     h.legend(fontsize=8)
+    for ax in (h, c):  # impedance values are five digits wide: a few ticks, so the labels never touch
+        ax.xaxis.set_major_locator(matplotlib.ticker.MaxNLocator(5))
     for values, colour, name in ((b, "grey", "map"), (a, "tab:red", "wells")):
         s = np.sort(values)
         c.step(s, np.arange(1, s.size + 1) / s.size, color=colour, label=name, where="post")

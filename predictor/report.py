@@ -185,7 +185,8 @@ def _facies_table(check) -> str:
         if not key.startswith("facies="):
             continue
         for col, s in columns.items():
-            rows.append({"facies": key.split("=", 1)[1], "property": col, "wells": s["count"], "mean": s["mean"],
+            label = {"porosity": "porosity (fraction)", "permeability": "permeability (mD)"}.get(col, col)
+            rows.append({"facies": key.split("=", 1)[1], "property": label, "wells": s["count"], "mean": s["mean"],
                          "q25": s["q25"], "median": s["median"], "q75": s["q75"]})
     if not rows:
         return ""
