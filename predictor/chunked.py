@@ -171,8 +171,8 @@ def predict_to_zarr(bundle_dir, grid_path, out, tile: int | None = None, threads
     check_space(bundle.card, grid)
     check_exceedance(bundle.card, exceed)
     ay, ax = lateral_axes(grid)
-    presmooth = not is_volume(grid) and bool(wide_radii(bundle.feature_spec, *spacing(grid)))
-    hy, hx = halo(grid, bundle.feature_spec, presmoothed=presmooth)
+    wide = [] if is_volume(grid) else wide_radii(bundle.feature_spec, *spacing(grid))
+    hy, hx = halo(grid, bundle.feature_spec, presmoothed=bool(wide))
     depth = grid.sizes.get("z", 1)
     tile = tile or default_tile(grid)
     need = (tile + 2 * hy) * (tile + 2 * hx) * depth * BYTES_PER_NODE
@@ -190,10 +190,9 @@ def predict_to_zarr(bundle_dir, grid_path, out, tile: int | None = None, threads
     with atomic_folder(out, overwrite=overwrite) as tmp, tempfile.TemporaryDirectory(
             prefix=f".{out.name}.smoothed.", dir=out.parent) as scratch:
         smoothed = None
-        if presmooth:  # wide context radii: smoothed once over the whole map, tiles read their part
+        if wide:  # wide context radii: smoothed once over the whole map, tiles read their part
             from .features import smooth_store
 
-            wide = wide_radii(bundle.feature_spec, *spacing(grid))
             smooth_store(grid, bundle.feature_spec, wide, Path(scratch) / "smoothed.zarr")
             smoothed = str(Path(scratch) / "smoothed.zarr")
         layout = _template(_layout(folder, grid_path, all_tiles, ny, nx, z_domain, exceed, smoothed), grid, tile)

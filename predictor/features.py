@@ -74,7 +74,7 @@ def gaussian(values: np.ndarray, sigma_cells) -> np.ndarray:
 
     The kernel is scipy.ndimage.gaussian_filter1d's (truncated at ``TRUNCATE`` sd); short
     kernels run through it, long ones (a context radius of many nodes) as an FFT convolution
-    of the edge-padded array, which agrees with it to rounding (tests/test_models.py).
+    of the edge-padded array, which agrees with it to rounding (tests/test_features.py).
     """
     out = np.asarray(values, dtype=float)
     for axis, sigma in enumerate(sigma_cells):
@@ -110,26 +110,27 @@ def smooth_store(grid: xr.Dataset, spec: FeatureSpec, radii: list[float], store,
         for radius in radii:
             sigma = (radius / dy, radius / dx)
             name = f"{attr}_smooth{radius:g}m"
-            parts = {k: root.create_array(f"{name}.{k}", shape=(ny, nx), chunks=chunks, dtype="f8")
-                     for k in ("num", "den")}
+            parts = {k: root.create_array(f"{name}.{k}", shape=(ny, nx), chunks=chunks, dtype=dtype)
+                     for k, dtype in (("num", "f8"), ("den", "f8"), ("valid", "u1"))}
             any_missing = False
             for c0 in range(0, nx, block):  # along y, a block of whole columns at a time
                 values = grid[attr].isel(x=slice(c0, c0 + block)).to_numpy().astype(float)
                 valid = np.isfinite(values)
                 any_missing |= not valid.all()
+                parts["valid"][:, c0:c0 + block] = valid  # pass 2 masks with it instead of reading the map again
                 parts["num"][:, c0:c0 + block] = gaussian(np.where(valid, values, 0.0), (sigma[0], 0.0))
                 parts["den"][:, c0:c0 + block] = gaussian(valid.astype(float), (sigma[0], 0.0))
             out = root.create_array(name, shape=(ny, nx), chunks=chunks, dtype="f8", fill_value=np.nan,
-                                    dimension_names=None, attributes={"_ARRAY_DIMENSIONS": ["y", "x"]})
+                                    attributes={"_ARRAY_DIMENSIONS": ["y", "x"]})
             for r0 in range(0, ny, block):  # then along x, a block of whole rows at a time
                 num = gaussian(parts["num"][r0:r0 + block, :], (0.0, sigma[1]))
-                values = grid[attr].isel(y=slice(r0, r0 + block)).to_numpy().astype(float)
+                valid = parts["valid"][r0:r0 + block, :].astype(bool)
                 if any_missing:
                     den = gaussian(parts["den"][r0:r0 + block, :], (0.0, sigma[1]))
                     with np.errstate(invalid="ignore", divide="ignore"):
                         num = num / den
-                out[r0:r0 + block, :] = np.where(np.isfinite(values), num, np.nan)
-            for k in ("num", "den"):
+                out[r0:r0 + block, :] = np.where(valid, num, np.nan)
+            for k in parts:
                 del root[f"{name}.{k}"]
             names.append(name)
     smoothed = xr.open_zarr(str(store), consolidated=False, zarr_format=2)

@@ -116,14 +116,11 @@ def facies_distributions(wells: pd.DataFrame, columns: list[str], path) -> Path:
     classes = sorted(wells["facies"].dropna().astype(str).unique())
     fig, axes = plt.subplots(1, len(columns), figsize=(4.2 * len(columns), 3.8), squeeze=False)
     for ax, col in zip(axes[0], columns, strict=False):
-        data = []
-        for cl in classes:
-            v = wells.loc[wells["facies"].astype(str) == cl, col].to_numpy(dtype=float)
-            if col == "permeability":
-                v = np.log10(v[v > 0])
-            data.append(v[np.isfinite(v)])
+        v, label = _property(wells, col)
+        facies = wells["facies"].astype(str).to_numpy()
+        data = [v[(facies == cl) & np.isfinite(v)] for cl in classes]
         ax.boxplot(data, tick_labels=classes, whis=1.5)
-        ax.set_title("log10 permeability (mD)" if col == "permeability" else col, fontsize=10)
+        ax.set_title(label, fontsize=10)
         ax.set_xlabel("facies")
     return save(fig, path)
 

@@ -129,7 +129,7 @@ def textual_header(ds: xr.Dataset, var: str, z: np.ndarray) -> str:
     lines = ["PREDICTOR OUTPUT VOLUME - A PREDICTED VOLUME IS A MODEL, NOT A MEASUREMENT",
              f"VARIABLE: {var}",
              f"MEANING: {attrs.get('long_name', var)}; UNITS: {attrs.get('units') or 'NONE GIVEN'}",
-             None,  # the z domain line, written with TEXT_DOMAIN
+             f"Z DOMAIN: {domain}",  # line C 4: read back by read_segy (TEXT_DOMAIN)
              f"SAMPLES: {z.size}, FIRST {z[0]:g} {z_units}, INTERVAL {interval:g} {z_units} (HEADER X 1000)",
              f"CRS: {_crs_label(ds.attrs.get('crs_wkt'))}",
              "INLINE BYTES 189-192, CROSSLINE 193-196, CDP X 181-184, CDP Y 185-188",
@@ -138,18 +138,8 @@ def textual_header(ds: xr.Dataset, var: str, z: np.ndarray) -> str:
              "MISSING SAMPLES WRITTEN AS 0; FLAGS AND CLASS CODES AS NUMBERS (SEE NETCDF)",
              f"BUNDLE: {ds.attrs.get('bundle', '')}; GRID: {ds.attrs.get('grid', '')}",
              "DRILLING, RESERVES AND SAFETY DECISIONS REST WITH QUALIFIED PROFESSIONALS"]
-    text = []
-    for k in range(40):
-        if k == 3:
-            body = f"Z DOMAIN: {domain}"
-        elif k == 38:
-            body = "SEG-Y REV 1.0"
-        elif k == 39:
-            body = "END TEXTUAL HEADER"
-        else:
-            body = lines[k] if k < len(lines) else ""
-        text.append(_ascii(f"C{k + 1:2d} {body}")[:80].ljust(80))
-    return "".join(text)
+    bodies = lines + [""] * (38 - len(lines)) + ["SEG-Y REV 1.0", "END TEXTUAL HEADER"]
+    return "".join(_ascii(f"C{k + 1:2d} {body}")[:80].ljust(80) for k, body in enumerate(bodies))
 
 
 def write_segy(ds: xr.Dataset, var: str, target: str | Path, overwrite: bool = True) -> Path:
