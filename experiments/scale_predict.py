@@ -50,11 +50,11 @@ def boosters(model) -> list:
     if isinstance(model, LightGBM):
         return [(model.booster_, model.features)]
     if isinstance(model, WellTies):
-        return boosters(model.base)
+        return boosters(model.base_)
     if isinstance(model, FaciesMixture):
         return boosters(model.classifier_)
     if isinstance(model, Blend):
-        return [b for m, w in zip(model.members, model.weights, strict=True) if w > 0 for b in boosters(m)]
+        return [b for m, w in zip(model.members_, model.weights_, strict=True) if w > 0 for b in boosters(m)]
     return []
 
 

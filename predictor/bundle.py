@@ -90,7 +90,7 @@ def model_card(trained, inputs: dict | None = None) -> dict:
         "options": trained.options.to_dict(),
         "space": trained.space,
         "features": {"spec": trained.feature_spec.to_dict(), "names": trained.feature_names,
-                     "training_ranges": trained.training_ranges},
+                     "training_ranges": trained.training_ranges, "attribute_kinds": trained.attribute_kinds},
         "declustering": trained.declustering,
         "naive": trained.statistics["naive"],
         "declustered": trained.statistics["declustered"],

@@ -151,10 +151,12 @@ def _at_wells(wells: pd.DataFrame, grid: xr.Dataset, var: str) -> np.ndarray:
 
 def check_files(wells_path, grid_path, json_path=None, figures=None, porosity_percent: bool = False,
                 x: str | None = None, y: str | None = None, tolerance: float = 1.0, z: str | None = None,
-                z_domain: str | None = None, segy_name: str | None = None) -> DataCheck:
-    """Read the files, run :func:`check_data` and write the outputs."""
-    wells = read_wells(wells_path, x=x, y=y, z=z, porosity_percent=porosity_percent)
-    grid = read_seismic(grid_path, z_domain=z_domain, name=segy_name)
+                z_domain: str | None = None, segy_name: str | None = None,
+                roles: dict[str, str] | None = None, kinds: dict[str, str] | None = None) -> DataCheck:
+    """Read the files, run :func:`check_data` and write the outputs (``roles``: see
+    :func:`predictor.io.tables.read_wells`; ``kinds``: :func:`predictor.grid.set_attribute_kinds`)."""
+    wells = read_wells(wells_path, x=x, y=y, z=z, porosity_percent=porosity_percent, roles=roles)
+    grid = read_seismic(grid_path, z_domain=z_domain, name=segy_name, kinds=kinds)
     if is_volume(grid) and "z" not in wells:
         raise InputError(f"{wells_path}: a volume needs wells as samples with z (depth or two-way time): add a z, "
                          "depth or twt column, one row per sample")

@@ -25,6 +25,14 @@ def _wells_options(p: argparse.ArgumentParser) -> None:
                    "automatically (z, depth, tvd, tvdss, twt, time)")
     _volume_options(p)
     p.add_argument("--porosity-percent", action="store_true", help="porosity is given in percent: divide by 100")
+    p.add_argument("--attribute-kind", action="append", type=_kind_pair, metavar="ATTR=KIND",
+                   help="what a grid attribute is: impedance, velocity, density (positive), amplitude (signed) or "
+                   "other (e.g. --attribute-kind rel_ai=amplitude; repeatable); default: guessed from the name. "
+                   "The positivity and units checks and the rock-physics sign check follow it")
+    for role, example in (("porosity", "PHIT"), ("permeability", "KLOGH"), ("facies", "LITHO")):
+        p.add_argument(f"--{role}-column", metavar="COLUMN",
+                       help=f"the wells column that holds {role} (e.g. {example}), when it is not named {role} or a "
+                       "common mnemonic; its checks, units and transform follow")
 
 
 def _volume_options(p: argparse.ArgumentParser) -> None:
@@ -35,19 +43,26 @@ def _volume_options(p: argparse.ArgumentParser) -> None:
                    help="(SEG-Y) name of the attribute the file holds, as the model knows it (default amplitude)")
 
 
-def _monotone(text: str) -> tuple[str, int]:
-    """``ATTR:-1`` or ``ATTR:1`` for --monotone."""
-    name, _, direction = text.rpartition(":")
-    if not name or direction not in ("-1", "1", "+1"):
-        raise argparse.ArgumentTypeError(f"{text!r}: give an attribute and a direction, e.g. impedance:-1 "
-                                         "(non-increasing) or impedance:1 (non-decreasing)")
-    return name, int(direction)
+def _kind_pair(text: str) -> tuple[str, str]:
+    """``ATTR=KIND`` for --attribute-kind."""
+    name, _, kind = text.partition("=")
+    if not name or not kind:
+        raise argparse.ArgumentTypeError(f"{text!r}: give an attribute and its kind, e.g. rel_ai=amplitude")
+    return name, kind
+
+
+def _kinds(args) -> dict[str, str]:
+    return dict(args.attribute_kind or [])
+
+
+def _roles(args) -> dict[str, str]:
+    """The wells columns named for the property roles (--porosity-column ...)."""
+    return {role: getattr(args, f"{role}_column") for role in ("porosity", "permeability", "facies")
+            if getattr(args, f"{role}_column")}
 
 
 def build_parser() -> argparse.ArgumentParser:
-    from .cv_design import DESIGNS
-    from .field_wide import MAP_RULES
-    from .kriging import GLOBAL_WELLS, NEIGHBOURS
+    from .options import add_arguments
     from .training import TrainOptions
 
     parser = argparse.ArgumentParser(prog="predictor", description=__doc__.splitlines()[0])
@@ -74,8 +89,6 @@ def build_parser() -> argparse.ArgumentParser:
 
     tr = sub_parser("train", "train facies/porosity/permeability models with spatial CV; write a bundle")
     _wells_options(tr)
-    tr.add_argument("--target", action="append", required=True,
-                    help="well column to model (repeat for several: --target porosity --target facies)")
     tr.add_argument("--out", required=True, help="bundle folder to write (refused if it exists, see --overwrite)")
     tr.add_argument("--overwrite", action="store_true", help="replace an existing bundle folder")
     tr.add_argument("--attribute", action="append", help="grid attribute to use as a feature (default: all)")
@@ -88,37 +101,7 @@ def build_parser() -> argparse.ArgumentParser:
     tr.add_argument("--z-trend", action="store_true", help="(volumes) add z itself as a feature (compaction trend)")
     tr.add_argument("--location", action="store_true",
                     help="add coordinate features (off by default: they let a model memorise the wells)")
-    tr.add_argument("--folds", type=int, default=5, help="number of spatial CV folds (default 5)")
-    tr.add_argument("--block-size", type=float, help="CV block side in metres (default: fitted variogram range)")
-    tr.add_argument("--block-angle", type=float, default=0.0, help="rotation of the CV blocks in degrees")
-    tr.add_argument("--cv", choices=list(DESIGNS), default="matched",
-                    help="fold design: matched to the map's prediction distances (default, kNNDM), nndm "
-                    "(leave-one-out matched to the map, for small well sets), blocks (block k-fold), buffered "
-                    "(leave-one-out with the block size as exclusion radius) or random (contrast only)")
-    tr.add_argument("--declustering", choices=["cell", "nearest_node", "none"], default="cell",
-                    help="declustering weights used as sample weights and score weights (default cell); "
-                    "declustered statistics always use nearest-node weights")
-    tr.add_argument("--monotone", action="append", type=_monotone, metavar="ATTR:DIR",
-                    help="also try LightGBM constrained in this attribute: -1 non-increasing, 1 non-decreasing "
-                    "(e.g. --monotone impedance:-1; repeatable)")
-    tr.add_argument("--well-ties", choices=["auto", "always", "never"], default="auto",
-                    help="krige out-of-fold residuals onto the map: when CV shows it helps (auto), always, never")
-    tr.add_argument("--interval-spread", choices=["none", "features", "kriging"], default="features",
-                    help="scale intervals by a local error spread: learnt from the attributes (default), "
-                    "the well-tie kriging standard deviation (narrow near wells), or none (constant width)")
-    tr.add_argument("--facies-map", choices=list(MAP_RULES), default=TrainOptions.facies_map,
-                    help="how the facies map draws one class per node from the probabilities: balanced "
-                    "(largest probability relative to the class's field-wide share; default, see the README), "
-                    "proportions (class thresholds that reproduce the field-wide proportions) or most-probable")
-    tr.add_argument("--kriging-neighbours", type=int, metavar="N",
-                    help=f"wells each map tile is kriged from (default: every well up to {GLOBAL_WELLS} wells, above "
-                    f"that the nearest {NEIGHBOURS})")
-    tr.add_argument("--candidate", action="append",
-                    help="only these candidates (repeatable, e.g. --candidate lightgbm --candidate linear)")
-    tr.add_argument("--drop-outside", action="store_true", help="leave out wells off the grid, with a warning")
-    tr.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
-    tr.add_argument("--threads", type=int, help="LightGBM threads, used above a few thousand training rows where they "
-                    "pay off (default: all cores; results do not depend on it)")
+    add_arguments(tr, TrainOptions)  # the options table (training.TrainOptions)
 
     pr = sub_parser("predict", "map every target of a bundle on a grid (CSV or NetCDF by extension)")
     pr.add_argument("bundle", help="bundle folder written by `predictor train`")
@@ -201,7 +184,8 @@ def _cmd_qc(args) -> int:
 
     check = check_files(args.wells, args.grid, args.json, args.figures, args.porosity_percent,
                         args.x_column, args.y_column, args.duplicate_distance, z=args.z_column,
-                        z_domain=args.z_domain, segy_name=args.segy_name)
+                        z_domain=args.z_domain, segy_name=args.segy_name, roles=_roles(args),
+                        kinds=_kinds(args))
     for line in check.qc.lines():
         print(line)
     d = check.declustering
@@ -218,21 +202,17 @@ def _cmd_qc(args) -> int:
 
 
 def _cmd_train(args) -> int:
+    from .options import from_arguments
+    from .training import TrainOptions
     from .workflow import train_files
 
-    trained, folder = train_files(args.wells, args.grid, args.out, targets=args.target,
-                                  attributes=args.attribute, context_radii=args.context_radius,
-                                  gradient=args.gradient, location=args.location, n_splits=args.folds,
-                                  block_size=args.block_size, block_angle=args.block_angle, cv=args.cv,
-                                  declustering=args.declustering, facies_map=args.facies_map,
-                                  monotone=dict(args.monotone) if args.monotone else None, well_ties=args.well_ties,
-                                  interval_spread=args.interval_spread, drop_outside=args.drop_outside,
-                                  seed=args.seed, n_threads=args.threads, candidates=args.candidate,
-                                  kriging_neighbours=args.kriging_neighbours,
+    trained, folder = train_files(args.wells, args.grid, args.out, attributes=args.attribute,
+                                  context_radii=args.context_radius, gradient=args.gradient, location=args.location,
                                   porosity_percent=args.porosity_percent, x=args.x_column, y=args.y_column,
                                   z=args.z_column, z_domain=args.z_domain, segy_name=args.segy_name,
                                   vertical_radii=args.vertical_radius, z_trend=args.z_trend,
-                                  overwrite=args.overwrite)
+                                  overwrite=args.overwrite, roles=_roles(args), kinds=_kinds(args),
+                                  **from_arguments(args, TrainOptions))
     from .workflow import field_wide_lines, leaderboard_lines
 
     for line in leaderboard_lines(trained) + field_wide_lines(trained):

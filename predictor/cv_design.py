@@ -27,7 +27,6 @@ Designs (each a :class:`FoldDesign`: a list of (train, test) row indices, whole 
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Literal
 
 import numpy as np
 from scipy.cluster.hierarchy import fcluster, linkage
@@ -37,10 +36,10 @@ from scipy.stats import ks_2samp, wasserstein_distance
 from sklearn.model_selection import KFold
 
 from .errors import ModelError
+from .options import DesignName, allowed
 from .spatial_cv import BlockKFold, BufferedLeaveOneOut
 
-DesignName = Literal["matched", "nndm", "blocks", "buffered", "random"]
-DESIGNS: tuple[str, ...] = ("matched", "nndm", "blocks", "buffered", "random")
+DESIGNS: tuple[str, ...] = allowed(DesignName)
 MAP_SAMPLE = 5000  # prediction locations kept for the distance distribution
 
 

@@ -15,7 +15,8 @@ accuracy, Lundberg & Lee 2017).  Each part of a model is explained in its own ex
   vectorised over map nodes (:func:`permutation_shap`, checked against the shap package's
   exact explainer in the tests).
 
-Classifier blends average probabilities, which log-odds contributions cannot add up to; their
+Each candidate implements its own part (``Candidate.contributions``).  Classifier blends
+average probabilities, which log-odds contributions cannot add up to; their
 members are explained one by one, weighted by their blend weight (documented in the output).
 """
 
@@ -24,27 +25,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from .models import (
-    Blend,
-    FaciesMixture,
-    Kriging,
-    LightGBM,
-    Linear,
-    Logistic,
-    RegressionKriging,
-    WellTies,
-)
-
-KRIGING = "kriging_of_wells"
-BACKGROUND = 8  # background wells for the permutation explainer
-
-
-def _place(values: np.ndarray, member_features: list[str], names: list[str]) -> np.ndarray:
-    """Spread a member's columns into the full feature list (plus the kriging column)."""
-    out = np.zeros(values.shape[:-1] + (len(names) + 1,))
-    for j, f in enumerate(member_features):
-        out[..., names.index(f)] = values[..., j]
-    return out
+from .shapley import KRIGING, permutation_shap  # noqa: F401  (explanation helpers live with the models)
 
 
 def contributions(model, X: pd.DataFrame, xy: np.ndarray, names: list[str], background: pd.DataFrame | None = None,
@@ -55,109 +36,12 @@ def contributions(model, X: pd.DataFrame, xy: np.ndarray, names: list[str], back
     -------
     values : array of shape (n, n_features + 1) for regression, (n, n_classes, n_features + 1)
         for classification (log-odds); the last column is ``kriging_of_wells``
-    base : array of shape (n,) or (n, n_classes), so that base + values.sum(-1) is the output
+    base : array of shape (n,) or (n, n_classes), so that base + values.sum(-1) is
+        ``model.raw_output(X, xy)``
+
+    Each candidate explains itself (:meth:`predictor.models.Candidate.contributions`).
     """
-    n = len(X)
-    if isinstance(model, LightGBM):
-        raw = model.booster_.predict(np.asarray(X[model.features], float), pred_contrib=True, num_threads=1)
-        p = len(model.features)
-        if model.task == "classification":
-            k = raw.shape[1] // (p + 1)
-            raw = raw.reshape(n, k, p + 1)
-        return _place(raw[..., :p], model.features, names), raw[..., p]
-    if isinstance(model, Linear):
-        z = (np.asarray(X[model.features], float) - model.mean_) / model.scale_
-        return _place(z * model.coef_[1:], model.features, names), np.full(n, model.coef_[0])
-    if isinstance(model, Logistic):
-        z = (np.asarray(X[model.features], float) - model.mean_) / model.scale_
-        per_class = z[:, None, :] * model.coef_[None, :, :]
-        return _place(per_class, model.features, names), np.tile(model.intercept_, (n, 1))
-    if isinstance(model, Kriging):
-        values = np.zeros((n, len(names) + 1))
-        values[:, -1] = model.predict(X, xy)
-        return values, np.zeros(n)
-    if isinstance(model, RegressionKriging):
-        values, base = contributions(model.drift_, X, xy, names)
-        values[:, -1] += model.kriging_.predict(xy[:, 0], xy[:, 1])
-        return values, base
-    if isinstance(model, WellTies):
-        values, base = contributions(model.base, X, xy, names, background, seed)
-        values[..., -1] += model.kriging_.predict(xy[:, 0], xy[:, 1])
-        return values, base
-    if isinstance(model, Blend):
-        total, base = None, None
-        for w, member in zip(model.weights, model.members, strict=True):
-            if w <= 0:
-                continue
-            v, b = contributions(member, X, xy, names, background, seed)
-            total = w * v if total is None else total + w * v
-            base = w * b if base is None else base + w * b
-        return total, base
-    if isinstance(model, FaciesMixture):
-        return _permutation(model, X, xy, names, background, seed)
-    raise TypeError(f"no explanation for {type(model).__name__}")
-
-
-def _permutation(model, X, xy, names, background, seed):
-    feats = model.features
-    bg = (background if background is not None else X)[feats]
-    if len(bg) > BACKGROUND:  # a small, spread-out background keeps map explanations affordable
-        order = np.argsort(bg.iloc[:, 0].to_numpy(), kind="stable")
-        bg = bg.iloc[order[np.linspace(0, len(bg) - 1, BACKGROUND).astype(int)]]
-
-    def f(values):
-        return model.predict(pd.DataFrame(values, columns=feats), None)
-
-    values, base = permutation_shap(f, np.asarray(X[feats], float), bg.to_numpy(float), seed=seed)
-    return _place(values, feats, names), base
-
-
-def permutation_shap(f, X: np.ndarray, background: np.ndarray, n_pairs: int = 1, seed: int = 0):
-    """Interventional Shapley values by antithetic permutation sampling, vectorised over rows.
-
-    For each sampled feature order (and its reverse) and each background row, features are
-    switched from the background value to the explained value one at a time; each switch's
-    change of f is that feature's contribution.  Per order the changes telescope, so
-    ``base + values.sum(1) == f(X)`` exactly (local accuracy), with ``base`` the mean of f
-    over the background.  With one feature, or two and one order pair, the values are the
-    exact Shapley values for this background.
-
-    Returns values of shape (n, p) and base of shape (n,).
-    """
-    n, p = X.shape
-    rng = np.random.default_rng(seed)
-    orders = []
-    for _ in range(n_pairs):
-        perm = rng.permutation(p)
-        orders += [perm, perm[::-1]]
-    values = np.zeros((n, p))
-    base = 0.0
-    for b in background:
-        current = np.tile(b, (n, 1))
-        start = f(current)
-        base = base + start[0]
-        for order in orders:
-            current = np.tile(b, (n, 1))
-            previous = start
-            for j in order:
-                current[:, j] = X[:, j]
-                now = f(current)
-                values[:, j] += now - previous
-                previous = now
-    values /= len(background) * len(orders)
-    return values, np.full(n, base / len(background))
-
-
-def output(model, X: pd.DataFrame, xy: np.ndarray) -> np.ndarray:
-    """The raw output that the contributions add up to (log-odds for classifiers)."""
-    if isinstance(model, LightGBM) and model.task == "classification":
-        return model.booster_.predict(np.asarray(X[model.features], float), raw_score=True, num_threads=1)
-    if isinstance(model, Logistic):
-        z = (np.asarray(X[model.features], float) - model.mean_) / model.scale_
-        return z @ model.coef_.T + model.intercept_
-    if isinstance(model, Blend) and model.task == "classification":
-        return sum(w * output(m, X, xy) for w, m in zip(model.weights, model.members, strict=True) if w > 0)
-    return model.predict(X, xy)
+    return model.contributions(X, xy, names, background, seed)
 
 
 def importance(values: np.ndarray, weights: np.ndarray, names: list[str]) -> pd.Series:
@@ -259,8 +143,11 @@ def fit_applicability(X: pd.DataFrame, imp: pd.Series, folds: np.ndarray) -> tup
 
 def trust_warnings(target: str, task: str, imp: pd.Series, X: pd.DataFrame, values: np.ndarray,
                    cv: dict, cv_random: dict, n_classes: int, fold_sizes: list[int],
-                   location_limit: float = 0.3) -> tuple[list[str], dict]:
-    """Plain-words warnings about what the model leans on and how far its scores can be trusted."""
+                   location_limit: float = 0.3, impedance: list[str] = ()) -> tuple[list[str], dict]:
+    """Plain-words warnings about what the model leans on and how far its scores can be trusted.
+
+    ``impedance``: the attributes that are impedances (by what the user said they are, or their
+    name); porosity is expected to fall as they, and their smoothed versions, rise."""
     warnings_, facts = [], {}
     total = float(imp.sum()) or 1.0
     loc = float(imp.reindex([f for f in imp.index if f in LOCATION]).sum())
@@ -274,8 +161,9 @@ def trust_warnings(target: str, task: str, imp: pd.Series, X: pd.DataFrame, valu
                          f"{location_limit:.0%}): the map leans on where the wells are rather than on the seismic")
     if task == "regression" and target in ("porosity", "permeability"):
         names = list(X.columns)
-        for f in names:
-            if "imped" in f.lower() and "contrast" not in f and "gradient" not in f and imp.get(f, 0) > 0.02 * total:
+        levels = [f for f in names if any(f == a or f.startswith(f"{a}_smooth") for a in impedance)]
+        for f in levels:
+            if imp.get(f, 0) > 0.02 * total:
                 r = np.corrcoef(X[f].to_numpy(float), values[:, names.index(f)])[0, 1]
                 facts[f"sign_{f}"] = float(r)
                 if r > 0.1:

@@ -26,14 +26,13 @@ Brier score in experiments/field_wide.py.
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Literal
 
 import numpy as np
 
+from .options import MapRule, allowed
 from .stats import weighted_mean, weighted_proportions, weighted_quantile
 
-MapRule = Literal["most-probable", "balanced", "proportions"]
-MAP_RULES: tuple[str, ...] = ("most-probable", "balanced", "proportions")
+MAP_RULES: tuple[str, ...] = allowed(MapRule)
 MIN_WELLS_PER_BIN = 5
 MAX_BINS = 10
 N_BOOTSTRAP = 200

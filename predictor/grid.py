@@ -8,7 +8,6 @@ from __future__ import annotations
 
 import warnings
 from pathlib import Path
-from typing import Literal
 
 import numpy as np
 import pandas as pd
@@ -16,8 +15,7 @@ import xarray as xr
 
 from .errors import InputError, PredictorWarning, list_rows
 from .io.tables import X_NAMES, Y_NAMES, find_column, numeric_column, read_table
-
-SampleMethod = Literal["bilinear", "nearest"]
+from .options import SampleMethod
 
 
 def _typical_step(values: np.ndarray, others: np.ndarray) -> float:
@@ -133,14 +131,48 @@ def read_grid(path: str | Path, x: str | None = None, y: str | None = None, lazy
     return grid_from_table(read_table(path), x=x, y=y)
 
 
+ATTRIBUTE_KINDS = ("impedance", "velocity", "density", "amplitude", "other")
+POSITIVE_KINDS = ("impedance", "velocity", "density")
+_KIND_HINTS = (("imped", "impedance"), ("velocity", "velocity"), ("vp", "velocity"), ("vs", "velocity"),
+               ("density", "density"), ("rho", "density"), ("ampl", "amplitude"))
+
+
+def attribute_kind(grid: xr.Dataset, var: str) -> str:
+    """What an attribute is: as the user said (``attrs["kind"]``), else guessed from its name."""
+    given = grid[var].attrs.get("kind")
+    if given:
+        return given
+    return next((kind for hint, kind in _KIND_HINTS if hint in var.lower()), "other")
+
+
+def set_attribute_kinds(grid: xr.Dataset, kinds: dict[str, str] | None) -> xr.Dataset:
+    """Record what each named attribute is (``{"relative_ai": "amplitude"}``); the positivity and
+    units checks and the rock-physics sign check follow the kind, not the name."""
+    source = grid.attrs.get("source", "grid")
+    for var, kind in (kinds or {}).items():
+        if var not in grid.data_vars:
+            raise InputError(f"{source}: --attribute-kind names {var!r}, which is not an attribute of the grid; the "
+                             f"attributes are {', '.join(map(str, grid.data_vars))}")
+        if kind not in ATTRIBUTE_KINDS:
+            raise InputError(f"--attribute-kind {var}={kind}: the kind must be one of {', '.join(ATTRIBUTE_KINDS)} "
+                             "(impedance, velocity and density must be positive; amplitude is signed)")
+        grid[var].attrs["kind"] = kind
+    return grid
+
+
 def read_seismic(path: str | Path, lazy: bool = False, z_domain: str | None = None, name: str | None = None,
-                 x: str | None = None, y: str | None = None) -> xr.Dataset:
+                 x: str | None = None, y: str | None = None, kinds: dict[str, str] | None = None) -> xr.Dataset:
     """Read a map (CSV/Parquet long table, NetCDF, Zarr) or a volume (SEG-Y, or NetCDF/Zarr with
     a ``z`` dimension), whichever the file holds; see :mod:`predictor.volume` for volumes.
 
     ``z_domain`` ("depth" or "time") names a volume's sample axis when the file does not;
-    ``name`` is the attribute a SEG-Y file holds (default "amplitude").
+    ``name`` is the attribute a SEG-Y file holds (default "amplitude"); ``kinds`` what each
+    attribute is (see :func:`set_attribute_kinds`).
     """
+    return set_attribute_kinds(_read_seismic(path, lazy, z_domain, name, x, y), kinds)
+
+
+def _read_seismic(path, lazy, z_domain, name, x, y) -> xr.Dataset:
     from .volume import SEGY_SUFFIXES, read_volume
 
     path = Path(path)

@@ -1,14 +1,22 @@
 """Candidate models: LightGBM, linear/logistic baselines, kriging baselines, the facies mixture,
 and well ties (kriging of out-of-fold residuals) wrapped around any of them.
 
-Every candidate has the same small interface so cross-validation, selection, saving and
-prediction treat them alike:
+Every candidate is a :class:`Candidate`: a scikit-learn estimator (parameters stored as given
+in ``__init__``, fitted state in attributes ending in ``_``, copied unfitted by
+``sklearn.base.clone``) with one small interface, so cross-validation, selection, explanation,
+saving and prediction treat them alike:
 
-- ``fit(data)`` with a :class:`FitData`, returning ``self``;
+- ``fit(data)`` with a :class:`FitData` (the wells' features, target, weights, coordinates and
+  the spatial context nested folds and early stopping need), returning ``self``;
 - ``predict(X, xy)`` with X a table holding (at least) the candidate's features and xy an
   array of shape (n, 2): values of shape (n,) for regression, class probabilities of shape
   (n, n_classes) for classification;
+- ``contributions(X, xy, names, background, seed)`` and ``raw_output(X, xy)``: additive
+  explanations (see :mod:`predictor.explain`) that add up to the raw output;
 - ``save(folder, stem)`` returning a JSON-able description; :func:`load_candidate` reverses it.
+
+A new candidate is one subclass here with a ``kind`` (its name in saved bundles) and a test;
+the registry of loaders fills itself.
 
 Fitted state is kept as plain arrays or LightGBM boosters, so what is saved (JSON and LightGBM
 text, never pickle) predicts exactly what was fitted.
@@ -24,10 +32,12 @@ from pathlib import Path
 import lightgbm as lgb
 import numpy as np
 import pandas as pd
+from sklearn.base import BaseEstimator, clone
 from sklearn.linear_model import LogisticRegression
 from sklearn.model_selection import GroupKFold
 
 from .kriging import OrdinaryKriging
+from .shapley import permutation_contributions, place
 
 PARALLEL_ROWS = 5000  # LightGBM trains on several threads from this many rows
 
@@ -99,10 +109,48 @@ def _standardise(model, data: FitData) -> np.ndarray:
     return (X - model.mean_) / model.scale_
 
 
-class Linear:
+LOADERS: dict[str, type] = {}  # kind -> candidate class, filled as the classes are defined
+
+
+class Candidate(BaseEstimator):
+    """What every candidate, blend and well tie implements (see the module docstring)."""
+
+    kind = ""  # the type written in saved bundles; a subclass with a kind registers its loader
+    task = "regression"
+
+    def __init_subclass__(cls, **keywords):
+        super().__init_subclass__(**keywords)
+        if cls.kind:
+            LOADERS[cls.kind] = cls
+
+    def fit(self, data: FitData) -> Candidate:
+        raise NotImplementedError
+
+    def predict(self, X: pd.DataFrame, xy: np.ndarray | None = None) -> np.ndarray:
+        raise NotImplementedError
+
+    def contributions(self, X: pd.DataFrame, xy: np.ndarray, names: list[str], background: pd.DataFrame | None = None,
+                      seed: int = 0) -> tuple[np.ndarray, np.ndarray]:
+        """Additive contributions of each of ``names`` plus the kriging column (last) to the raw
+        output, and the base they add to: ``base + values.sum(-1) == raw_output(X, xy)``."""
+        raise NotImplementedError
+
+    def raw_output(self, X: pd.DataFrame, xy: np.ndarray) -> np.ndarray:
+        """The output the contributions add up to: the prediction, or log-odds for classifiers."""
+        return self.predict(X, xy)
+
+    def save(self, folder: Path, stem: str) -> dict:
+        raise NotImplementedError
+
+    @classmethod
+    def load(cls, desc: dict, folder: Path) -> Candidate:
+        raise NotImplementedError
+
+
+class Linear(Candidate):
     """Weighted least-squares regression on standardised features."""
 
-    task = "regression"
+    kind = "linear"
 
     def __init__(self, features: list[str], name: str = "linear"):
         self.features = features
@@ -116,12 +164,18 @@ class Linear:
         self.coef_ = coef
         return self
 
+    def _z(self, X) -> np.ndarray:
+        return (np.asarray(X[self.features], float) - self.mean_) / self.scale_
+
     def predict(self, X, xy=None) -> np.ndarray:
-        Z = (np.asarray(X[self.features], float) - self.mean_) / self.scale_
-        return self.coef_[0] + Z @ self.coef_[1:]
+        return self.coef_[0] + self._z(X) @ self.coef_[1:]
+
+    def contributions(self, X, xy, names, background=None, seed=0):
+        # exact interventional SHAP with the training mean as background: coef * (x - mean)
+        return place(self._z(X) * self.coef_[1:], self.features, names), np.full(len(X), self.coef_[0])
 
     def save(self, folder: Path, stem: str) -> dict:
-        return {"type": "linear", "name": self.name, "features": self.features, "mean": self.mean_.tolist(),
+        return {"type": self.kind, "name": self.name, "features": self.features, "mean": self.mean_.tolist(),
                 "scale": self.scale_.tolist(), "coef": self.coef_.tolist()}
 
     @classmethod
@@ -131,9 +185,10 @@ class Linear:
         return model
 
 
-class Logistic:
+class Logistic(Candidate):
     """Multinomial logistic regression on standardised features (scikit-learn), weighted."""
 
+    kind = "logistic"
     task = "classification"
 
     def __init__(self, features: list[str], name: str = "logistic"):
@@ -159,12 +214,21 @@ class Logistic:
             self.intercept_[present] = model.intercept_
         return self
 
+    def _z(self, X) -> np.ndarray:
+        return (np.asarray(X[self.features], float) - self.mean_) / self.scale_
+
+    def raw_output(self, X, xy=None) -> np.ndarray:
+        return self._z(X) @ self.coef_.T + self.intercept_
+
     def predict(self, X, xy=None) -> np.ndarray:
-        Z = (np.asarray(X[self.features], float) - self.mean_) / self.scale_
-        return _softmax(Z @ self.coef_.T + self.intercept_)
+        return _softmax(self.raw_output(X))
+
+    def contributions(self, X, xy, names, background=None, seed=0):
+        per_class = self._z(X)[:, None, :] * self.coef_[None, :, :]  # per-class logits, exact
+        return place(per_class, self.features, names), np.tile(self.intercept_, (len(X), 1))
 
     def save(self, folder: Path, stem: str) -> dict:
-        return {"type": "logistic", "name": self.name, "features": self.features, "mean": self.mean_.tolist(),
+        return {"type": self.kind, "name": self.name, "features": self.features, "mean": self.mean_.tolist(),
                 "scale": self.scale_.tolist(), "coef": self.coef_.tolist(), "intercept": self.intercept_.tolist()}
 
     @classmethod
@@ -204,15 +268,17 @@ def lightgbm_params(task: str, n: int, n_classes: int, seed: int, n_threads: int
     return params
 
 
-class LightGBM:
+class LightGBM(Candidate):
     """LightGBM regressor or classifier with early stopping on held-out blocks of the training wells."""
+
+    kind = "lightgbm"
 
     def __init__(self, task: str, features: list[str], name: str = "lightgbm", monotone: dict | None = None,
                  max_rounds: int = 400):
         self.task = task
         self.features = features
         self.name = name
-        self.monotone = monotone or {}
+        self.monotone = monotone
         self.max_rounds = max_rounds
 
     def _params(self, data: FitData) -> dict:
@@ -241,8 +307,22 @@ class LightGBM:
         self.rounds_ = rounds
         return self
 
+    def _matrix(self, X) -> np.ndarray:
+        return np.asarray(X[self.features], float)
+
     def predict(self, X, xy=None) -> np.ndarray:
-        return self.booster_.predict(np.asarray(X[self.features], float), num_threads=1)
+        return self.booster_.predict(self._matrix(X), num_threads=1)
+
+    def raw_output(self, X, xy=None) -> np.ndarray:
+        return self.booster_.predict(self._matrix(X), raw_score=True, num_threads=1)
+
+    def contributions(self, X, xy, names, background=None, seed=0):
+        # TreeSHAP built into LightGBM (path-dependent), in the raw output
+        raw = self.booster_.predict(self._matrix(X), pred_contrib=True, num_threads=1)
+        p = len(self.features)
+        if self.task == "classification":
+            raw = raw.reshape(len(X), raw.shape[1] // (p + 1), p + 1)
+        return place(raw[..., :p], self.features, names), raw[..., p]
 
     def save(self, folder: Path, stem: str) -> dict:
         name = f"{stem}.lgb.txt"
@@ -250,25 +330,35 @@ class LightGBM:
         # the same data and seed give byte-identical files whatever the thread count
         text = re.sub(r"\[num_threads: \d+\]", "[num_threads: 0]", self.booster_.model_to_string())
         (folder / name).write_text(text, encoding="utf-8")
-        return {"type": "lightgbm", "task": self.task, "name": self.name, "features": self.features,
-                "monotone": self.monotone, "rounds": self.rounds_, "file": name}
+        return {"type": self.kind, "task": self.task, "name": self.name, "features": self.features,
+                "monotone": self.monotone or {}, "rounds": self.rounds_, "file": name}
 
     @classmethod
     def load(cls, desc: dict, folder: Path) -> LightGBM:
-        model = cls(desc["task"], desc["features"], desc["name"], desc.get("monotone"))
+        model = cls(desc["task"], desc["features"], desc["name"], desc.get("monotone") or None)
         model.booster_ = lgb.Booster(model_str=(folder / desc["file"]).read_text(encoding="utf-8"))
         model.rounds_ = desc["rounds"]
         return model
 
 
-class Kriging:
+def _kriging_only(values: np.ndarray, n_names: int) -> np.ndarray:
+    """Contributions where all of the output is the kriging column."""
+    out = np.zeros((len(values), n_names + 1))
+    out[:, -1] = values
+    return out
+
+
+class Kriging(Candidate):
     """Ordinary kriging of the target from well locations alone (a baseline)."""
 
-    task = "regression"
+    kind = "kriging"
 
     def __init__(self, name: str = "ordinary_kriging"):
         self.name = name
-        self.features: list[str] = []
+
+    @property
+    def features(self) -> list[str]:
+        return []
 
     def fit(self, data: FitData) -> Kriging:
         self.kriging_ = OrdinaryKriging(neighbours=data.kriging_neighbours).fit(data.xy[:, 0], data.xy[:, 1], data.y)
@@ -277,8 +367,11 @@ class Kriging:
     def predict(self, X, xy) -> np.ndarray:
         return self.kriging_.predict(xy[:, 0], xy[:, 1])
 
+    def contributions(self, X, xy, names, background=None, seed=0):
+        return _kriging_only(self.predict(X, xy), len(names)), np.zeros(len(X))
+
     def save(self, folder: Path, stem: str) -> dict:
-        return {"type": "kriging", "name": self.name, "kriging": self.kriging_.to_dict()}
+        return {"type": self.kind, "name": self.name, "kriging": self.kriging_.to_dict()}
 
     @classmethod
     def load(cls, desc: dict, folder: Path) -> Kriging:
@@ -287,10 +380,10 @@ class Kriging:
         return model
 
 
-class RegressionKriging:
+class RegressionKriging(Candidate):
     """Linear drift on the attribute(s) plus ordinary kriging of its residuals (a baseline)."""
 
-    task = "regression"
+    kind = "regression_kriging"
 
     def __init__(self, features: list[str], name: str = "regression_kriging"):
         self.features = features
@@ -305,8 +398,13 @@ class RegressionKriging:
     def predict(self, X, xy) -> np.ndarray:
         return self.drift_.predict(X) + self.kriging_.predict(xy[:, 0], xy[:, 1])
 
+    def contributions(self, X, xy, names, background=None, seed=0):
+        values, base = self.drift_.contributions(X, xy, names)
+        values[:, -1] += self.kriging_.predict(xy[:, 0], xy[:, 1])
+        return values, base
+
     def save(self, folder: Path, stem: str) -> dict:
-        return {"type": "regression_kriging", "name": self.name, "features": self.features,
+        return {"type": self.kind, "name": self.name, "features": self.features,
                 "drift": self.drift_.save(folder, stem), "kriging": self.kriging_.to_dict()}
 
     @classmethod
@@ -317,7 +415,7 @@ class RegressionKriging:
         return model
 
 
-class FaciesMixture:
+class FaciesMixture(Candidate):
     """Per-facies linear regressors mixed by facies probabilities from a LightGBM classifier.
 
     The porosity of a node is sum over facies c of P(c | seismic) * f_c(seismic).  The
@@ -325,10 +423,11 @@ class FaciesMixture:
     ``MIN_PER_FEATURE`` wells per coefficient, else only ``member_features`` (the attributes)
     if it has that many for them, else the facies' weighted mean; its output is held within the
     facies' observed range widened by a quarter, so a regressor fitted on a handful of wells
-    cannot extrapolate to absurd values.
+    cannot extrapolate to absurd values.  Explained by permutation Shapley values (a product of
+    probabilities and regressions has no exact additive form).
     """
 
-    task = "regression"
+    kind = "facies_mixture"
     MIN_PER_FEATURE = 5
 
     def __init__(self, features: list[str], name: str = "facies_mixture", member_features: list[str] | None = None):
@@ -366,8 +465,11 @@ class FaciesMixture:
         proba = self.classifier_.predict(X)
         return sum(proba[:, i] * self._member(i, X) for i in range(len(self.members_)))
 
+    def contributions(self, X, xy, names, background=None, seed=0):
+        return permutation_contributions(self.predict, self.features, X, names, background, seed)
+
     def save(self, folder: Path, stem: str) -> dict:
-        return {"type": "facies_mixture", "name": self.name, "features": self.features,
+        return {"type": self.kind, "name": self.name, "features": self.features,
                 "member_features": self.member_features, "limits": self.limits_,
                 "classifier": self.classifier_.save(folder, f"{stem}.classifier"),
                 "members": [m.save(folder, stem) if isinstance(m, Linear) else m for m in self.members_]}
@@ -381,7 +483,7 @@ class FaciesMixture:
         return model
 
 
-class WellTies:
+class WellTies(Candidate):
     """A regression model corrected near the wells by kriging its out-of-fold residuals.
 
     The residuals come from an inner cross-validation of the training wells with folds matched
@@ -389,71 +491,112 @@ class WellTies:
     training data as a map node is from its nearest well, which is what the map needs.
     """
 
-    task = "regression"
+    kind = "well_ties"
 
-    def __init__(self, base):
+    def __init__(self, base: Candidate):
         self.base = base
-        self.name = f"{base.name}+well_ties"
-        self.features = base.features
+
+    @property
+    def name(self) -> str:
+        return f"{self.base.name}+well_ties"
+
+    @property
+    def features(self) -> list[str]:
+        return self.base.features
 
     def fit(self, data: FitData) -> WellTies:
         oof = out_of_fold(self.base, data)
-        self.base.fit(data)
+        self.base_ = clone(self.base).fit(data)
         self.kriging_ = OrdinaryKriging(neighbours=data.kriging_neighbours).fit(data.xy[:, 0], data.xy[:, 1], data.y - oof)
         return self
 
+    def _ties(self, xy) -> np.ndarray:
+        return self.kriging_.predict(xy[:, 0], xy[:, 1])
+
     def predict(self, X, xy) -> np.ndarray:
-        return self.base.predict(X, xy) + self.kriging_.predict(xy[:, 0], xy[:, 1])
+        return self.base_.predict(X, xy) + self._ties(xy)
+
+    def contributions(self, X, xy, names, background=None, seed=0):
+        values, base = self.base_.contributions(X, xy, names, background, seed)
+        values[..., -1] += self._ties(xy)
+        return values, base
 
     def residual_variance(self, xy) -> np.ndarray:
         return self.kriging_.predict(xy[:, 0], xy[:, 1], return_variance=True)[1]
 
     def save(self, folder: Path, stem: str) -> dict:
-        return {"type": "well_ties", "name": self.name, "base": self.base.save(folder, stem),
+        return {"type": self.kind, "name": self.name, "base": self.base_.save(folder, stem),
                 "kriging": self.kriging_.to_dict()}
 
     @classmethod
     def load(cls, desc: dict, folder: Path) -> WellTies:
         model = cls(load_candidate(desc["base"], folder))
+        model.base_ = model.base
         model.kriging_ = OrdinaryKriging.from_dict(desc["kriging"])
         return model
 
 
-class Blend:
+class Blend(Candidate):
     """Weighted average of fitted candidates (stacking with non-negative weights summing to one).
 
     The weights are fitted to the members' out-of-fold predictions (Breiman 1996, stacked
     regressions), so they reward what each member does away from its training wells.  With
     ``member_oof`` (the members' out-of-fold predictions for every row of the target's table,
     shape (n, m) or (n, m, k)) ``fit`` refits the weights on the rows it is given, so a blend
-    cross-validated inside a fold (well ties around it, say) never sees the held-out wells.
+    cross-validated inside a fold (well ties around it, say) never sees the held-out wells;
+    without it the given ``weights`` are kept.  Classifier blends average probabilities, which
+    log-odds contributions cannot add up to: their members are explained one by one, weighted
+    by their blend weight.
     """
 
-    def __init__(self, members: list, weights, name: str = "blend", member_oof=None, y_all=None):
-        self.task = members[0].task
+    kind = "blend"
+
+    def __init__(self, members: list[Candidate], weights, name: str = "blend", member_oof=None, y_all=None):
         self.members = members
-        self.weights = np.asarray(weights, float)
+        self.weights = weights
         self.name = name
-        self.features = sorted({f for m in members for f in m.features})
         self.member_oof = member_oof
         self.y_all = y_all
 
+    @property
+    def task(self) -> str:
+        return self.members[0].task
+
+    @property
+    def features(self) -> list[str]:
+        return sorted({f for m in self.members for f in m.features})
+
     def fit(self, data: FitData) -> Blend:
         if self.member_oof is not None:
-            self.weights = blend_weights(self.member_oof[data.rows], self.y_all[data.rows], data.weights)
-        self.members = [type_copy(m).fit(data) for m in self.members]
+            self.weights_ = blend_weights(self.member_oof[data.rows], self.y_all[data.rows], data.weights)
+        else:
+            self.weights_ = np.asarray(self.weights, float)
+        self.members_ = [clone(m).fit(data) for m in self.members]
         return self
 
+    def _weighted(self, part) -> list:
+        return [w * part(m) for w, m in zip(self.weights_, self.members_, strict=True) if w > 0]
+
     def predict(self, X, xy) -> np.ndarray:
-        return sum(w * m.predict(X, xy) for w, m in zip(self.weights, self.members, strict=True) if w > 0)
+        return sum(self._weighted(lambda m: m.predict(X, xy)))
+
+    def raw_output(self, X, xy) -> np.ndarray:
+        return sum(self._weighted(lambda m: m.raw_output(X, xy)))
+
+    def contributions(self, X, xy, names, background=None, seed=0):
+        parts = [(w, m.contributions(X, xy, names, background, seed))
+                 for w, m in zip(self.weights_, self.members_, strict=True) if w > 0]
+        return sum(w * v for w, (v, _) in parts), sum(w * b for w, (_, b) in parts)
 
     def save(self, folder: Path, stem: str) -> dict:
-        return {"type": "blend", "name": self.name, "weights": self.weights.tolist(),
-                "members": [m.save(folder, f"{stem}.member{i}") for i, m in enumerate(self.members)]}
+        return {"type": self.kind, "name": self.name, "weights": self.weights_.tolist(),
+                "members": [m.save(folder, f"{stem}.member{i}") for i, m in enumerate(self.members_)]}
 
     @classmethod
     def load(cls, desc: dict, folder: Path) -> Blend:
-        return cls([load_candidate(m, folder) for m in desc["members"]], desc["weights"], desc["name"])
+        model = cls([load_candidate(m, folder) for m in desc["members"]], desc["weights"], desc["name"])
+        model.members_, model.weights_ = model.members, np.asarray(desc["weights"], float)
+        return model
 
 
 def combine(predictions: np.ndarray, weights: np.ndarray) -> np.ndarray:
@@ -503,32 +646,40 @@ def out_of_fold(candidate, data: FitData, splits=None) -> np.ndarray:
     splits = data.inner_splits() if splits is None else splits
 
     def fit_predict(train, test):
-        model = type_copy(candidate).fit(data.subset(train))
+        model = clone(candidate).fit(data.subset(train))
         return model.predict(data.X.iloc[test].reset_index(drop=True), data.xy[test])
 
     return fold_predictions(splits, len(data.y), fit_predict)
 
 
-def type_copy(candidate):
-    """An unfitted copy of a candidate with the same settings."""
-    if isinstance(candidate, WellTies):
-        return WellTies(type_copy(candidate.base))
-    if isinstance(candidate, LightGBM):
-        return LightGBM(candidate.task, candidate.features, candidate.name, candidate.monotone, candidate.max_rounds)
-    if isinstance(candidate, Kriging):
-        return Kriging(candidate.name)
-    if isinstance(candidate, FaciesMixture):
-        return FaciesMixture(candidate.features, candidate.name, candidate.member_features)
-    if isinstance(candidate, Blend):
-        return Blend([type_copy(m) for m in candidate.members], candidate.weights, candidate.name,
-                     candidate.member_oof, candidate.y_all)
-    return type(candidate)(candidate.features, candidate.name)
+BASELINES = ("linear", "logistic", "ordinary_kriging", "regression_kriging")
+MAP_ONLY = ("ordinary_kriging", "regression_kriging")  # kriging of a 2-D map; not offered for volumes
 
 
-LOADERS = {"linear": Linear, "logistic": Logistic, "lightgbm": LightGBM, "kriging": Kriging,
-           "regression_kriging": RegressionKriging, "facies_mixture": FaciesMixture, "well_ties": WellTies,
-           "blend": Blend}
+def leaderboard_candidates(task: str, attrs: list[str], names: list[str], volume: bool = False,
+                           facies_mixture: bool = False, monotone: dict[str, int] | None = None) -> list[Candidate]:
+    """The candidates cross-validated for one target, baselines first.
+
+    ``attrs`` are the grid's attributes and ``names`` every feature; the candidates on the
+    attributes alone stay beside those on every feature, so the CV decides whether context
+    helps.  ``facies_mixture`` when the wells carry two facies or more (and the target is not
+    facies); ``monotone``: per-feature directions for a constrained LightGBM beside the free one.
+    """
+    if task == "classification":
+        out = [Logistic(attrs), LightGBM("classification", names)]
+        if names != attrs:
+            out += [Logistic(names, "logistic_all_features"),
+                    LightGBM("classification", attrs, "lightgbm_attributes_only")]
+    else:
+        out = [Linear(attrs), Kriging(), RegressionKriging(attrs), LightGBM("regression", names)]
+        if names != attrs:
+            out.append(LightGBM("regression", attrs, "lightgbm_attributes_only"))
+        if monotone:
+            out.append(LightGBM("regression", names, "lightgbm_monotone", monotone=monotone))
+        if facies_mixture:
+            out.append(FaciesMixture(names, member_features=attrs))
+    return [c for c in out if not (volume and c.name in MAP_ONLY)]
 
 
-def load_candidate(desc: dict, folder: Path):
+def load_candidate(desc: dict, folder: Path) -> Candidate:
     return LOADERS[desc["type"]].load(desc, folder)

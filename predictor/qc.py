@@ -18,7 +18,7 @@ from scipy import stats as sps
 from scipy.spatial import cKDTree
 
 from .errors import InputError, PredictorWarning, list_rows
-from .grid import sample_at
+from .grid import POSITIVE_KINDS, attribute_kind, sample_at
 from .volume import is_volume, sample_volume, well_heads, wells_z_domain
 
 Severity = Literal["error", "warning", "note"]
@@ -127,10 +127,13 @@ def grid_findings(grid: xr.Dataset) -> list[Finding]:
         if finite.size == 0:
             found.append(Finding("error", "empty attribute", var, f"{source}: attribute {var!r} has no values"))
             continue
-        if any(h in var.lower() for h in POSITIVE_HINTS) and (finite <= 0).any():
+        kind = attribute_kind(grid, var)
+        if kind in POSITIVE_KINDS and (finite <= 0).any():
             found.append(Finding("error", "non-physical", var,
-                                 f"{source}: attribute {var!r} has {(finite <= 0).sum()} nodes <= 0 where it must be positive"))
-        if "imped" in var.lower():
+                                 f"{source}: attribute {var!r} ({kind}) has {(finite <= 0).sum()} nodes <= 0 where it "
+                                 f"must be positive; if it is a signed attribute (relative impedance, say), tell "
+                                 f"so with --attribute-kind {var}=amplitude"))
+        if kind == "impedance":
             med = float(np.median(finite))
             if 1e6 <= med <= 3e7:
                 unit = "kg/(m2 s) (SI)"

@@ -7,18 +7,17 @@ baselines on the same folds, selection, well ties, interval calibration and the 
 from __future__ import annotations
 
 import warnings
-from dataclasses import asdict, dataclass, field
+from dataclasses import MISSING, asdict, dataclass, field, replace
 from typing import Literal
 
 import numpy as np
 import pandas as pd
 import xarray as xr
 from scipy.spatial import cKDTree
+from sklearn.base import clone
 
 from .checks import decluster, decluster_samples
 from .cv_design import (
-    DESIGNS,
-    DesignName,
     FoldDesign,
     design_folds,
     distance_summary,
@@ -46,31 +45,40 @@ from .features import (
     location_features,
 )
 from .field_wide import (
-    MAP_RULES,
     FieldWide,
-    MapRule,
     field_wide_classes,
     field_wide_values,
     rule_factors,
 )
-from .grid import spacing
+from .grid import attribute_kind, spacing
 from .intervals import PHYSICAL_BOUNDS, IntervalCalibration, SpreadModel, calibrate, effective_size
+from .io.tables import ROLE_NAMES
 from .kriging import GLOBAL_WELLS, NEIGHBOURS
 from .models import (
+    BASELINES,
     Blend,
-    FaciesMixture,
+    Candidate,
     FitData,
     Kriging,
-    LightGBM,
     Linear,
-    Logistic,
     RegressionKriging,
     WellTies,
     blend_weights,
     combine,
     fold_predictions,
+    leaderboard_candidates,
     out_of_fold,
-    type_copy,
+)
+from .options import (
+    Declustering,
+    DesignName,
+    IntervalSpread,
+    MapRule,
+    SampleMethod,
+    WellTiesRule,
+    check_choices,
+    monotone_pair,
+    option,
 )
 from .progress import progress
 from .qc import grid_findings, physical_findings
@@ -79,32 +87,58 @@ from .variogram import auto_variogram
 from .volume import is_volume, lateral_spacing, trace_footprint, wells_z_domain, z_step
 
 Task = Literal["regression", "classification"]
-BASELINES = ("linear", "logistic", "ordinary_kriging", "regression_kriging")
-MAP_ONLY = ("ordinary_kriging", "regression_kriging")  # kriging of a 2-D map; not offered for volumes
 LOG_TARGETS = ("permeability",)
 
 
 @dataclass
 class TrainOptions:
-    """Everything that decides a training run (recorded in the model card)."""
+    """Everything that decides a training run (recorded in the model card).
 
-    targets: list[str]
-    features: FeatureSpec | None = None
-    n_splits: int = 5
-    block_size: float | None = None
-    block_angle: float = 0.0
-    cv: DesignName = "matched"
-    declustering: Literal["cell", "nearest_node", "none"] = "cell"
-    monotone: dict[str, int] | None = None  # attribute -> -1 (non-increasing) or 1, e.g. {"impedance": -1}
-    well_ties: Literal["auto", "always", "never"] = "auto"
-    interval_spread: Literal["none", "features", "kriging"] = "features"
-    sample_method: Literal["bilinear", "nearest"] = "bilinear"
-    drop_outside: bool = False
-    seed: int = 0
-    n_threads: int | None = None  # LightGBM threads; None: every core (used only on large tables, see models)
-    candidates: list[str] | None = None  # restrict the leaderboard to these names (baselines included)
-    facies_map: MapRule = "balanced"  # how the facies map picks one class per node (see field_wide)
-    kriging_neighbours: int | None = None  # wells per kriging neighbourhood; None: all up to kriging.GLOBAL_WELLS
+    This is the one table of training options: each field carries its command-line flag and
+    help (see :mod:`predictor.options`), and ``Literal`` fields their allowed values.
+    """
+
+    targets: list[str] = option(MISSING, "--target", "well column to model (repeat for several: --target porosity "
+                                "--target facies)", action="append", required=True)
+    features: FeatureSpec | None = None  # None: the default set; the CLI builds it from the feature flags
+    n_splits: int = option(5, "--folds", "number of spatial CV folds")
+    block_size: float | None = option(None, "--block-size", "CV block side in metres (default: fitted variogram "
+                                      "range)", type=float)
+    block_angle: float = option(0.0, "--block-angle", "rotation of the CV blocks in degrees")
+    cv: DesignName = option("matched", "--cv", "fold design: matched to the map's prediction distances (default, "
+                            "kNNDM), nndm (leave-one-out matched to the map, for small well sets), blocks (block "
+                            "k-fold), buffered (leave-one-out with the block size as exclusion radius) or random "
+                            "(contrast only)")
+    declustering: Declustering = option("cell", "--declustering", "declustering weights used as sample weights and "
+                                        "score weights (default cell); declustered statistics always use "
+                                        "nearest-node weights")
+    monotone: dict[str, int] | None = option(None, "--monotone", "also try LightGBM constrained in this attribute: "
+                                             "-1 non-increasing, 1 non-decreasing (e.g. --monotone impedance:-1; "
+                                             "repeatable)", action="append", type=monotone_pair, metavar="ATTR:DIR")
+    well_ties: WellTiesRule = option("auto", "--well-ties", "krige out-of-fold residuals onto the map: when CV shows "
+                                     "it helps (auto, the default), always, never")
+    interval_spread: IntervalSpread = option("features", "--interval-spread", "scale intervals by a local error "
+                                             "spread: learnt from the attributes (default), the well-tie kriging "
+                                             "standard deviation (narrow near wells), or none (constant width)")
+    sample_method: SampleMethod = option("bilinear", None, "how features are read at the wells")
+    drop_outside: bool = option(False, "--drop-outside", "leave out wells off the grid, with a warning")
+    seed: int = option(0, "--seed", "random seed")
+    n_threads: int | None = option(None, "--threads", "LightGBM threads, used above a few thousand training rows "
+                                   "where they pay off (default: all cores; results do not depend on it)", type=int)
+    candidates: list[str] | None = option(None, "--candidate", "only these candidates (repeatable, e.g. --candidate "
+                                          "lightgbm --candidate linear); the baselines are among the names",
+                                          action="append")
+    facies_map: MapRule = option("balanced", "--facies-map", "how the facies map draws one class per node from the "
+                                 "probabilities: balanced (largest probability relative to the class's field-wide "
+                                 "share; default, see the README), proportions (class thresholds that reproduce the "
+                                 "field-wide proportions) or most-probable")
+    kriging_neighbours: int | None = option(None, "--kriging-neighbours", f"wells each map tile is kriged from "
+                                            f"(default: every well up to {GLOBAL_WELLS} wells, above that the "
+                                            f"nearest {NEIGHBOURS})", type=int, metavar="N")
+
+    def __post_init__(self):
+        if isinstance(self.monotone, list | tuple):  # the command line gives (attribute, direction) pairs
+            self.monotone = dict(self.monotone)
 
     def to_dict(self) -> dict:
         out = asdict(self)
@@ -113,12 +147,7 @@ class TrainOptions:
 
     def check(self) -> None:
         """Option values checked once, with the allowed values named."""
-        allowed = {"cv": DESIGNS, "declustering": ("cell", "nearest_node", "none"),
-                   "well_ties": ("auto", "always", "never"), "interval_spread": ("none", "features", "kriging"),
-                   "sample_method": ("bilinear", "nearest"), "facies_map": MAP_RULES}
-        for key, values in allowed.items():
-            if getattr(self, key) not in values:
-                raise InputError(f"{key} = {getattr(self, key)!r} is not known; choose one of {', '.join(values)}")
+        check_choices(self)
         if not (isinstance(self.n_splits, int) and self.n_splits >= 2):
             raise InputError(f"the number of CV folds (--folds, n_splits) must be an integer of 2 or more, got {self.n_splits!r}")
         k = self.kriging_neighbours
@@ -134,7 +163,7 @@ class TargetModel:
     task: Task
     transform: str | None
     classes: list[str]
-    model: object
+    model: Candidate
     calibration: IntervalCalibration | None
     block_size: float
     block_size_source: str
@@ -185,7 +214,7 @@ class TargetModel:
         if candidate not in self.candidates:
             raise ModelError(f"no candidate {candidate!r} for {self.name}; the leaderboard has "
                              f"{', '.join(self.candidates)}")
-        return type_copy(self.candidates[candidate]).fit(self.data)
+        return clone(self.candidates[candidate]).fit(self.data)
 
 
 @dataclass
@@ -202,12 +231,22 @@ class TrainedModels:
     warnings: list[str] = field(default_factory=list)
     well_features: pd.DataFrame | None = None  # features at the kept wells, same row order as ``wells``
     space: dict = field(default_factory=lambda: {"kind": "map"})  # map, or volume with its z domain and range
+    attribute_kinds: dict[str, str] = field(default_factory=dict)  # attribute -> impedance, amplitude, ...
 
 
 def task_of(wells: pd.DataFrame, target: str) -> Task:
     if target == "facies" or not pd.api.types.is_numeric_dtype(wells[target]):
         return "classification"
     return "regression"
+
+
+def _targets_by_role(wells: pd.DataFrame, options: TrainOptions) -> TrainOptions:
+    """A target named by its file column (``PHIT``) trains as the role the reader gave it (porosity)."""
+    taken = wells.attrs.get("columns_taken", {})
+    renamed = {col: role for role, col in taken.items() if role in ROLE_NAMES and col != role}
+    if not any(t in renamed for t in options.targets):
+        return options
+    return replace(options, targets=[renamed.get(t, t) for t in options.targets])
 
 
 def _check_inputs(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> None:
@@ -307,27 +346,6 @@ def _block_size(data: FitData, options: TrainOptions, attrs: list[str], baseline
     return float(size), source, vario
 
 
-def _candidates(task: Task, target: str, attrs: list[str], names: list[str], wells: pd.DataFrame,
-                options: TrainOptions, volume: bool = False) -> list:
-    if volume:
-        return [c for c in _candidates(task, target, attrs, names, wells, options) if c.name not in MAP_ONLY]
-    if task == "classification":
-        out = [Logistic(attrs), LightGBM("classification", names)]
-        if names != attrs:
-            out += [Logistic(names, "logistic_all_features"),
-                    LightGBM("classification", attrs, "lightgbm_attributes_only")]
-        return out
-    out = [Linear(attrs), Kriging(), RegressionKriging(attrs), LightGBM("regression", names)]
-    if names != attrs:
-        out.append(LightGBM("regression", attrs, "lightgbm_attributes_only"))
-    if options.monotone:
-        out.append(LightGBM("regression", names, "lightgbm_monotone", monotone=monotone_constraints(
-            options.monotone, attrs, names)))
-    if "facies" in wells and target != "facies" and wells["facies"].dropna().astype(str).nunique() >= 2:
-        out.append(FaciesMixture(names, member_features=attrs))
-    return out
-
-
 def monotone_constraints(given: dict[str, int], attrs: list[str], names: list[str]) -> dict[str, int]:
     """Per-feature monotone directions from the user's ``{attribute: -1 or +1}``: the attribute and
     its smoothed versions follow the given direction; contrasts and gradients stay free."""
@@ -360,6 +378,7 @@ def train(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> Train
     well ties -> calibrate intervals -> final fit and explanation.
     """
     options.check()
+    options = _targets_by_role(wells, options)
     _check_inputs(wells, grid, options)
     prep = _prepare(wells, grid, options)
     results = {target: _train_target(prep, target, options) for target in options.targets}
@@ -370,7 +389,7 @@ def train(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> Train
         prep.notes.append(f"location features {', '.join(loc)} are in use: they let a model memorise where the "
                           "wells are; compare with the attributes-only candidate in the leaderboard")
     return TrainedModels(options, prep.spec, prep.names, prep.ranges, prep.wells, prep.weights, prep.declustering,
-                         prep.statistics, results, prep.notes, prep.X, prep.space)
+                         prep.statistics, results, prep.notes, prep.X, prep.space, prep.attribute_kinds)
 
 
 @dataclass
@@ -399,6 +418,7 @@ class _Prepared:
     map_X_xy: np.ndarray  # their positions
     nearest_weights: np.ndarray  # nearest-node declustering weight of each row
     cell_weights: np.ndarray  # cell declustering weight of each row
+    attribute_kinds: dict[str, str]  # what each attribute is (impedance, amplitude, ...; see grid.attribute_kind)
 
 
 def _prepare(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> _Prepared:
@@ -457,7 +477,8 @@ def _prepare(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> _P
                  "wells_z_domain": wells_z_domain(wells), "z_range": [float(wells["z"].min()), float(wells["z"].max())],
                  "samples": int(len(wells)), "wells": int(wells["well_id"].nunique())}
     return _Prepared(wells, X_all, names, spec, xy, weights, units, cv_xy, map_xy, map_attrs, volume, ranges, decl,
-                     stats, facies_codes, facies_classes, space, notes, map_X, map_X_xy, stat_weights, cell_weights)
+                     stats, facies_codes, facies_classes, space, notes, map_X, map_X_xy, stat_weights, cell_weights,
+                     {a: attribute_kind(grid, a) for a in spec.attributes})
 
 
 def _attribute_cover(at_wells: pd.DataFrame, on_map: pd.DataFrame, attrs: list[str]) -> list[str]:
@@ -709,7 +730,10 @@ def _train_target(prep: _Prepared, target: str, options: TrainOptions) -> Target
     if prep.map_attrs is not None:
         margins += [(data.X[a].to_numpy(float), prep.map_attrs[a].to_numpy(float)) for a in attrs]
     representative, unsupported = representative_weights(data.weights, margins)
-    candidates = _candidates(task, target, attrs, prep.names, prep.wells, options, prep.volume)
+    facies = prep.wells["facies"].dropna().astype(str) if "facies" in prep.wells else pd.Series([], dtype=str)
+    candidates = leaderboard_candidates(
+        task, attrs, prep.names, volume=prep.volume, facies_mixture=target != "facies" and facies.nunique() >= 2,
+        monotone=monotone_constraints(options.monotone, attrs, prep.names) if options.monotone else None)
     if options.candidates:
         known = [c.name for c in candidates]
         candidates = [c for c in candidates if c.name in options.candidates]
@@ -725,7 +749,7 @@ def _train_target(prep: _Prepared, target: str, options: TrainOptions) -> Target
     chosen = _select(board, oofs, table, task)
     if task == "regression" and options.well_ties != "never" and not prep.volume and not isinstance(
             oofs[chosen][0], Kriging | RegressionKriging):
-        tied = WellTies(type_copy(oofs[chosen][0]))
+        tied = WellTies(clone(oofs[chosen][0]))
         oofs[tied.name] = (tied, out_of_fold(tied, data, design.splits))
         random_oof = out_of_fold(tied, data, random_design.splits)
         board.append(_board_row(tied.name, tied, task, table, oofs[tied.name][1], random_oof, representative))
@@ -740,7 +764,7 @@ def _train_target(prep: _Prepared, target: str, options: TrainOptions) -> Target
                      "the well spacing instead")
     if task == "regression":
         calibration, spread_model = _calibrate(model, data, y - oof, design, attrs, options, target, notes)
-    final = type_copy(model).fit(data)
+    final = clone(model).fit(data)
     on_map = final.predict(prep.map_X, prep.map_X_xy)
     wide = _field_wide(prep, table, target, task, oof, on_map, calibration, options.seed)
     notes += _field_wide_notes(target, wide)
@@ -760,7 +784,8 @@ def _train_target(prep: _Prepared, target: str, options: TrainOptions) -> Target
     aoa_cv = _inside_outside(task, y, oof, data.weights, classes, di <= aoa.threshold)
     warned, facts = trust_warnings(target, task, imp, data.X[prep.names], values[..., :-1] if values.ndim == 2 else
                                    values, chosen_row["cv"], chosen_row["cv_random"], len(classes),
-                                   pd.Series(table.units).groupby(folds).nunique().tolist())
+                                   pd.Series(table.units).groupby(folds).nunique().tolist(),
+                                   impedance=[a for a, kind in prep.attribute_kinds.items() if kind == "impedance"])
     distance = distance_summary(data.map_distances, designs, options.cv)
     distance["score_weights"] = {
         "what": "declustering weights raked so the held-out wells match the map's nearest-well distance and "
@@ -886,7 +911,7 @@ def _feature_spread(attrs, data: FitData, residuals, splits):
 def _oof_spread(model: WellTies, data: FitData, splits) -> np.ndarray:
     """Kriging standard deviation of the residual field at each held-out well, from its fold's model."""
     def fit_predict(train_rows, test):
-        return np.sqrt(type_copy(model).fit(data.subset(train_rows)).residual_variance(data.xy[test]))
+        return np.sqrt(clone(model).fit(data.subset(train_rows)).residual_variance(data.xy[test]))
 
     return fold_predictions(splits, len(data.y), fit_predict)
 

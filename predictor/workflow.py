@@ -22,11 +22,15 @@ from .volume import is_volume
 
 def train_files(wells_path, grid_path, out, targets, attributes=None, context_radii=(), gradient=False,
                 location=False, porosity_percent=False, x=None, y=None, overwrite=False, vertical_radii=(),
-                z_trend=False, z=None, z_domain=None, segy_name=None, **options):
-    """Read wells and a map or volume, train, and write the bundle to ``out``; returns (trained, folder)."""
+                z_trend=False, z=None, z_domain=None, segy_name=None, roles=None, kinds=None, **options):
+    """Read wells and a map or volume, train, and write the bundle to ``out``; returns (trained, folder).
+
+    ``roles`` names the file columns of porosity, permeability and facies (see
+    :func:`predictor.io.tables.read_wells`), ``kinds`` what each attribute is (see
+    :func:`predictor.grid.set_attribute_kinds`); ``options`` are :class:`TrainOptions` fields."""
     check_target(out, overwrite)  # fail before the long work, not after it
-    wells = read_wells(wells_path, x=x, y=y, z=z, porosity_percent=porosity_percent)
-    grid = read_seismic(grid_path, z_domain=z_domain, name=segy_name)
+    wells = read_wells(wells_path, x=x, y=y, z=z, porosity_percent=porosity_percent, roles=roles)
+    grid = read_seismic(grid_path, z_domain=z_domain, name=segy_name, kinds=kinds)
     spec = None  # no feature flags: the tool's default set (attributes plus context, compared by CV)
     if attributes or context_radii or gradient or location or vertical_radii or z_trend:
         spec = FeatureSpec(attributes=list(attributes) if attributes else [str(v) for v in grid.data_vars],

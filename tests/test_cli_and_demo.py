@@ -87,3 +87,33 @@ def test_global_options_after_the_subcommand_and_help_with_an_example():
     for command in ("qc", "train", "predict", "explain", "report", "demo"):
         text = parser._subparsers._group_actions[0].choices[command].format_help()
         assert "Writes:" in text and f"example:\n  predictor {command} " in text, command
+
+
+def test_train_options_come_from_the_one_table():
+    """Every field of TrainOptions with a flag parses into the same field, with the Literal's
+    values as the only choices, and the defaults equal the dataclass defaults."""
+    import dataclasses
+
+    import pytest
+
+    from predictor.cli import build_parser
+    from predictor.errors import InputError
+    from predictor.options import from_arguments
+    from predictor.training import TrainOptions
+
+    parser = build_parser()
+    base = ["train", "--wells", "w.csv", "--grid", "g.csv", "--target", "porosity", "--out", "b"]
+    defaults = TrainOptions(**from_arguments(parser.parse_args(base), TrainOptions))
+    for f in dataclasses.fields(TrainOptions):
+        if f.name not in ("targets", "features"):
+            assert getattr(defaults, f.name) == getattr(TrainOptions(targets=["x"]), f.name), f.name
+    given = TrainOptions(**from_arguments(parser.parse_args(base + [
+        "--cv", "blocks", "--folds", "4", "--monotone", "impedance:-1", "--declustering", "none",
+        "--kriging-neighbours", "20", "--candidate", "linear", "--candidate", "lightgbm"]), TrainOptions))
+    assert (given.cv, given.n_splits, given.monotone, given.declustering) == ("blocks", 4, {"impedance": -1}, "none")
+    assert (given.kriging_neighbours, given.candidates) == (20, ["linear", "lightgbm"])
+    with pytest.raises(SystemExit):
+        parser.parse_args(base + ["--cv", "block"])   # choices from the Literal, not a hand copy
+    with pytest.raises(InputError, match="--declustering / declustering = 'cells' is not known; choose one of "
+                                        "cell, nearest_node, none"):
+        TrainOptions(targets=["porosity"], declustering="cells").check()

@@ -16,7 +16,6 @@ from predictor.explain import (
     contributions,
     fit_applicability,
     importance,
-    output,
     permutation_shap,
 )
 from predictor.models import (
@@ -69,7 +68,7 @@ def test_local_accuracy_at_every_well(fitted, name):
     # Lundberg & Lee 2017 (NeurIPS): contributions plus the expected value equal the model output
     models, X, xy, names = fitted
     values, base = contributions(models[name], X, xy, names, background=X)
-    np.testing.assert_allclose(base + values.sum(axis=-1), output(models[name], X, xy), atol=1e-6)
+    np.testing.assert_allclose(base + values.sum(axis=-1), models[name].raw_output(X, xy), atol=1e-6)
 
 
 def _path_value(tree, x, coalition):

@@ -100,3 +100,86 @@ def test_spread_model_widens_where_errors_are_larger():
     # locally scaled intervals cover about 80 % in both regimes (constant ones would not)
     assert inside[hi].mean() == pytest.approx(0.8, abs=0.07)
     assert inside[lo].mean() == pytest.approx(0.8, abs=0.07)
+
+
+def test_candidates_follow_scikit_learn_conventions_and_clone_unfitted():
+    """sklearn.base.clone (which checks that __init__ stores its parameters unchanged) copies
+    every candidate with its settings and none of its fitted state; each kind loads by name."""
+    from sklearn.base import clone
+
+    from predictor.models import LOADERS, Kriging, RegressionKriging, WellTies
+
+    data = _data(120)
+    candidates = [Linear(["impedance"]), Logistic(["impedance"]), Kriging(),
+                  LightGBM("regression", ["impedance"], monotone={"impedance": -1}, max_rounds=50),
+                  RegressionKriging(["impedance"]), FaciesMixture(["impedance", "other"], member_features=["impedance"]),
+                  WellTies(Linear(["impedance"])), Blend([Linear(["impedance"]), Kriging()], [0.4, 0.6])]
+    assert set(LOADERS) >= {"linear", "logistic", "kriging", "lightgbm", "regression_kriging", "facies_mixture",
+                            "well_ties", "blend"}
+    for candidate in candidates:
+        copy = clone(candidate)
+        assert type(copy) is type(candidate) and copy.get_params(deep=False).keys() == \
+            candidate.get_params(deep=False).keys()
+        assert repr(copy) == repr(candidate) and copy.name == candidate.name
+    fitted = WellTies(Linear(["impedance"])).fit(data)
+    assert not hasattr(clone(fitted), "kriging_") and not hasattr(clone(fitted).base, "coef_")
+    assert not hasattr(fitted.base, "coef_")  # the parameter is never fitted in place: base_ is
+
+
+def test_blend_refits_its_weights_on_the_rows_it_is_given():
+    """Inside a fold a blend must not keep weights fitted on every well (the held-out ones too)."""
+    data = _data(200)
+    rng = np.random.default_rng(4)
+    # member out-of-fold predictions: member 0 good on the first half, member 1 on the second
+    good, bad = data.y + rng.normal(0, 0.001, 200), data.y + rng.normal(0, 0.05, 200)
+    P = np.column_stack([np.where(np.arange(200) < 100, good, bad), np.where(np.arange(200) < 100, bad, good)])
+    blend = Blend([Linear(["impedance"]), Linear(["other"], "linear_other")], [0.5, 0.5], member_oof=P, y_all=data.y)
+    first = blend.fit(data.subset(np.arange(100))).weights_
+    second = Blend(**blend.get_params(deep=False)).fit(data.subset(np.arange(100, 200))).weights_
+    assert first[0] > 0.9 and second[1] > 0.9
+    np.testing.assert_array_equal(blend.weights, [0.5, 0.5])   # the parameter is untouched
+
+
+def test_a_new_candidate_is_one_class(tmp_path):
+    """The contributor guide's example (DEVELOPERS.md): a subclass with a kind is cloned, cross-
+    validated, explained, saved and loaded with no edit anywhere else."""
+    from scipy.spatial import cKDTree
+    from sklearn.base import clone
+
+    from predictor.models import Candidate, _kriging_only, out_of_fold
+
+    class Nearest(Candidate):
+        kind = "nearest_well_example"
+
+        def __init__(self, name: str = "nearest_well"):
+            self.name = name
+
+        features = property(lambda self: [])
+
+        def fit(self, data):
+            self.xy_, self.y_ = data.xy.copy(), data.y.copy()
+            return self
+
+        def predict(self, X, xy):
+            return self.y_[cKDTree(self.xy_).query(xy)[1]]
+
+        def contributions(self, X, xy, names, background=None, seed=0):
+            return _kriging_only(self.predict(X, xy), len(names)), np.zeros(len(X))
+
+        def save(self, folder, stem):
+            return {"type": self.kind, "name": self.name, "xy": self.xy_.tolist(), "y": self.y_.tolist()}
+
+        @classmethod
+        def load(cls, desc, folder):
+            model = cls(desc["name"])
+            model.xy_, model.y_ = np.array(desc["xy"]), np.array(desc["y"])
+            return model
+
+    data = _data(100)
+    oof = out_of_fold(Nearest(), data)
+    assert oof.shape == (100,) and not np.allclose(oof, data.y)   # held-out wells are never their own nearest
+    fitted = clone(Nearest()).fit(data)
+    values, base = fitted.contributions(data.X, data.xy, ["impedance", "other"])
+    np.testing.assert_allclose(base + values.sum(-1), data.y)     # at the wells the nearest well is itself
+    back = load_candidate(fitted.save(tmp_path, "m"), tmp_path)
+    np.testing.assert_array_equal(back.predict(data.X, data.xy + 1.0), fitted.predict(data.X, data.xy + 1.0))

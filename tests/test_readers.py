@@ -154,3 +154,53 @@ def test_grid_from_table_duplicate_nodes():
     frame.attrs["source"] = "g.csv"
     with pytest.raises(InputError, match="appear twice"):
         grid_from_table(frame)
+
+
+def test_property_roles_follow_the_option_or_a_common_mnemonic(tmp_path):
+    """A porosity log named PHIT in percent is porosity, and so refused as percent; named by
+    --porosity-column it is read under its role, with the file column recorded."""
+    path = write(tmp_path / "w.csv", "WELL,X,Y,PHIT,KLOGH,LITHO\nA,0,0,21,150,sand\nB,100,0,12,3,shale\n"
+                                    "C,0,100,25,400,sand\n")
+    with pytest.raises(InputError, match=r"column 'PHIT' \(porosity\) looks like percent .*--porosity-percent"):
+        read_wells(path)
+    wells = read_wells(path, porosity_percent=True, roles={"permeability": "KLOGH"})
+    np.testing.assert_allclose(wells["porosity"], [0.21, 0.12, 0.25])
+    assert wells["facies"].tolist() == ["sand", "shale", "sand"]          # LITHO: a common mnemonic
+    assert wells.attrs["columns_taken"]["porosity"] == "PHIT" and "KLOGH" not in wells
+    assert wells.attrs["columns_taken"]["permeability"] == "KLOGH"
+    with pytest.raises(InputError, match=r"no column 'TOTPOR' for porosity \(--porosity-column\)"):
+        read_wells(path, roles={"porosity": "TOTPOR"})
+    both = write(tmp_path / "b.csv", "x,y,porosity,PHIE\n0,0,0.2,0.18\n1,1,0.1,0.09\n")
+    with pytest.raises(InputError, match="column 'PHIE' is taken as porosity .* also has a column 'porosity'"):
+        read_wells(both, roles={"porosity": "PHIE"})
+    assert read_wells(both)["porosity"].tolist() == [0.2, 0.1]              # the role's own name wins
+    with pytest.raises(InputError, match="unknown column role saturation"):
+        read_wells(both, roles={"saturation": "SW"})
+
+
+def test_a_target_named_by_its_file_column_trains_as_its_role(tmp_path):
+    from predictor.training import TrainOptions, _targets_by_role
+
+    path = write(tmp_path / "w.csv", "x,y,PHIT\n0,0,0.2\n100,0,0.1\n")
+    options = _targets_by_role(read_wells(path), TrainOptions(targets=["PHIT", "facies"]))
+    assert options.targets == ["porosity", "facies"]
+
+
+def test_attribute_kind_not_name_decides_the_positivity_check():
+    """A relative (signed) impedance is refused as impedance until the user says it is signed."""
+    from predictor.grid import attribute_kind, set_attribute_kinds
+    from predictor.qc import grid_findings
+
+    values = np.linspace(-500.0, 800.0, 20).reshape(4, 5)
+    grid = xr.Dataset({"rel_impedance": (("y", "x"), values), "vp": (("y", "x"), values + 3000)},
+                      coords={"y": np.arange(4.0), "x": np.arange(5.0)})
+    assert attribute_kind(grid, "rel_impedance") == "impedance" and attribute_kind(grid, "vp") == "velocity"
+    errors = [f for f in grid_findings(grid) if f.severity == "error"]
+    assert [f.column for f in errors] == ["rel_impedance"] and "--attribute-kind rel_impedance=amplitude" in \
+        errors[0].message
+    set_attribute_kinds(grid, {"rel_impedance": "amplitude"})
+    assert not [f for f in grid_findings(grid) if f.severity == "error"]
+    with pytest.raises(InputError, match="kind must be one of impedance, velocity, density, amplitude, other"):
+        set_attribute_kinds(grid, {"vp": "speed"})
+    with pytest.raises(InputError, match="names 'ai', which is not an attribute of the grid"):
+        set_attribute_kinds(grid, {"ai": "impedance"})

@@ -20,6 +20,12 @@ from ..errors import InputError, list_rows
 X_NAMES = ("x", "easting", "east", "x_m", "xcoord", "x_coord", "utm_x")
 Y_NAMES = ("y", "northing", "north", "y_m", "ycoord", "y_coord", "utm_y")
 Z_NAMES = ("z", "depth", "tvd", "tvdss", "twt", "time")
+# the column that plays each property role when no option names it (common log mnemonics)
+ROLE_NAMES = {"porosity": ("porosity", "phit", "phie", "phi", "por", "poro"),
+              "permeability": ("permeability", "perm", "kh", "perm_md", "k_md"),
+              "facies": ("facies", "lithofacies", "litho", "facies_code")}
+ROLE_OPTIONS = {"porosity": "--porosity-column", "permeability": "--permeability-column",
+                "facies": "--facies-column"}
 WELL_NAMES = ("well_id", "well", "wellid", "well_name", "wellname", "name", "id", "uwi")
 
 
@@ -153,13 +159,18 @@ def _row_labels(index: np.ndarray, labels: pd.Series | None) -> str:
 
 
 def read_wells(path: str | Path, x: str | None = None, y: str | None = None, z: str | None = None,
-               well_id: str | None = None, porosity_percent: bool = False) -> pd.DataFrame:
+               well_id: str | None = None, porosity_percent: bool = False,
+               roles: dict[str, str] | None = None) -> pd.DataFrame:
     """Read a wells table.
 
-    Returns a DataFrame with columns ``well_id``, ``x``, ``y`` (``z`` when present) and every
-    other column of the file under its own name.  ``attrs["columns_taken"]`` says which file
-    columns became the coordinates.  Porosity given in percent is refused unless
-    ``porosity_percent`` asks for the conversion.
+    Returns a DataFrame with columns ``well_id``, ``x``, ``y`` (``z`` when present), the
+    property roles ``porosity``, ``permeability`` and ``facies`` where the file has them, and
+    every other column of the file under its own name.  ``roles`` names the file column of a
+    role (``{"porosity": "PHIT"}``); without it a column of the role's name or a common
+    mnemonic (:data:`ROLE_NAMES`) plays it.  Physical checks, units and transforms follow the
+    role, never the file's name.  ``attrs["columns_taken"]`` says which file columns became the
+    coordinates and the roles taken from other names.  Porosity given in percent is refused unless ``porosity_percent``
+    asks for the conversion.
     """
     frame = read_table(path)
     source = frame.attrs["source"]
@@ -183,20 +194,45 @@ def read_wells(path: str | Path, x: str | None = None, y: str | None = None, z: 
             )
         out[key] = values
         taken[key] = col
+    role_of = _role_columns(frame, roles or {}, {c for c in (xc, yc, zc, wc) if c})
+    taken.update({role: col for col, role in role_of.items() if col != role})  # the renamed ones
     used = {c for c in (xc, yc, zc, wc) if c}
     for col in frame.columns:
         if col in used:
             continue
-        name = col.lower() if col.lower() in ("facies", "porosity", "permeability") else col
+        name = role_of.get(col, col)
         if name == "facies" or (name not in ("porosity", "permeability") and not _looks_numeric(frame[col])):
             out[name] = frame[col].to_numpy(dtype=object)
             out[name] = out[name].where(pd.notna(out[name]), None)
         else:
             out[name] = numeric_column(frame, col, ids)
     if "porosity" in out:
-        out["porosity"] = _porosity_fraction(out["porosity"].to_numpy(dtype=float), source, porosity_percent)
+        out["porosity"] = _porosity_fraction(out["porosity"].to_numpy(dtype=float), source, porosity_percent,
+                                             taken.get("porosity", "porosity"))
     out.attrs.update(source=source, columns_taken=taken)
     return out
+
+
+def _role_columns(frame: pd.DataFrame, roles: dict[str, str], used: set[str]) -> dict[str, str]:
+    """File column -> role for the property roles the table holds."""
+    source = frame.attrs.get("source", "table")
+    unknown = sorted(set(roles) - set(ROLE_NAMES))
+    if unknown:
+        raise InputError(f"unknown column role {', '.join(unknown)}; the roles are {', '.join(ROLE_NAMES)}")
+    role_of = {}
+    for role, aliases in ROLE_NAMES.items():
+        col = find_column(frame, roles.get(role), aliases, f"{role} ({ROLE_OPTIONS[role]})", required=False)
+        if col is None or col in used:
+            continue
+        if col in role_of:
+            raise InputError(f"{source}: column {col!r} is given two roles, {role_of[col]} and {role}; give each "
+                             f"role its own column ({ROLE_OPTIONS[role_of[col]]}, {ROLE_OPTIONS[role]})")
+        clash = [c for c in frame.columns if c.lower() == role and c != col]
+        if clash:
+            raise InputError(f"{source}: column {col!r} is taken as {role} ({ROLE_OPTIONS[role]}), but the table "
+                             f"also has a column {clash[0]!r}; rename or drop one of them")
+        role_of[col] = role
+    return role_of
 
 
 def _looks_numeric(col: pd.Series) -> bool:
@@ -209,13 +245,13 @@ def _looks_numeric(col: pd.Series) -> bool:
     return pd.to_numeric(text, errors="coerce").notna().mean() >= 0.5
 
 
-def _porosity_fraction(values: np.ndarray, source: str, percent: bool) -> np.ndarray:
+def _porosity_fraction(values: np.ndarray, source: str, percent: bool, column: str = "porosity") -> np.ndarray:
     finite = values[np.isfinite(values)]
     if percent:
         return values / 100.0
     if finite.size and finite.max() > 1.0 and finite.max() <= 100.0 and np.median(finite) > 1.0:
         raise InputError(
-            f"{source}: column 'porosity' looks like percent (values {finite.min():g} to {finite.max():g}); "
+            f"{source}: column {column!r} (porosity) looks like percent (values {finite.min():g} to {finite.max():g}); "
             "porosity must be a fraction: pass --porosity-percent (porosity_percent=True) to divide by 100"
         )
     return values
