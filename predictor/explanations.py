@@ -70,6 +70,15 @@ def contribution_maps(bundle: Bundle, grid: xr.Dataset, target: str, chunk: int 
     return out
 
 
+def _output_unit(target: str, info: dict) -> str:
+    """The unit SHAP values of a target are in: the model's raw output."""
+    if info["task"] == "classification":
+        return "log-odds"
+    if info.get("transform") == "log10":
+        return "log10 mD"
+    return "fraction" if target == "porosity" else "target units"
+
+
 def explain_bundle(bundle_dir, out, grid: xr.Dataset | None = None, overwrite: bool = False) -> list[str]:
     """Write importance tables, SHAP at the wells, figures and (with a grid) contribution maps."""
     from . import plots  # matplotlib loads when a figure is drawn, not on import
@@ -103,7 +112,9 @@ def explain_bundle(bundle_dir, out, grid: xr.Dataset | None = None, overwrite: b
                         plots.shap_dependence(v[:, idx], features, cols, feat, f"{target} {label}: {feat}".strip(),
                                               tmp / f"{stem}_dependence_{feat}.png")
             table.to_csv(tmp / f"{target}_shap_at_wells.csv", index=False)
-            lines.append(f"{target}: " + ", ".join(f"{k} {v:.3g}" for k, v in imp.head(5).items() if v > 0))
+            lines.append(f"{target}, mean |contribution| at the wells in {_output_unit(target, info)} "
+                         "(declustering-weighted; largest first): "
+                         + ", ".join(f"{k} {v:.3g}" for k, v in imp.head(5).items() if v > 0))
             if grid is not None:
                 maps = contribution_maps(bundle, grid, target)
                 write_netcdf(maps, tmp / f"{target}_shap_maps.nc")

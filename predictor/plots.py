@@ -446,3 +446,72 @@ def semivariograms(wells: pd.DataFrame, properties: list[str], path) -> Path:
         ax.set_ylim(bottom=0)
         ax.legend(fontsize=7)
     return save(fig, path)
+
+
+def _shown(maps: xr.Dataset, target: str, log: bool) -> tuple[xr.DataArray, dict, str, dict | None]:
+    """What a volume figure draws for a target: (values, imshow keywords, colour-bar label, class
+    colours or None) -- facies as class colours, permeability as log10 mD."""
+    values = maps[target]
+    if "flag_meanings" in values.attrs:
+        classes = values.attrs["flag_meanings"].split(" ")
+        colours = _category_colours(classes)
+        codes = values.where(values >= 0)
+        cmap = matplotlib.colors.ListedColormap([colours[c] for c in classes])
+        return codes, {"cmap": cmap, "vmin": -0.5, "vmax": len(classes) - 0.5}, target, colours
+    if log:
+        values = np.log10(values)
+    unit = " (log10 mD)" if log else " (fraction)" if target == "porosity" else ""
+    lo, hi = np.nanquantile(values.to_numpy(), [0.01, 0.99])
+    return values, {"cmap": "viridis", "vmin": lo, "vmax": hi}, f"{target} q50{unit}", None
+
+
+def _class_ticks(bar, colours: dict | None, horizontal: bool = True) -> None:
+    if colours is not None:
+        bar.set_ticks(range(len(colours)))
+        (bar.ax.set_xticklabels if horizontal else bar.ax.set_yticklabels)(list(colours), fontsize=8)
+
+
+def depth_slices(slices: list[xr.Dataset], wells: list[pd.DataFrame], target: str, path, log: bool = False) -> Path:
+    """Map views of a predicted volume at several z on one colour scale, each well filled with its
+    logged value (or class) at its sample nearest to that z."""
+    fig, axes = plt.subplots(1, len(slices), figsize=(4.3 * len(slices), 4.3), squeeze=False, layout="constrained")
+    for ax, part, near in zip(axes[0], slices, wells, strict=True):
+        values, style, label, colours = _shown(part, target, log)
+        im = _background(ax, part.assign(_v=values), "_v", **style)
+        _wells_on(ax, near, target, image=None if colours else im, colours=colours, log=log)
+        ax.set_title(f"z = {part.attrs['z_shown']:g} ({part.attrs.get('z_domain', 'unknown')})", fontsize=10)
+    bar = fig.colorbar(im, ax=list(axes[0]), shrink=0.6, location="bottom", label=label)
+    _class_ticks(bar, colours)
+    return save(fig, path)
+
+
+def well_section(section: xr.Dataset, on_section: pd.DataFrame, target: str, path, log: bool = False) -> Path:
+    """The predicted volume along a path through wells (z down), with each well's logged values
+    as a column of squares on the same colour scale, so a misfit along the well shows."""
+    values, style, label, colours = _shown(section, target, log)
+    distance, z = section.distance.to_numpy(), section.z.to_numpy()
+    step = float(distance[1] - distance[0]) if distance.size > 1 else 1.0
+    fig, ax = plt.subplots(figsize=(10.5, 4.2), layout="constrained")
+    im = ax.imshow(values.transpose("z", "distance").to_numpy(), aspect="auto", interpolation="nearest",
+                   extent=[distance[0] - step / 2, distance[-1] + step / 2, z[-1], z[0]], **style)
+    width = max(step * 1.5, (distance[-1] - distance[0]) / 120)
+    for well, rows in on_section.groupby("well_id", sort=False):
+        d = float(rows["distance"].iloc[0])
+        if colours is not None:
+            fill = [colours.get(str(v), "white") for v in rows[target]]
+        else:
+            v = rows[target].to_numpy(float)
+            if log:
+                with np.errstate(divide="ignore", invalid="ignore"):
+                    v = np.where(v > 0, np.log10(v), np.nan)
+            fill = [im.cmap(im.norm(x)) if np.isfinite(x) else (1, 1, 1, 1) for x in v]
+        ax.scatter(np.full(len(rows), d), rows["z"], c=fill, marker="s", s=14, edgecolor="k", linewidths=0.3)
+        ax.plot([d - width / 2, d + width / 2], [z[0], z[0]], color="k", linewidth=2)
+        ax.text(d, z[0], str(well), ha="center", va="bottom", fontsize=8)
+    ax.set_xlim(distance[0] - step / 2 - width, distance[-1] + step / 2 + width)
+    ax.set_xlabel("distance along the section (m)")
+    ax.set_ylabel(f"z ({section.attrs.get('z_domain', 'unknown')})")
+    ax.tick_params(labelsize=8)
+    bar = fig.colorbar(im, ax=ax, shrink=0.8, location="right", label=label)
+    _class_ticks(bar, colours, horizontal=False)
+    return save(fig, path)

@@ -19,6 +19,7 @@ from scipy.spatial import cKDTree
 
 from .errors import InputError, PredictorWarning, list_rows
 from .grid import POSITIVE_KINDS, attribute_kind, sample_at
+from .stats import design_effect
 from .volume import is_volume, sample_volume, well_heads, wells_z_domain
 
 Severity = Literal["error", "warning", "note"]
@@ -215,35 +216,49 @@ def pooled_t_from_moments(n1, mean1, sd1, n2, mean2, sd2) -> tuple[float, float,
     return float(t), float(dof), float(p)
 
 
-def bias_test(at_wells, over_map, attribute: str = "attribute", alpha: float = 0.05) -> dict:
+def bias_test(at_wells, over_map, attribute: str = "attribute", alpha: float = 0.05, groups=None) -> dict:
     """Compare an attribute at the wells with its values over the whole map.
 
     Pooled-variance two-sample t-test, two-sample Kolmogorov-Smirnov test (scipy), effect
     size (Cohen's d with the pooled sd) and a verdict in plain words.
+
+    ``groups`` names the well of each value when there are several per well (samples along
+    wells in a volume): they are not independent, so both tests count the wells' samples as
+    ``n / design effect`` (Kish's design effect from the within-well correlation), not ``n``.
     """
     a = np.asarray(at_wells, dtype=float)
     b = np.asarray(over_map, dtype=float)
-    a, b = a[np.isfinite(a)], b[np.isfinite(b)]
+    ok = np.isfinite(a)
+    a, b = a[ok], b[np.isfinite(b)]
     if a.size < 3:
         raise InputError(f"the bias test needs at least 3 wells with a value of {attribute!r}; got {a.size}")
-    t, dof, p_t = pooled_t_from_moments(a.size, a.mean(), a.std(ddof=1), b.size, b.mean(), b.std(ddof=1))
+    deff, icc = design_effect(a, np.asarray(groups)[ok]) if groups is not None else (1.0, 0.0)
+    n = a.size / deff  # effective number of independent samples at the wells
+    t, dof, p_t = pooled_t_from_moments(n, a.mean(), a.std(ddof=1), b.size, b.mean(), b.std(ddof=1))
     ks = sps.ks_2samp(a, b)
-    sp = np.sqrt(((a.size - 1) * a.var(ddof=1) + (b.size - 1) * b.var(ddof=1)) / dof)
+    # the asymptotic two-sample KS p-value, as scipy's ks_2samp(method="asymp") computes it, with n effective
+    p_ks = float(sps.kstwo.sf(ks.statistic, np.round(n * b.size / (n + b.size)))) if deff > 1 else float(ks.pvalue)
+    sp = np.sqrt(((a.size - 1) * a.var(ddof=1) + (b.size - 1) * b.var(ddof=1)) / (a.size + b.size - 2))
     d = float((a.mean() - b.mean()) / sp) if sp > 0 else 0.0
-    biased = (p_t < alpha or ks.pvalue < alpha) and abs(d) >= 0.2
+    biased = (p_t < alpha or p_ks < alpha) and abs(d) >= 0.2
     side = "lower" if d < 0 else "higher"
+    counted = (f"; {a.size} samples of {np.unique(np.asarray(groups)[ok]).size} wells counted as {n:.0f} "
+               f"independent ones (design effect {deff:.2g} from the within-well correlation {icc:.2f})"
+               if deff > 1 else "")
     if biased:
         verdict = (f"The wells sample {side} {attribute} than the map (well mean {a.mean():.4g} vs map mean "
-                   f"{b.mean():.4g}; effect size d = {d:+.2f}; t-test p = {p_t:.2g}; KS p = {ks.pvalue:.2g}): "
+                   f"{b.mean():.4g}; effect size d = {d:+.2f}; t-test p = {p_t:.2g}; KS p = {p_ks:.2g}{counted}): "
                    "drilling was preferential, so raw well statistics are biased; use declustering weights.")
     else:
         verdict = (f"No clear difference between {attribute} at the wells and over the map (d = {d:+.2f}; "
-                   f"t-test p = {p_t:.2g}; KS p = {ks.pvalue:.2g}); the wells look representative of this attribute.")
+                   f"t-test p = {p_t:.2g}; KS p = {p_ks:.2g}{counted}); the wells look representative of this "
+                   "attribute.")
     return {
         "attribute": attribute, "n_wells": int(a.size), "n_map": int(b.size),
+        "n_effective": float(n), "design_effect": float(deff), "within_well_correlation": icc,
         "mean_wells": float(a.mean()), "mean_map": float(b.mean()),
         "sd_wells": float(a.std(ddof=1)), "sd_map": float(b.std(ddof=1)),
-        "t": t, "dof": dof, "p_t": p_t, "ks_d": float(ks.statistic), "p_ks": float(ks.pvalue),
+        "t": t, "dof": dof, "p_t": p_t, "ks_d": float(ks.statistic), "p_ks": p_ks,
         "effect_size_d": d, "biased": bool(biased), "verdict": verdict,
     }
 
@@ -283,6 +298,8 @@ def run_qc(wells: pd.DataFrame, grid: xr.Dataset, tolerance: float = 1.0) -> QCR
         if len(counts) == 1:
             findings.append(Finding("warning", "facies", "facies",
                                     f"only one facies ({counts.index[0]}) in {source}; a facies model needs two or more"))
+        if volume:  # samples along one well are one piece of evidence: count wells per facies
+            counts = wells.dropna(subset=["facies"]).astype({"facies": str}).groupby("facies")["well_id"].nunique()
         rare = counts[counts < 3]
         if len(rare) and len(counts) > 1:
             findings.append(Finding("warning", "facies", "facies",
@@ -291,10 +308,11 @@ def run_qc(wells: pd.DataFrame, grid: xr.Dataset, tolerance: float = 1.0) -> QCR
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", PredictorWarning)
         if volume:
-            sampled, _ = sample_volume(grid, wells["x"], wells["y"], wells["z"], wells["well_id"], drop_outside=True,
-                                       wells_domain=wells_z_domain(wells))
+            sampled, kept = sample_volume(grid, wells["x"], wells["y"], wells["z"], wells["well_id"],
+                                          drop_outside=True, wells_domain=wells_z_domain(wells))
         else:
             sampled, _ = sample_at(grid, wells["x"], wells["y"], wells["well_id"], drop_outside=True)
     findings += [Finding("warning", "wells vs grid", None, str(w.message)) for w in caught]
-    bias = {var: bias_test(sampled[var], grid[var].to_numpy().ravel(), var) for var in grid.data_vars}
+    groups = wells["well_id"].to_numpy()[kept] if volume else None  # samples of one well are alike
+    bias = {var: bias_test(sampled[var], grid[var].to_numpy().ravel(), var, groups=groups) for var in grid.data_vars}
     return QCReport(findings, summarise(wells, columns), bias, wells.attrs.get("columns_taken", {}))

@@ -23,7 +23,14 @@ from .field_wide import METHOD_LABELS
 from .grid import read_seismic
 from .io.atomic import atomic_file
 from .predict import predict_maps
-from .volume import is_volume, map_view, view_depth, wells_in_view
+from .volume import (
+    depths_to_show,
+    is_volume,
+    map_view,
+    section_through_wells,
+    view_depth,
+    wells_in_view,
+)
 
 CAUTION = ("A predicted map is a model, not a measurement: it is only as good as the wells, the seismic and the "
            "assumptions behind it, and it can be confidently wrong away from the wells. Drilling, reserves and "
@@ -50,6 +57,11 @@ def _fmt(v, digits) -> str:
     if isinstance(v, float | np.floating):
         return "" if not np.isfinite(v) else f"{v:.{digits}g}"
     return html.escape(str(v))
+
+
+def _rows(card: dict) -> str:
+    """What one training row is: a well on a map, a sample along a well in a volume."""
+    return "samples" if card.get("space", {}).get("kind") == "volume" else "wells"
 
 
 def _section(key: str, title: str, body: str, css: str = "") -> tuple[str, str]:
@@ -90,12 +102,13 @@ def build_report(bundle_dir, out, grid_path=None, overwrite: bool = False, z_dom
         check = check_data(wells, grid)
         write_check(check, None, fig)
         maps = predict_maps(bundle, grid, exceed=_report_cutoffs(card))
-        shown_wells = wells
+        shown_wells, volume = wells, None
         if is_volume(grid):  # the figures show the map view at the middle of the wells' samples
             z = view_depth(grid, wells)
+            volume = (maps, wells)  # slices at several z and a section through wells come from it
             maps, shown_wells = map_view(maps, z), wells_in_view(wells, grid, z)
-        sections = [_summary(card, check, scenario), _data(check, fig), _bias(check, card, fig), _leaderboard(bundle, fig),
-                    _maps(maps, shown_wells, card, fig), _field_wide(card, maps, shown_wells, fig), _intervals(card, maps), _why(bundle, grid, shown_wells, fig),
+        sections = [_summary(card, check, scenario), _data(check, card, fig), _bias(check, card, fig), _leaderboard(bundle, fig),
+                    _maps(maps, shown_wells, card, fig, volume), _field_wide(card, maps, shown_wells, fig), _intervals(card, maps), _why(bundle, grid, shown_wells, fig),
                     _warnings(card, [str(w.message) for w in caught]), _provenance(card)]
     nav = " ".join(f'<a href="#{k}">{html.escape(t)}</a>' for k, t in NAV)
     template = Template(resources.files("predictor").joinpath("templates/report.html").read_text(encoding="utf-8"))
@@ -159,16 +172,16 @@ def against_baseline(info: dict) -> str:
             + ("; within one standard error" if noise else ""))
 
 
-def _data(check, fig):
+def _data(check, card, fig):
     findings = pd.DataFrame([{"severity": f.severity, "check": f.check, "message": f.message}
                              for f in check.qc.findings]) if check.qc.findings else None
     stats = pd.DataFrame({col: s for col, s in check.qc.summary["all"].items()}).T.reset_index(names="column")
     body = ("<h3>Findings</h3>" + (_table(findings) if findings is not None else '<p class="ok">no findings</p>')
-            + "<h3>Summary statistics (all wells)</h3>" + _table(stats)
+            + f"<h3>Summary statistics (all {_rows(card)})</h3>" + _table(stats)
             + _img(fig / "wells_on_map.png", "wells over the attribute map")
             + (_img(fig / "facies_distributions.png", "distributions per facies")
                if (fig / "facies_distributions.png").exists() else "")
-            + _facies_table(check)
+            + _facies_table(check, _rows(card))
             + (_img(fig / "crossplot.png", "attribute at the wells against porosity and permeability, coloured by "
                     "facies, with a least-squares line per facies and for all wells (dashed)")
                if (fig / "crossplot.png").exists() else "")
@@ -178,7 +191,7 @@ def _data(check, fig):
     return _section("data", "The data and its checks", body)
 
 
-def _facies_table(check) -> str:
+def _facies_table(check, counted: str = "wells") -> str:
     """Per-facies statistics of porosity and permeability at the wells (raw, not declustered)."""
     rows = []
     for key, columns in check.qc.summary.items():
@@ -186,11 +199,12 @@ def _facies_table(check) -> str:
             continue
         for col, s in columns.items():
             label = {"porosity": "porosity (fraction)", "permeability": "permeability (mD)"}.get(col, col)
-            rows.append({"facies": key.split("=", 1)[1], "property": label, "wells": s["count"], "mean": s["mean"],
+            rows.append({"facies": key.split("=", 1)[1], "property": label, counted: s["count"], "mean": s["mean"],
                          "q25": s["q25"], "median": s["median"], "q75": s["q75"]})
     if not rows:
         return ""
-    return ("<h3>Per facies (wells, not declustered)</h3>"
+    where = "samples along the wells" if counted == "samples" else "wells"
+    return (f"<h3>Per facies ({where}, not declustered)</h3>"
             + _table(pd.DataFrame(rows).sort_values(["property", "facies"], kind="stable")))
 
 
@@ -242,7 +256,7 @@ def _leaderboard(bundle, fig):
                  + _table(pd.DataFrame(rows), chosen) + _img(fig / f"board_{t}.png", f"{t}: matched vs random CV"))
         if (fig / f"reliability_{t}.png").exists():
             body += _img(fig / f"reliability_{t}.png", f"{t}: out-of-fold probability vs observed frequency of "
-                         "the chosen model (points: bins of at least 3 wells)")
+                         f"the chosen model (points: bins of at least 3 {_rows(card)})")
         design = info.get("cv_design")
         if design and "cdf" in design:
             plots.distance_cdfs(design, t, fig / f"distances_{t}.png")
@@ -269,16 +283,20 @@ def _design_sentences(design: dict) -> str:
     return text
 
 
-def _maps(maps, wells, card, fig):
+def _maps(maps, wells, card, fig, volume=None):
     from . import plots  # matplotlib loads when a figure is drawn, not on import
 
     body = ""
-    if "z_shown" in maps.attrs:
+    if volume is not None:
         domain = maps.attrs.get("z_domain", "unknown")
-        body = (f"<p>The volume seen at z = {maps.attrs['z_shown']:g} ({html.escape(domain)}), the middle of the "
-                "training samples; axes are survey line numbers and each well is drawn at its sample nearest to "
-                "that z. The predicted volume itself comes from <code>predictor predict</code>.</p>")
+        body = (f"<p>Map views show the volume at z = {maps.attrs['z_shown']:g} ({html.escape(domain)}), the middle "
+                "of the training samples, then at three z across the samples; axes are survey line numbers and each "
+                "well is drawn at its sample nearest to the z shown. The section follows a path through wells spread "
+                "along the field's long axis, with each well's logged samples on the same colour scale. The "
+                "predicted volume itself comes from <code>predictor predict</code>.</p>")
     for t, info in card["targets"].items():
+        if volume is not None:
+            body += _volume_figures(*volume, t, info, fig)
         if info["task"] == "classification":
             plots.facies_maps(maps, t, wells, fig / f"map_{t}.png")
             body += _img(fig / f"map_{t}.png", f"{t}: the facies map (its rule in the title) and the class "
@@ -292,10 +310,27 @@ def _maps(maps, wells, card, fig):
             body += _img(fig / f"aoa_{t}.png", f"{t}: area of applicability")
             inside, outside = a.get("cv_inside"), a.get("cv_outside")
             key = "rmse" if info["task"] == "regression" else "balanced_accuracy"
-            body += (f"<p class='small'>Matched-CV {key} of wells inside the area of applicability: "
-                     f"{_fmt(inside[key], 4) if inside else 'n/a'} ({a.get('wells_inside')} wells); outside: "
-                     f"{_fmt(outside[key], 4) if outside else 'n/a'} ({a.get('wells_outside')} wells).</p>")
+            n = _rows(card)
+            body += (f"<p class='small'>Matched-CV {key} of {n} inside the area of applicability: "
+                     f"{_fmt(inside[key], 4) if inside else 'n/a'} ({a.get('wells_inside')} {n}); outside: "
+                     f"{_fmt(outside[key], 4) if outside else 'n/a'} ({a.get('wells_outside')} {n}).</p>")
     return _section("maps", "Maps between the wells", body)
+
+
+def _volume_figures(vol, wells, target, info, fig) -> str:
+    """Depth slices and a section through wells of one target of a predicted volume."""
+    from . import plots
+
+    log = info.get("transform") == "log10"
+    depths = depths_to_show(wells)
+    plots.depth_slices([map_view(vol, z) for z in depths], [wells_in_view(wells, vol, z) for z in depths], target,
+                       fig / f"slices_{target}.png", log=log)
+    section, on_section = section_through_wells(vol, wells)
+    plots.well_section(section, on_section, target, fig / f"section_{target}.png", log=log)
+    return (_img(fig / f"slices_{target}.png", f"{target}: the predicted volume at three z, wells filled with their "
+                 "logged value at the nearest sample")
+            + _img(fig / f"section_{target}.png", f"{target}: section through wells {', '.join(section.attrs['wells'])} "
+                   "(squares: logged samples)"))
 
 
 def _report_cutoffs(card) -> dict:

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import numpy as np
+import pandas as pd
 
 
 def _clean(values, weights):
@@ -71,3 +72,28 @@ def describe(values, weights=None) -> dict[str, float]:
         "q90": float(q[4]),
         "max": float(v.max()) if v.size else float("nan"),
     }
+
+
+def design_effect(values, groups) -> tuple[float, float]:
+    """Kish's design effect of a mean over samples clustered in groups (samples along wells):
+    ``1 + (m - 1) * icc`` with ``m`` the mean group size and ``icc`` the intraclass correlation
+    from the one-way ANOVA estimator (Kish 1965, Survey Sampling, section 5.4; common practice).
+
+    Returns (design effect, icc); ``n / design effect`` samples carry the information of
+    independent ones. Groups of one sample each give 1.
+    """
+    v = pd.Series(np.asarray(values, dtype=float))
+    g = pd.Series(np.asarray(groups))
+    ok = v.notna().to_numpy()
+    v, g = v[ok], g[ok]
+    sizes = g.value_counts().to_numpy(dtype=float)
+    n, k = float(len(v)), len(sizes)
+    if k < 2 or n <= k:
+        return 1.0, 0.0
+    means = v.groupby(g.to_numpy()).transform("mean")
+    msw = float(((v - means) ** 2).sum()) / (n - k)
+    msb = float(((means - v.mean()) ** 2).sum()) / (k - 1)
+    m0 = (n - float((sizes**2).sum()) / n) / (k - 1)
+    denom = msb + (m0 - 1) * msw
+    icc = float(np.clip((msb - msw) / denom, 0.0, 1.0)) if denom > 0 else 0.0
+    return 1.0 + (n / k - 1.0) * icc, icc

@@ -347,3 +347,43 @@ def wells_in_view(wells: pd.DataFrame, vol: xr.Dataset, z: float) -> pd.DataFram
     fi, fj = fractional_index(vol, nearest["x"], nearest["y"])
     il0, step_il, xl0, step_xl = _lines(vol)
     return nearest.drop(columns="_dz").assign(x=xl0 + fj * step_xl, y=il0 + fi * step_il).sort_index()
+
+
+def depths_to_show(wells: pd.DataFrame, n: int = 3) -> list[float]:
+    """``n`` depths spread over the wells' samples (their 20th to 80th percentiles), for slices."""
+    return [float(v) for v in np.quantile(wells["z"], np.linspace(0.2, 0.8, n))]
+
+
+def section_through_wells(vol: xr.Dataset, wells: pd.DataFrame, n_wells: int = 5) -> tuple[xr.Dataset, pd.DataFrame]:
+    """A vertical section along a path through ``n_wells`` wells spread along the field's long
+    axis (the first principal axis of the well heads), the volume's nearest trace at every step.
+
+    Returns the section (dims ``("z", "distance")``, distance in metres along the path) and the
+    wells on it (``well_id``, ``distance``, the samples' ``z`` and values), each sample placed
+    at its well's head: a deviated well is drawn projected onto the section.
+    """
+    heads, _ = well_heads(wells)
+    xy = heads[["x", "y"]].to_numpy(float)
+    centred = xy - xy.mean(axis=0)
+    axis = np.linalg.svd(centred, full_matrices=False)[2][0] if len(xy) > 1 else np.array([1.0, 0.0])
+    along = centred @ axis
+    order = np.argsort(along)
+    picks = order[np.unique(np.round(np.linspace(0, len(order) - 1, min(n_wells, len(order)))).astype(int))]
+    path = xy[picks]
+    legs = np.hypot(*np.diff(path, axis=0).T)
+    at_well = np.concatenate([[0.0], np.cumsum(legs)])
+    step = min(lateral_spacing(vol))
+    distance = np.arange(0.0, at_well[-1] + step / 2, step) if at_well[-1] > 0 else np.array([0.0])
+    px, py = np.interp(distance, at_well, path[:, 0]), np.interp(distance, at_well, path[:, 1])
+    fi, fj = (np.rint(f).astype(int) for f in fractional_index(vol, px, py))
+    inside = (fi >= 0) & (fi < vol.sizes["inline"]) & (fj >= 0) & (fj < vol.sizes["crossline"])
+    il, xl = xr.DataArray(np.clip(fi, 0, vol.sizes["inline"] - 1), dims="distance"), \
+        xr.DataArray(np.clip(fj, 0, vol.sizes["crossline"] - 1), dims="distance")
+    section = vol.drop_vars([c for c in ("cdp_x", "cdp_y") if c in vol.coords]).isel(inline=il, crossline=xl)
+    section = section.drop_vars([c for c in ("inline", "crossline") if c in section.coords])
+    section = section.where(xr.DataArray(inside, dims="distance")).assign_coords(distance=distance)
+    section.attrs = {**vol.attrs, "wells": [str(heads["well_id"].iloc[i]) for i in picks]}
+    chosen = heads["well_id"].iloc[picks].to_numpy()
+    on = wells[wells["well_id"].isin(chosen)].copy()
+    on["distance"] = on["well_id"].map(dict(zip(chosen, at_well, strict=True))).astype(float)
+    return section, on

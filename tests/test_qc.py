@@ -15,6 +15,7 @@ from predictor.qc import (
     run_qc,
     tukey_fences,
 )
+from predictor.stats import design_effect
 
 
 def _sample_with_moments(n, mean, sd, seed):
@@ -47,6 +48,31 @@ def test_bias_verdict_when_representative():
     rng = np.random.default_rng(3)
     result = bias_test(rng.normal(size=40), rng.normal(size=5000), "impedance")
     assert not result["biased"] and result["verdict"].startswith("No clear difference")
+
+
+def test_design_effect_hand_worked():
+    # one-way ANOVA intraclass correlation, ICC(1) of Shrout & Fleiss (1979), worked by hand:
+    # groups [1, 2, 3] and [4, 5, 6]: MSB = 13.5, MSW = 1, m = 3, ICC = 12.5 / 15.5;
+    # Kish's design effect 1 + (m - 1) ICC (Kish 1965, recalled from memory)
+    deff, icc = design_effect([1, 2, 3, 4, 5, 6], ["a", "a", "a", "b", "b", "b"])
+    assert icc == pytest.approx(12.5 / 15.5) and deff == pytest.approx(1 + 2 * 12.5 / 15.5)
+    assert design_effect(np.arange(10.0), np.arange(10)) == (1.0, 0.0)  # one sample per group
+    assert design_effect(np.repeat([1.0, 5.0, 2.0], 4), np.repeat([0, 1, 2], 4))[0] == pytest.approx(4.0)
+
+
+def test_bias_test_counts_samples_of_one_well_once():
+    # ten identical samples per well carry the evidence of one: the test on the copies must
+    # match scipy's t-test on the wells (up to the ddof of the copies' sd), not be 10x as sure
+    rng = np.random.default_rng(4)
+    per_well, over_map = rng.normal(0.35, 1.0, 40), rng.normal(0.0, 1.0, 20000)
+    copies = bias_test(np.repeat(per_well, 10), over_map, "impedance", groups=np.repeat(np.arange(40), 10))
+    wells = bias_test(per_well, over_map, "impedance")
+    assert copies["design_effect"] == pytest.approx(10.0) and copies["n_effective"] == pytest.approx(40.0)
+    assert copies["p_t"] == pytest.approx(sps.ttest_ind(per_well, over_map).pvalue, rel=0.25)
+    assert copies["p_ks"] == pytest.approx(wells["p_ks"], rel=0.25)
+    naive = bias_test(np.repeat(per_well, 10), over_map, "impedance")
+    assert naive["p_t"] < copies["p_t"] / 1000  # what counting every sample would have claimed
+    assert "counted as 40 independent ones" in copies["verdict"]
 
 
 def test_tukey_fences_hand_worked():

@@ -245,9 +245,12 @@ def test_bad_volume_predictions(case, files, bundle, tmp_path, capsys, monkeypat
     _check(tmp_path, capsys, monkeypatch, argv, PREDICT_CASES[case][1])
 
 
-def test_explain_and_report_show_a_volume_at_the_wells_middle_depth(bundle, files, tmp_path):
+def test_explain_and_report_show_a_volume_at_the_wells_middle_depth(bundle, files, tmp_path, capsys):
     assert main(["--quiet", "explain", str(bundle), "--grid", files["impedance.nc"], "--out",
                  str(tmp_path / "ex")]) == 0
+    printed = capsys.readouterr().out  # the numbers say what they are
+    assert "porosity, mean |contribution| at the wells in fraction (declustering-weighted" in printed
+    assert "facies, mean |contribution| at the wells in log-odds" in printed
     shap = xr.open_dataset(tmp_path / "ex" / "porosity_shap_maps.nc")
     wells = pd.read_csv(files["well_samples.csv"])
     z = float(np.median(wells.depth))
@@ -255,8 +258,12 @@ def test_explain_and_report_show_a_volume_at_the_wells_middle_depth(bundle, file
     assert shap["porosity_shap_impedance"].dims == ("y", "x") and np.isfinite(shap["porosity_shap_impedance"]).all()
     assert main(["--quiet", "report", str(bundle), "--out", str(tmp_path / "r.html")]) == 0
     page = (tmp_path / "r.html").read_text()
-    assert f"The volume seen at z = {shap.attrs['z_shown']:g} (depth)" in page
+    assert f"show the volume at z = {shap.attrs['z_shown']:g} (depth)" in page
     assert page.count("data:image/png;base64,") >= 8
+    # counted by what a row is: samples along wells, not wells
+    assert "Summary statistics (all samples)" in page and "samples inside the area of applicability" in page
+    # one of each per target (porosity, facies), each named in its alt text and its caption
+    assert page.count("section through wells") == 4 and page.count("the predicted volume at three z") == 4
 
 
 def test_volume_demo_runs_end_to_end_and_its_report_follows_the_moved_folder(tmp_path):
@@ -273,3 +280,23 @@ def test_volume_demo_runs_end_to_end_and_its_report_follows_the_moved_folder(tmp
         assert (tmp_path / "demo" / name).exists(), name
     # the bundle recorded its input inside the temporary folder the demo was built in
     assert main(["--quiet", "report", str(tmp_path / "demo" / "bundle"), "--out", str(tmp_path / "again.html")]) == 0
+
+
+def test_a_section_through_wells_reads_the_traces_under_its_wells(field):
+    from predictor.volume import section_through_wells
+
+    vol, _, wells = field
+    section, on = section_through_wells(vol, wells, n_wells=4)
+    heads = wells.groupby("well_id")[["x", "y"]].mean().loc[section.attrs["wells"]]
+    assert len(heads) == 4
+    legs = np.hypot(np.diff(heads.x), np.diff(heads.y))  # the path joins the wells in order
+    at = on.drop_duplicates("well_id").set_index("well_id").loc[heads.index, "distance"]
+    np.testing.assert_allclose(at, np.concatenate([[0.0], np.cumsum(legs)]))
+    centred = heads.to_numpy() - wells.groupby("well_id")[["x", "y"]].mean().to_numpy().mean(axis=0)
+    axis = np.linalg.svd(centred, full_matrices=False)[2][0]
+    assert np.all(np.diff(centred @ axis) > 0) or np.all(np.diff(centred @ axis) < 0)  # ordered along one axis
+    for well, head in heads.iterrows():  # at a well the section is the volume's trace nearest to its head
+        fi, fj = fractional_index(vol, [head.x], [head.y])
+        trace = vol["impedance"].isel(inline=int(np.rint(fi[0])), crossline=int(np.rint(fj[0])))
+        column = section["impedance"].sel(distance=at[well], method="nearest")
+        np.testing.assert_allclose(column.to_numpy(), trace.to_numpy())

@@ -14,10 +14,11 @@ from ..errors import InputError
 
 
 def check_target(target: str | Path, overwrite: bool) -> Path:
-    """Refuse to replace an existing output unless asked to."""
+    """Refuse to replace an existing output unless asked to (``--overwrite`` on the command line,
+    ``overwrite=True`` from Python; the message speaks the command line's words)."""
     target = Path(target)
     if target.exists() and not overwrite:
-        raise InputError(f"{target}: already exists; pass --overwrite (overwrite=True) to replace it")
+        raise InputError(f"{target}: already exists; pass --overwrite to replace it")
     if not target.parent.exists():
         target.parent.mkdir(parents=True, exist_ok=True)
     return target

@@ -187,7 +187,7 @@ def write_segy_set(ds: xr.Dataset, target: str | Path, overwrite: bool = False) 
     if not overwrite:
         there = [str(p) for p in paths.values() if p.exists()]
         if there:
-            raise InputError(f"{there[0]}: already exists; pass --overwrite (overwrite=True) to replace it")
+            raise InputError(f"{there[0]}: already exists; pass --overwrite to replace it")
     with ExitStack() as stack:
         for var, path in paths.items():
             tmp = stack.enter_context(atomic_file(path, overwrite=True))
