@@ -305,18 +305,18 @@ def shap_maps(maps: xr.Dataset, variables: list[str], wells: pd.DataFrame | None
     return save(fig, path)
 
 
-def applicability_map(maps: xr.Dataset, target: str, wells: pd.DataFrame | None, path) -> Path:
-    """The target's map with the nodes outside the area of applicability shaded."""
+def applicability_map(maps: xr.Dataset, target: str, wells: pd.DataFrame | None, path, log: bool = False) -> Path:
+    """The target's map with the nodes outside the area of applicability shaded (facies: the
+    probability of the most probable class; permeability with ``log``: log10 mD)."""
     fig, ax = plt.subplots(figsize=(5.8, 4.6), layout="constrained")
-    var = target if f"{target}_prob_" not in " ".join(maps.data_vars) else None
-    if var is None:
-        probs = [v for v in maps.data_vars if str(v).startswith(f"{target}_prob_")]
+    if "flag_meanings" in maps[target].attrs:  # classes: how sure the model is, not which class
+        probs = [f"{target}_prob_{c}" for c in maps[target].attrs["flag_meanings"].split(" ")]
         shown = maps.assign(_top=(("y", "x"), np.nanmax(np.stack([maps[p].to_numpy() for p in probs]), axis=0)))
         im = _background(ax, shown, "_top", cmap="magma", vmin=0, vmax=1)
         label = f"{target}: probability of the most probable class"
     else:
-        im = _background(ax, maps, var, cmap="viridis")
-        label = f"{target} q50"
+        values, style, label, _ = _shown(maps, target, log)
+        im = _background(ax, maps.assign(_v=values), "_v", **style)
     fig.colorbar(im, ax=ax, shrink=0.7, location="bottom", label=label)
     outside = (maps[f"{target}_applicable"].to_numpy() == 0).astype(float)
     ax.imshow(np.where(outside > 0, 1.0, np.nan), origin="lower", extent=_extent(maps), cmap="Greys",

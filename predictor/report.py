@@ -305,7 +305,7 @@ def _maps(maps, wells, card, fig, volume=None):
             plots.property_maps(maps, t, wells, fig / f"map_{t}.png", log=info.get("transform") == "log10")
             body += _img(fig / f"map_{t}.png", f"{t}: median and 80 % interval width, wells on top")
         if f"{t}_applicable" in maps:
-            plots.applicability_map(maps, t, wells, fig / f"aoa_{t}.png")
+            plots.applicability_map(maps, t, wells, fig / f"aoa_{t}.png", log=info.get("transform") == "log10")
             a = info.get("applicability", {})
             body += _img(fig / f"aoa_{t}.png", f"{t}: area of applicability")
             inside, outside = a.get("cv_inside"), a.get("cv_outside")
