@@ -5,6 +5,7 @@ import numpy as np
 import pandas as pd
 import pytest
 import xarray as xr
+from conftest import open_in_browser
 from scipy.interpolate import RegularGridInterpolator
 
 from predictor.checks import decluster_samples, well_heads
@@ -262,6 +263,7 @@ def test_explain_and_report_show_a_volume_at_the_wells_middle_depth(bundle, file
     assert page.count("data:image/png;base64,") >= 8
     # counted by what a row is: samples along wells, not wells
     assert "Summary statistics (all samples)" in page and "samples inside the area of applicability" in page
+    open_in_browser(tmp_path / "r.html", tmp_path / "profile")  # decodes, captions, headers, no temporary path
     # one of each per target (porosity, facies), each named in its alt text and its caption
     assert page.count("section through wells") == 4 and page.count("the predicted volume at three z") == 4
 
