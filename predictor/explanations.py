@@ -8,7 +8,7 @@ import xarray as xr
 
 from .bundle import Bundle, load_bundle
 from .explain import KRIGING, contributions, importance
-from .features import build_features, feature_matrix
+from .features import build_features, describe_feature, feature_matrix
 from .io.atomic import atomic_folder
 from .io.netcdf import write_netcdf
 from .volume import is_volume, map_view, view_depth, wells_in_view
@@ -66,7 +66,8 @@ def contribution_maps(bundle: Bundle, grid: xr.Dataset, target: str, chunk: int 
             full = np.full(valid.size, np.nan)
             full[valid] = v[:, j]
             out[f"{prefix}_shap_{name}"] = (("y", "x"), full.reshape(shape))
-            out[f"{prefix}_shap_{name}"].attrs["long_name"] = f"contribution of {name} to {target} {label}".strip()
+            out[f"{prefix}_shap_{name}"].attrs["long_name"] = (f"contribution of {describe_feature(name)} to "
+                                                               f"{target} {label}").strip()
     return out
 
 
@@ -109,7 +110,8 @@ def explain_bundle(bundle_dir, out, grid: xr.Dataset | None = None, overwrite: b
                                        tmp / f"{stem}_summary.png")
                     top = sorted(cols, key=lambda c: -imp.get(c, 0))[:2]
                     for feat in top:
-                        plots.shap_dependence(v[:, idx], features, cols, feat, f"{target} {label}: {feat}".strip(),
+                        plots.shap_dependence(v[:, idx], features, cols, feat,
+                                              f"{target} {label}: {describe_feature(feat)}".strip(),
                                               tmp / f"{stem}_dependence_{feat}.png")
             table.to_csv(tmp / f"{target}_shap_at_wells.csv", index=False)
             lines.append(f"{target}, mean |contribution| at the wells in {_output_unit(target, info)} "

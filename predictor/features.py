@@ -7,6 +7,7 @@ well values) means training sees exactly what prediction sees: no train/predict 
 from __future__ import annotations
 
 import os
+import re
 from dataclasses import asdict, dataclass, field
 
 import numpy as np
@@ -314,3 +315,25 @@ def feature_matrix(features: xr.Dataset, names: list[str]) -> tuple[np.ndarray, 
     stack = np.stack([features[n].to_numpy().ravel() for n in names], axis=1)
     valid = np.all(np.isfinite(stack), axis=1)
     return (stack if valid.all() else stack[valid]), valid
+
+
+_FEATURE_WORDS = ((r"(.+)_smooth([\d.]+)m", "{0} smoothed over {1:,.0f} m"),
+                  (r"(.+)_contrast([\d.]+)m", "{0} minus its {1:,.0f} m smoothing"),
+                  (r"(.+)_vsmooth([\d.]+)", "{0} smoothed vertically over {1:g} (z units)"),
+                  (r"(.+)_vcontrast([\d.]+)", "{0} minus its vertical smoothing over {1:g} (z units)"),
+                  (r"(.+)_gradient", "lateral gradient of {0}"))
+_PLAIN = {"x_coord": "easting", "y_coord": "northing", "x_rotated": "rotated easting",
+          "y_rotated": "rotated northing", "z_coord": "z", "kriging_of_wells": "kriging of the wells"}
+
+
+def describe_feature(name: str) -> str:
+    """A feature's name in words, for figure titles: ``impedance_smooth1000m`` is "impedance
+    smoothed over 1,000 m"."""
+    if name in _PLAIN:
+        return _PLAIN[name]
+    for pattern, words in _FEATURE_WORDS:
+        match = re.fullmatch(pattern, name)
+        if match:
+            parts = [match.group(1), *(float(g) for g in match.groups()[1:])]
+            return words.format(*parts)
+    return name

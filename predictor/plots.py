@@ -301,7 +301,7 @@ def shap_maps(maps: xr.Dataset, variables: list[str], wells: pd.DataFrame | None
         im = _background(ax, maps, var, cmap="RdBu_r", vmin=-limit, vmax=limit)
         fig.colorbar(im, ax=ax, shrink=0.7, location="bottom", label="contribution")
         _wells_on(ax, wells)
-        ax.set_title(var, fontsize=9)
+        ax.set_title("\n".join(_wrap(maps[var].attrs.get("long_name", var), 42)), fontsize=9)
     return save(fig, path)
 
 

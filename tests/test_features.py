@@ -18,3 +18,14 @@ def test_smoothing_equals_scipy_gaussian_filter(shape, sigma):
     np.testing.assert_allclose(ours, ref, rtol=1e-13, atol=0)
     if max(sigma) * 8 + 1 <= FFT_TAPS:
         np.testing.assert_array_equal(ours, ref)  # short kernels: scipy's own code, bit for bit
+
+
+def test_feature_names_read_as_words_in_titles():
+    from predictor.features import describe_feature
+
+    assert describe_feature("impedance_smooth1000m") == "impedance smoothed over 1,000 m"
+    assert describe_feature("ai_contrast250m") == "ai minus its 250 m smoothing"
+    assert describe_feature("impedance_vsmooth12") == "impedance smoothed vertically over 12 (z units)"
+    assert describe_feature("ai_gradient") == "lateral gradient of ai"
+    assert describe_feature("kriging_of_wells") == "kriging of the wells"
+    assert describe_feature("impedance") == "impedance"  # an attribute is its own name
