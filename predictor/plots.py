@@ -505,7 +505,9 @@ def well_section(section: xr.Dataset, on_section: pd.DataFrame, target: str, pat
                 with np.errstate(divide="ignore", invalid="ignore"):
                     v = np.where(v > 0, np.log10(v), np.nan)
             fill = [im.cmap(im.norm(x)) if np.isfinite(x) else (1, 1, 1, 1) for x in v]
-        ax.scatter(np.full(len(rows), d), rows["z"], c=fill, marker="s", s=14, edgecolor="k", linewidths=0.3)
+        column = np.full(len(rows), d)
+        ax.scatter(column, rows["z"], c="white", marker="s", s=34, linewidths=0)  # sets the well apart
+        ax.scatter(column, rows["z"], c=fill, marker="s", s=14, edgecolor="k", linewidths=0.3)
         ax.plot([d - width / 2, d + width / 2], [z[0], z[0]], color="k", linewidth=2)
         ax.text(d, z[0], str(well), ha="center", va="bottom", fontsize=8)
     ax.set_xlim(distance[0] - step / 2 - width, distance[-1] + step / 2 + width)
