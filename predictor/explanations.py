@@ -71,7 +71,7 @@ def contribution_maps(bundle: Bundle, grid: xr.Dataset, target: str, chunk: int 
     return out
 
 
-def _output_unit(target: str, info: dict) -> str:
+def output_unit(target: str, info: dict) -> str:
     """The unit SHAP values of a target are in: the model's raw output."""
     if info["task"] == "classification":
         return "log-odds"
@@ -114,7 +114,7 @@ def explain_bundle(bundle_dir, out, grid: xr.Dataset | None = None, overwrite: b
                                               f"{target} {label}: {describe_feature(feat)}".strip(),
                                               tmp / f"{stem}_dependence_{feat}.png")
             table.to_csv(tmp / f"{target}_shap_at_wells.csv", index=False)
-            lines.append(f"{target}, mean |contribution| at the wells in {_output_unit(target, info)} "
+            lines.append(f"{target}, mean |contribution| at the wells in {output_unit(target, info)} "
                          "(declustering-weighted; largest first): "
                          + ", ".join(f"{k} {v:.3g}" for k, v in imp.head(5).items() if v > 0))
             if grid is not None:
@@ -122,7 +122,8 @@ def explain_bundle(bundle_dir, out, grid: xr.Dataset | None = None, overwrite: b
                 write_netcdf(maps, tmp / f"{target}_shap_maps.nc")
                 ranked = sorted(maps.data_vars, key=lambda v: -float(np.nanmean(np.abs(maps[v].to_numpy()))))
                 shown = wells_in_view(wells, grid, maps.attrs["z_shown"]) if is_volume(grid) else wells
-                plots.shap_maps(maps, [str(v) for v in ranked[:3]], shown, tmp / f"{target}_shap_maps.png")
+                plots.shap_maps(maps, [str(v) for v in ranked[:3]], shown, tmp / f"{target}_shap_maps.png",
+                                unit=output_unit(target, info))
         for warning in bundle.card.get("warnings", []):
             lines.append(f"warning: {warning}")
     return lines

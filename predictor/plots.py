@@ -292,14 +292,16 @@ def shap_dependence(values: np.ndarray, X: pd.DataFrame, names: list[str], featu
     return save(fig, path)
 
 
-def shap_maps(maps: xr.Dataset, variables: list[str], wells: pd.DataFrame | None, path) -> Path:
-    """Contribution maps of the top features (diverging colours around zero)."""
+def shap_maps(maps: xr.Dataset, variables: list[str], wells: pd.DataFrame | None, path, unit: str = "") -> Path:
+    """Contribution maps of the top features (diverging colours around zero), in ``unit`` (the
+    model's raw output: a fraction, log10 mD or log-odds)."""
     n = len(variables)
     fig, axes = plt.subplots(1, n, figsize=(4.6 * n, 4.2), squeeze=False, layout="constrained")
     for ax, var in zip(axes[0], variables, strict=True):
         limit = float(np.nanmax(np.abs(maps[var].to_numpy()))) or 1.0
         im = _background(ax, maps, var, cmap="RdBu_r", vmin=-limit, vmax=limit)
-        fig.colorbar(im, ax=ax, shrink=0.7, location="bottom", label="contribution")
+        fig.colorbar(im, ax=ax, shrink=0.7, location="bottom", label=f"contribution ({unit})" if unit else
+                     "contribution")
         _wells_on(ax, wells)
         ax.set_title("\n".join(_wrap(maps[var].attrs.get("long_name", var), 42)), fontsize=9)
     return save(fig, path)

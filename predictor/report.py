@@ -18,7 +18,7 @@ from .bundle import load_bundle
 from .checks import check_data, write_check
 from .errors import InputError, PredictorWarning
 from .explain import KRIGING
-from .explanations import contribution_maps, explain_wells
+from .explanations import contribution_maps, explain_wells, output_unit
 from .field_wide import METHOD_LABELS
 from .grid import read_seismic
 from .io.atomic import atomic_file
@@ -433,7 +433,7 @@ def _why(bundle, grid, wells, fig):
         maps = contribution_maps(bundle, grid, t)
         ranked = sorted(maps.data_vars, key=lambda var: -float(np.nanmean(np.abs(maps[var].to_numpy()))))[:3]
         if ranked:
-            plots.shap_maps(maps, [str(r) for r in ranked], wells, fig / f"shapmap_{t}.png")
+            plots.shap_maps(maps, [str(r) for r in ranked], wells, fig / f"shapmap_{t}.png", unit=output_unit(t, info))
             body += _img(fig / f"shapmap_{t}.png", f"{t}: contribution maps of the leading features")
     return _section("why", "Why the model predicts what it does", body)
 
