@@ -29,7 +29,7 @@ def _wells_options(p: argparse.ArgumentParser) -> None:
                    help="what a grid attribute is: impedance, velocity, density (positive), amplitude (signed) or "
                    "other (e.g. --attribute-kind rel_ai=amplitude; repeatable); default: guessed from the name. "
                    "The positivity and units checks and the rock-physics sign check follow it")
-    for role, example in (("porosity", "PHIT"), ("permeability", "KLOGH"), ("facies", "LITHO")):
+    for role, example in (("porosity", "PHIT"), ("permeability", "CORE_K"), ("facies", "LITHO")):
         p.add_argument(f"--{role}-column", metavar="COLUMN",
                        help=f"the wells column that holds {role} (e.g. {example}), when it is not named {role} or a "
                        "common mnemonic; its checks, units and transform follow")
