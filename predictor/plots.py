@@ -159,15 +159,21 @@ def _wells_on(ax, wells: pd.DataFrame | None, column: str | None = None, image=N
     if wells is None:
         return
     fill: object = "white"
-    if column and column in wells and colours is not None:
-        fill = [colours.get(str(v), "white") for v in wells[column]]
-    elif column and column in wells and image is not None:
-        v = wells[column].to_numpy(dtype=float)
-        if log:
-            with np.errstate(divide="ignore", invalid="ignore"):
-                v = np.where(v > 0, np.log10(v), np.nan)
-        fill = [image.cmap(image.norm(x)) if np.isfinite(x) else (1, 1, 1, 1) for x in v]
+    if column and column in wells and (colours is not None or image is not None):
+        fill = _fill(wells[column], image, colours, log)
     ax.scatter(wells["x"], wells["y"], s=18, c=fill, edgecolor="k", linewidths=0.8, label="wells")
+
+
+def _fill(values: pd.Series, image=None, colours: dict | None = None, log: bool = False) -> list:
+    """Logged values as colours: a class's colour, or the value on an image's colour scale
+    (log10 with ``log``); white where there is none."""
+    if colours is not None:
+        return [colours.get(str(v), "white") for v in values]
+    v = values.to_numpy(dtype=float)
+    if log:
+        with np.errstate(divide="ignore", invalid="ignore"):
+            v = np.where(v > 0, np.log10(v), np.nan)
+    return [image.cmap(image.norm(x)) if np.isfinite(x) else (1, 1, 1, 1) for x in v]
 
 
 def facies_maps(maps: xr.Dataset, target: str, wells: pd.DataFrame | None, path) -> Path:
@@ -499,14 +505,7 @@ def well_section(section: xr.Dataset, on_section: pd.DataFrame, target: str, pat
     width = max(step * 1.5, (distance[-1] - distance[0]) / 120)
     for well, rows in on_section.groupby("well_id", sort=False):
         d = float(rows["distance"].iloc[0])
-        if colours is not None:
-            fill = [colours.get(str(v), "white") for v in rows[target]]
-        else:
-            v = rows[target].to_numpy(float)
-            if log:
-                with np.errstate(divide="ignore", invalid="ignore"):
-                    v = np.where(v > 0, np.log10(v), np.nan)
-            fill = [im.cmap(im.norm(x)) if np.isfinite(x) else (1, 1, 1, 1) for x in v]
+        fill = _fill(rows[target], im, colours, log)
         column = np.full(len(rows), d)
         ax.scatter(column, rows["z"], c="white", marker="s", s=34, linewidths=0)  # sets the well apart
         ax.scatter(column, rows["z"], c=fill, marker="s", s=14, edgecolor="k", linewidths=0.3)

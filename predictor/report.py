@@ -294,9 +294,10 @@ def _maps(maps, wells, card, fig, volume=None):
                 "well is drawn at its sample nearest to the z shown. The section follows a path through wells spread "
                 "along the field's long axis, with each well's logged samples on the same colour scale. The "
                 "predicted volume itself comes from <code>predictor predict</code>.</p>")
+    views = _volume_views(*volume) if volume is not None else None  # shared by every target
     for t, info in card["targets"].items():
-        if volume is not None:
-            body += _volume_figures(*volume, t, info, fig)
+        if views is not None:
+            body += _volume_figures(views, t, info, fig)
         if info["task"] == "classification":
             plots.facies_maps(maps, t, wells, fig / f"map_{t}.png")
             body += _img(fig / f"map_{t}.png", f"{t}: the facies map (its rule in the title) and the class "
@@ -317,16 +318,23 @@ def _maps(maps, wells, card, fig, volume=None):
     return _section("maps", "Maps between the wells", body)
 
 
-def _volume_figures(vol, wells, target, info, fig) -> str:
+def _volume_views(vol, wells) -> dict:
+    """The slices at three z (with the wells there) and the section through wells of a predicted
+    volume, cut once for all targets."""
+    depths = depths_to_show(wells)
+    section, on_section = section_through_wells(vol, wells)
+    return {"slices": [map_view(vol, z) for z in depths], "wells": [wells_in_view(wells, vol, z) for z in depths],
+            "section": section, "on_section": on_section}
+
+
+def _volume_figures(views: dict, target, info, fig) -> str:
     """Depth slices and a section through wells of one target of a predicted volume."""
     from . import plots
 
     log = info.get("transform") == "log10"
-    depths = depths_to_show(wells)
-    plots.depth_slices([map_view(vol, z) for z in depths], [wells_in_view(wells, vol, z) for z in depths], target,
-                       fig / f"slices_{target}.png", log=log)
-    section, on_section = section_through_wells(vol, wells)
-    plots.well_section(section, on_section, target, fig / f"section_{target}.png", log=log)
+    section = views["section"]
+    plots.depth_slices(views["slices"], views["wells"], target, fig / f"slices_{target}.png", log=log)
+    plots.well_section(section, views["on_section"], target, fig / f"section_{target}.png", log=log)
     return (_img(fig / f"slices_{target}.png", f"{target}: the predicted volume at three z, wells filled with their "
                  "logged value at the nearest sample")
             + _img(fig / f"section_{target}.png", f"{target}: section through wells {', '.join(section.attrs['wells'])} "
