@@ -17,6 +17,18 @@ def demo_paths():
             "truth": DEMO / "truth.nc"}
 
 
+@pytest.fixture(scope="session")
+def porosity_bundle(tmp_path_factory):
+    """The demo's porosity model from the plain command, trained once for the tests that only
+    read it (copy it before altering it)."""
+    from predictor.cli import main
+
+    folder = tmp_path_factory.mktemp("porosity") / "bundle"
+    assert main(["--quiet", "train", "--wells", str(DEMO / "wells.csv"), "--grid", str(DEMO / "seismic.csv"),
+                 "--target", "porosity", "--out", str(folder)]) == 0
+    return folder
+
+
 def write(path: Path, text: str, encoding: str = "utf-8", newline: str = "\n") -> Path:
     path.write_bytes(text.replace("\n", newline).encode(encoding))
     return path

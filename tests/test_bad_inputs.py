@@ -137,14 +137,6 @@ def _bytes(tmp, data, name="w.csv"):
     return str(path)
 
 
-@pytest.fixture(scope="module")
-def bundle(tmp_path_factory):
-    folder = tmp_path_factory.mktemp("bundle") / "b"
-    assert main(["train", "--wells", str(DEMO / "wells.csv"), "--grid", GRID, "--target", "porosity",
-                 "--out", str(folder)]) == 0
-    return folder
-
-
 def _altered(tmp, bundle):
     copy = tmp / "copy"
     shutil.copytree(bundle, copy)
@@ -204,16 +196,12 @@ def test_bad_well_and_grid_inputs(case, tmp_path, capsys, monkeypatch):
 
 
 @pytest.mark.parametrize("case", sorted(BUNDLE_CASES))
-def test_bad_bundle_inputs(case, bundle, tmp_path, capsys, monkeypatch):
+def test_bad_bundle_inputs(case, porosity_bundle, tmp_path, capsys, monkeypatch):
     build, fragment = BUNDLE_CASES[case]
-    argv = build(tmp_path, bundle)
+    argv = build(tmp_path, porosity_bundle)
     _check(tmp_path, capsys, monkeypatch, argv, fragment)
     if case.startswith("existing"):
         assert (tmp_path / "OUT" / "maps.csv").read_text() == "earlier output"
-
-
-def test_number_of_bad_inputs_tried():
-    assert len(WELL_CASES) + len(TRAIN_CASES) + len(BUNDLE_CASES) >= 30
 
 
 def test_common_variations_work(tmp_path):

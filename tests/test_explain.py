@@ -84,26 +84,32 @@ def _path_value(tree, x, coalition):
     return (nl * _path_value(left, x, coalition) + nr * _path_value(right, x, coalition)) / (nl + nr)
 
 
-def test_treeshap_equals_brute_force_shapley_values():
-    # Shapley (1953): phi_j = sum over coalitions S without j of |S|!(p-|S|-1)!/p! (v(S+j) - v(S))
+def test_lightgbm_contributions_equal_brute_force_shapley_values():
+    # Shapley (1953): phi_j = sum over coalitions S without j of |S|!(p-|S|-1)!/p! (v(S+j) - v(S)),
+    # with the tree's own value function; checks our candidate's contributions (each value placed
+    # under its feature's name, the expected value split off), whatever order the names come in
     rng = np.random.default_rng(4)
-    X = rng.normal(size=(400, 3))
-    y = X[:, 0] * 2 + (X[:, 1] > 0) * X[:, 2] + rng.normal(0, 0.1, 400)
-    booster = lgb.train({"objective": "regression", "num_leaves": 6, "max_depth": 3, "learning_rate": 1.0,
-                         "min_data_in_leaf": 10, "verbose": -1}, lgb.Dataset(X, y), num_boost_round=1)
-    tree = booster.dump_model()["tree_info"][0]["tree_structure"]
-    p = 3
-    for x in X[:20]:
-        brute = np.zeros(p)
-        for j in range(p):
+    X = pd.DataFrame(rng.normal(size=(400, 3)), columns=["a", "b", "c"])
+    y = X["a"] * 2 + (X["b"] > 0) * X["c"] + rng.normal(0, 0.1, 400)
+    model = LightGBM("regression", ["c", "a", "b"])  # the model's own feature order
+    model.booster_ = lgb.train({"objective": "regression", "num_leaves": 6, "max_depth": 3, "learning_rate": 1.0,
+                                "min_data_in_leaf": 10, "verbose": -1},
+                               lgb.Dataset(X[model.features].to_numpy(), y), num_boost_round=1)
+    tree = model.booster_.dump_model()["tree_info"][0]["tree_structure"]
+    names = ["b", "noise", "a", "c"]  # the explanation's order, with a feature the model does not use
+    values, base = contributions(model, X.assign(noise=0.0).iloc[:20], np.zeros((20, 2)), names)
+    p = len(model.features)
+    for i, x in enumerate(X[model.features].to_numpy()[:20]):
+        for j, name in enumerate(model.features):
             others = [k for k in range(p) if k != j]
+            brute = 0.0
             for r in range(p):
                 for S in itertools.combinations(others, r):
                     w = math.factorial(len(S)) * math.factorial(p - len(S) - 1) / math.factorial(p)
-                    brute[j] += w * (_path_value(tree, x, set(S) | {j}) - _path_value(tree, x, set(S)))
-        ours = booster.predict(x[None, :], pred_contrib=True)[0]
-        np.testing.assert_allclose(ours[:p], brute, atol=1e-9)
-        assert ours[p] == pytest.approx(_path_value(tree, x, set()))
+                    brute += w * (_path_value(tree, x, set(S) | {j}) - _path_value(tree, x, set(S)))
+            assert values[i, names.index(name)] == pytest.approx(brute, abs=1e-9)
+        assert values[i, names.index("noise")] == 0
+        assert base[i] == pytest.approx(_path_value(tree, x, set()))
 
 
 def test_permutation_values_equal_shap_exact_explainer_for_two_features():

@@ -57,14 +57,12 @@ def test_crs_survives_netcdf_to_geotiff(tmp_path):
         assert src.crs.to_epsg() == 32631
 
 
-def test_predict_to_geotiff(tmp_path):
+def test_predict_to_geotiff(tmp_path, porosity_bundle):
     from conftest import DEMO
 
     from predictor.cli import main
 
-    assert main(["train", "--wells", str(DEMO / "wells.csv"), "--grid", str(DEMO / "seismic.csv"),
-                 "--target", "porosity", "--out", str(tmp_path / "b")]) == 0
-    assert main(["predict", str(tmp_path / "b"), "--grid", str(DEMO / "seismic.csv"), "--crs", "EPSG:32631",
+    assert main(["predict", str(porosity_bundle), "--grid", str(DEMO / "seismic.csv"), "--crs", "EPSG:32631",
                  "--out", str(tmp_path / "m.tif")]) == 0
     with rasterio.open(tmp_path / "m.tif") as src:  # values: porosity, q10, q90 as float32
         assert src.count == 3 and src.crs.to_epsg() == 32631 and src.width == 120 and src.height == 100
@@ -74,7 +72,7 @@ def test_predict_to_geotiff(tmp_path):
         assert src.count == 1 and src.dtypes == ("int16",) and src.nodata == -1 and src.crs.to_epsg() == 32631
         assert src.descriptions == ("porosity_applicable",) and src.tags(1)["flag_meanings"] == "outside inside"
         assert set(np.unique(src.read(1))) <= {-1, 0, 1} and (src.read(1) == 1).mean() > 0.5
-    assert main(["predict", str(tmp_path / "b"), "--grid", str(DEMO / "seismic.csv"), "--crs", "EPSG:999999",
+    assert main(["predict", str(porosity_bundle), "--grid", str(DEMO / "seismic.csv"), "--crs", "EPSG:999999",
                  "--out", str(tmp_path / "bad.tif")]) == 2
     assert not (tmp_path / "bad.tif").exists()
 

@@ -43,10 +43,8 @@ def test_interrupted_run_leaves_nothing_half_written(tmp_path, sig):
     assert earlier.read_text() == "keep"
 
 
-def test_full_disk_keeps_the_earlier_map(tmp_path, monkeypatch, capsys):
-    bundle = tmp_path / "b"
-    assert main(["train", "--wells", str(DEMO / "wells.csv"), "--grid", GRID, "--target", "porosity",
-                 "--out", str(bundle)]) == 0
+def test_full_disk_keeps_the_earlier_map(tmp_path, monkeypatch, capsys, porosity_bundle):
+    bundle = porosity_bundle
     maps = tmp_path / "maps.csv"
     maps.write_text("earlier maps")
 
