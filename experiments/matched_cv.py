@@ -10,7 +10,7 @@ no feature flags) and mapped; per field it reports:
 - the chosen model's CV RMSE under the matched, blocked and random designs / the true map RMSE
   (all with declustering weights, as reported; ``representative``: the matched folds scored
   with the weights raked to the map's distance and attribute quartiles);
-- the share of truth cells inside [q10, q90];
+- the share of truth cells inside [q10, q90], beside the card's held-out-wells coverage;
 - porosity map RMSE / regression kriging's (refitted on the same wells in the same run);
 - facies balanced accuracy on the map, chosen vs logistic regression on the attributes.
 
@@ -110,6 +110,7 @@ def one(layout: str, seed: int, options: dict | None = None) -> dict:
     spread = local_spread(phi.spread, phi.model, X, xy) if phi.calibration.scaled else None
     q10, q90 = phi.calibration.apply(pred, spread)
     row["coverage"] = float(np.mean((true_phi >= q10) & (true_phi <= q90)))
+    row["coverage_held_out_wells"] = phi.calibration.held_out_coverage  # what the card reports
     # alternatives, for comparison: constant widths, and quantiles without the test point's mass
     resid = phi.observed - phi.oof
     q10c, q90c = calibrate(resid, phi.weights, bounds=(0.0, 1.0)).apply(pred)
@@ -140,6 +141,9 @@ def summary(table: pd.DataFrame, label: str) -> None:
                        (" (no spread model, no test-point mass)", table.coverage_no_test_mass)):
         print(f"  [q10, q90] coverage{label}: mean {cov.mean():.3f}, range {cov.min():.2f}-{cov.max():.2f}, "
               f"within 0.80 +- 0.05 on {np.mean(np.abs(cov - 0.8) <= 0.05):.0%} of fields")
+    gap = table.coverage_held_out_wells - table.coverage
+    print(f"  held-out wells' coverage (card) - map coverage: mean {gap.mean():+.3f}, mean |.| {gap.abs().mean():.3f}, "
+          f"within 0.05 on {np.mean(gap.abs() <= 0.05):.0%} of fields")
     print(f"  porosity map RMSE / regression kriging: mean {table.rk_ratio.mean():.3f}, "
           f"worst {table.rk_ratio.max():.3f}, <= 1 on {np.mean(table.rk_ratio <= 1):.0%} of fields")
     gain = table.bacc - table.bacc_logistic

@@ -136,7 +136,7 @@ def save_bundle(trained, folder: str | Path, inputs: dict | None = None, overwri
 
 @dataclass
 class Bundle:
-    folder: Path
+    folder: Path | None  # None: held in memory (see in_memory)
     card: dict
     models: dict
     calibrations: dict
@@ -156,6 +156,15 @@ class Bundle:
     @property
     def feature_spec(self) -> FeatureSpec:
         return FeatureSpec.from_dict(self.card["features"]["spec"])
+
+
+def in_memory(trained) -> Bundle:
+    """The bundle of a training run without writing it: ``predict_maps(train(...), grid)`` in a
+    notebook maps the same values as saving the bundle and predicting from the folder."""
+    targets = trained.targets
+    return Bundle(None, plain(model_card(trained)), {n: tm.model for n, tm in targets.items()},
+                  {n: tm.calibration for n, tm in targets.items()}, {n: tm.spread for n, tm in targets.items()},
+                  {n: tm.applicability for n, tm in targets.items()})
 
 
 def load_bundle(folder: str | Path) -> Bundle:

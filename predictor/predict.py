@@ -14,18 +14,22 @@ import os
 import warnings
 from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 import pandas as pd
 import xarray as xr
 
-from .bundle import Bundle, load_bundle
+from .bundle import Bundle, in_memory, load_bundle
 from .errors import InputError, PredictorWarning
 from .features import build_features, feature_matrix
 from .intervals import PHYSICAL_BOUNDS
 from .io.atomic import atomic_file, check_target
 from .io.netcdf import write_netcdf
 from .volume import is_volume
+
+if TYPE_CHECKING:
+    from .training import TrainedModels
 
 CHUNK_ROWS = 250_000
 FORMAT_LIBRARIES = {".tif": "rasterio", ".tiff": "rasterio", ".sgy": "segyio", ".segy": "segyio", ".zarr": "zarr"}
@@ -90,11 +94,12 @@ def check_exceedance(card: dict, exceed: dict[str, list] | None) -> None:
                 raise InputError(f"--exceed {target}:{cutoff:g}: {target} is positive (mD); give a cutoff above 0")
 
 
-def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int = CHUNK_ROWS,
+def predict_maps(bundle: Bundle | TrainedModels | str | Path, grid: xr.Dataset, chunk_rows: int = CHUNK_ROWS,
                  warn: bool = True, interior: dict | None = None,
                  exceed: dict[str, list] | None = None, threads: int | None = None,
                  smoothed: xr.Dataset | None = None) -> xr.Dataset:
-    """Predict every target of the bundle on every valid node of ``grid``.
+    """Predict every target of the bundle (a folder, a loaded bundle, or the result of
+    ``train`` held in memory) on every valid node of ``grid``.
 
     ``exceed`` (target -> cutoffs, in the target's units) adds P(target > cutoff) per node,
     from the matched CV's out-of-fold residuals around the map's prediction.  Chunks of
@@ -108,7 +113,7 @@ def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int 
     tile's part of its wide context radii, smoothed beforehand over the whole map.
     """
     if not isinstance(bundle, Bundle):
-        bundle = load_bundle(bundle)
+        bundle = load_bundle(bundle) if isinstance(bundle, str | Path) else in_memory(bundle)
     card = bundle.card
     check_space(card, grid)
     check_exceedance(card, exceed)
@@ -192,7 +197,8 @@ def predict_maps(bundle: Bundle | str | Path, grid: xr.Dataset, chunk_rows: int 
         if applicable is not None:
             out[f"{target}_applicable"] = applicable
     # file names, not absolute paths: a shared file should not disclose the folders it was made in
-    out.attrs.update(source="predictor", bundle=Path(bundle.folder).name, grid=Path(str(grid.attrs.get("source", ""))).name,
+    out.attrs.update(source="predictor", bundle=Path(bundle.folder).name if bundle.folder else "in memory",
+                     grid=Path(str(grid.attrs.get("source", ""))).name,
                      caution="a predicted map is a model, not a measurement",
                      percentiles="q10/q90 are non-exceedance percentiles",
                      extrapolated_share=float(outside.mean()))

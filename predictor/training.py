@@ -51,7 +51,14 @@ from .field_wide import (
     rule_factors,
 )
 from .grid import attribute_kind, spacing
-from .intervals import PHYSICAL_BOUNDS, IntervalCalibration, SpreadModel, calibrate, effective_size
+from .intervals import (
+    PHYSICAL_BOUNDS,
+    IntervalCalibration,
+    SpreadModel,
+    calibrate,
+    effective_size,
+    held_out_coverage,
+)
 from .io.tables import ROLE_NAMES
 from .kriging import GLOBAL_WELLS, NEIGHBOURS
 from .models import (
@@ -855,7 +862,10 @@ def _calibrate(model, data: FitData, residuals: np.ndarray, design, attrs: list[
             notes.append(f"{target}: kriging spread needs a well-tied model; intervals use the feature spread")
         oof_spread, spread_model = _feature_spread(attrs, data, residuals, design.splits)
     bounds = PHYSICAL_BOUNDS.get(target)
-    calibration = calibrate(residuals, data.weights, spread=oof_spread, units=data.units, bounds=bounds)
+    calibration = calibrate(residuals, data.weights, spread=oof_spread, units=data.units, bounds=bounds,
+                            predicted=data.y - residuals)
+    calibration.held_out_coverage = held_out_coverage(data.y, data.y - residuals, data.weights, design.splits,
+                                                      oof_spread, data.units, bounds)
     return calibration, spread_model
 
 

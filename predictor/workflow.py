@@ -82,6 +82,10 @@ def leaderboard_lines(trained: TrainedModels) -> list[str]:
             kind = "baseline" if row["baseline"] else "candidate"
             lines.append(f"  {mark} {row['candidate']:<28} {kind:<9} {tm.distances['chosen']} {row['cv'][key]:.4f}   "
                          f"random {row['cv_random'][key]:.4f}")
+        coverage = tm.calibration.held_out_coverage if tm.calibration else None
+        if coverage is not None:
+            lines.append(f"  q10-q90 intervals held {coverage:.0%} of the wells when calibrated without their fold "
+                         "(nominal 80 %)")
     return lines
 
 

@@ -64,3 +64,52 @@ def test_porosity_intervals_stay_inside_zero_and_one():
     cal = calibrate(rng.normal(0, 0.05, 200), bounds=(0.0, 1.0))
     q10, q90 = cal.apply(np.array([0.01, 0.5, 0.99]))
     assert np.all(q10 >= 0) and np.all(q90 <= 1) and q10[1] < 0.5 < q90[1]
+
+
+def test_held_out_coverage_sees_folds_that_do_not_describe_each_other():
+    # two folds of 3 000 residuals, the second erring three times more. Calibrated on the other
+    # fold, the first is covered 2 Phi(3 x 1.2816) - 1 of the time and the second
+    # 2 Phi(1.2816 / 3) - 1 (reference values from scipy.stats.norm); calibrating on all wells
+    # would read the nominal 80 %
+    from scipy.stats import norm
+
+    from predictor.intervals import held_out_coverage
+
+    rng = np.random.default_rng(3)
+    n = 3000
+    folds = np.repeat([0, 1], n)
+    residuals = rng.normal(0, np.where(folds == 0, 1.0, 3.0))
+    splits = [(np.flatnonzero(folds != f), np.flatnonzero(folds == f)) for f in (0, 1)]
+    z = norm.ppf(0.9)
+    expected = ((2 * norm.cdf(3 * z) - 1) + (2 * norm.cdf(z / 3) - 1)) / 2
+    predicted = rng.normal(size=2 * n)
+    ours = held_out_coverage(predicted + residuals, predicted, np.ones(2 * n), splits)
+    assert ours == pytest.approx(expected, abs=0.015)
+    assert expected < 0.7
+    # exchangeable residuals: the nominal 80 % (slightly above, by the conformal test-point mass)
+    same = held_out_coverage(predicted + rng.normal(size=2 * n), predicted, np.ones(2 * n), splits)
+    assert 0.785 <= same <= 0.815
+
+
+def test_exceedance_follows_the_residuals_of_wells_predicted_alike():
+    # wells predicted at 0.05, 0.12 and 0.25 porosity; at 0.12 (between facies) 30 % of the
+    # residuals are +0.07 and 70 % are -0.03, elsewhere they are symmetric. P(value > q50) at a
+    # node predicted at 0.12 is, by hand, the Gaussian-kernel-weighted share of positive
+    # residuals: (0.3 k0 + 0.5 k1 + 0.5 k2) / (k0 + k1 + k2) with k = exp(-d^2 / 2 sd^2), sd the
+    # standard deviation of the predictions; one pooled distribution says (0.3 + 0.5 + 0.5) / 3
+    rng = np.random.default_rng(8)
+    n = 6000
+    levels = np.repeat([0.12, 0.05, 0.25], n)
+    residuals = np.where(levels == 0.12, np.where(rng.uniform(size=3 * n) < 0.3, 0.07, -0.03),
+                         rng.choice([-0.01, 0.01], 3 * n))
+    residuals += rng.normal(0, 1e-4, 3 * n)  # no ties at exactly the cutoff
+    cal = calibrate(residuals, predicted=levels)
+    sd = np.std(levels)
+    k = np.exp(-0.5 * (np.array([0.0, 0.07, 0.13]) / sd) ** 2)
+    expected = (0.3 * k[0] + 0.5 * k[1] + 0.5 * k[2]) / k.sum()
+    assert cal.exceedance(np.array([0.12]), 0.12)[0] == pytest.approx(expected, abs=0.01)
+    pooled = calibrate(residuals)
+    assert pooled.exceedance(np.array([0.12]), 0.12)[0] == pytest.approx((0.3 + 0.5 + 0.5) / 3, abs=0.01)
+    # far above or below every residual: certain
+    assert cal.exceedance(np.array([0.12, 0.12]), 0.5).tolist() == [0.0, 0.0]
+    assert cal.exceedance(np.array([0.25]), 0.0)[0] == 1.0

@@ -41,6 +41,8 @@ def test_card_has_the_documented_keys(bundle):
     assert {"linear", "ordinary_kriging", "regression_kriging", "lightgbm", "facies_mixture"} <= board
     assert card["inputs"]["wells"]["sha256"] and card["features"]["training_ranges"]["impedance"][0] > 0
     assert all(not name.endswith((".pkl", ".pickle", ".joblib")) for name in card["files"])
+    # the intervals checked on wells the calibration did not see: near the nominal 80 %
+    assert 0.7 <= card["targets"]["porosity"]["calibration"]["held_out_coverage"] <= 0.9
 
 
 def test_maps_csv_columns_and_ordering(bundle, tmp_path):
@@ -69,6 +71,11 @@ def test_saved_bundle_predicts_what_was_trained(bundle, tmp_path):
         a, b = predict_maps(bundle, grid), predict_maps(again, grid)
     a.attrs.pop("bundle"), b.attrs.pop("bundle")
     xr.testing.assert_identical(a, b)
+    # the same maps straight from memory, no folder written
+    with pytest.warns(PredictorWarning, match="outside the range seen at the wells"):
+        c = predict_maps(trained, grid)
+    assert c.attrs.pop("bundle") == "in memory"
+    xr.testing.assert_identical(a, c)
     # same inputs and seed: byte-identical model files
     for name in ("porosity/model.json", "facies/model.json"):
         assert (bundle / name).read_bytes() == (again / name).read_bytes()
