@@ -92,7 +92,7 @@ def explain_bundle(bundle_dir, out, grid: xr.Dataset | None = None, overwrite: b
             values, base, wells, features = explain_wells(bundle, target)
             imp = importance(values, wells["weight"].to_numpy(float), names)
             imp.rename("mean_abs_shap").to_csv(tmp / f"{target}_importance.csv", index_label="feature")
-            plots.importance_chart(imp, target, tmp / f"{target}_importance.png")
+            plots.importance_chart(imp, target, tmp / f"{target}_importance.png", output_unit(target, info))
             table = wells[["well_id", "x", "y"]].copy()
             for label, k in _class_slices(info):
                 v = values if k is None else values[:, k, :]

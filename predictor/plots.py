@@ -16,6 +16,7 @@ import numpy as np  # noqa: E402
 import pandas as pd  # noqa: E402
 import xarray as xr  # noqa: E402
 
+from .features import describe_feature  # noqa: E402
 from .io.atomic import atomic_file  # noqa: E402
 
 FACIES_COLOURS = ["#6b4f3a", "#c9a55c", "#f2e394", "#7fa7c9", "#a3c586", "#d98c8c"]
@@ -78,7 +79,29 @@ def location_maps(wells: pd.DataFrame, grid: xr.Dataset, attribute: str, propert
             sc = ax.scatter(wells.x, wells.y, c=values, cmap="viridis", edgecolor="k", s=36)
             fig.colorbar(sc, ax=ax, shrink=0.7, label=prop, location="bottom")
         ax.set_title(f"wells: {prop}", fontsize=10)
+    if "well_id" in wells:
+        _names_on(axes[0, 0], wells)
     return save(fig, path)
+
+
+NAMES_SPACING = 0.04  # well names are written when wells lie this share of the panel's width apart
+
+
+def _names_on(ax, wells: pd.DataFrame) -> None:
+    """Each well's name beside it, unless the wells crowd the panel (median nearest-well
+    distance below NAMES_SPACING of its width), where names would hide the map."""
+    from scipy.spatial import cKDTree
+
+    heads = wells.groupby("well_id", sort=False)[["x", "y"]].mean()
+    if len(heads) < 2:
+        return
+    gaps = cKDTree(heads.to_numpy()).query(heads.to_numpy(), k=2)[0][:, 1]
+    width = float(np.ptp(ax.get_xlim()))
+    if np.median(gaps) < NAMES_SPACING * width:
+        return
+    for name, (x, y) in heads.iterrows():
+        ax.annotate(str(name), (x, y), xytext=(3, 3), textcoords="offset points", fontsize=6,
+                    bbox={"boxstyle": "round,pad=0.1", "fc": "white", "ec": "none", "alpha": 0.6})
 
 
 def bias_figure(at_wells, over_map, attribute: str, verdict: str, path) -> Path:
@@ -265,12 +288,12 @@ def leaderboard_chart(leaderboard: list[dict], metric: str, target: str, path) -
     return save(fig, path)
 
 
-def importance_chart(imp: pd.Series, target: str, path) -> Path:
-    """Horizontal bars of declustering-weighted mean |SHAP|."""
+def importance_chart(imp: pd.Series, target: str, path, unit: str = "") -> Path:
+    """Horizontal bars of declustering-weighted mean |SHAP|, each feature named in words."""
     imp = imp[imp > 0].sort_values()
     fig, ax = plt.subplots(figsize=(6.5, 0.35 * len(imp) + 1.5), layout="constrained")
-    ax.barh(imp.index, imp.to_numpy(), color="tab:blue")
-    ax.set_xlabel("mean |SHAP| at the wells (declustering-weighted)")
+    ax.barh([describe_feature(n) for n in imp.index], imp.to_numpy(), color="tab:blue")
+    ax.set_xlabel("mean |contribution| at the wells" + (f", in {unit}" if unit else "") + " (declustering-weighted)")
     ax.set_title(f"{target}: what the model leans on", fontsize=10)
     return save(fig, path)
 
@@ -435,25 +458,43 @@ def crossplot(wells: pd.DataFrame, attribute: str, at_wells: np.ndarray, propert
 
 def semivariograms(wells: pd.DataFrame, properties: list[str], path) -> Path:
     """Experimental omnidirectional semivariogram of each property at the wells (points sized by
-    pair count) and the fitted model (line), as kriging and the CV block size use it."""
-    from .variogram import auto_variogram, experimental
+    pair count) and the fitted model (line), as kriging and the CV block size use it; for
+    samples along wells a second row: the vertical semivariogram from pairs within each well."""
+    from .variogram import along_wells, auto_variogram, experimental, fit_variogram
 
-    fig, axes = plt.subplots(1, len(properties), figsize=(5.0 * len(properties), 3.8), squeeze=False)
+    vertical = "z" in wells and wells["well_id"].duplicated().any()
+    fig, axes = plt.subplots(1 + vertical, len(properties), figsize=(5.0 * len(properties), 3.8 * (1 + vertical)),
+                             squeeze=False, layout="constrained")
     x, y = wells["x"].to_numpy(float), wells["y"].to_numpy(float)
-    for ax, col in zip(axes[0], properties, strict=True):
+    for k, col in enumerate(properties):
         v, label = _property(wells, col)
         ok = np.isfinite(v)
-        exp = experimental(x[ok], y[ok], v[ok], n_lags=12)
-        ax.scatter(exp.lags, exp.gamma, s=10 + 40 * exp.counts / exp.counts.max(), c="tab:blue", label="experimental")
-        model = auto_variogram(x[ok], y[ok], v[ok])
-        h = np.linspace(0, exp.lags.max() * 1.05, 200)
-        ax.plot(h, model(h), "k-", label=f"{model.kind}: nugget {model.nugget:.3g}, sill {model.nugget + model.sill:.3g}, "
-                f"range {model.range:.0f} m")
-        ax.set_xlabel("lag distance (m)")
-        ax.set_ylabel(f"semivariance of {label}")
-        ax.set_ylim(bottom=0)
-        ax.legend(fontsize=7)
+        if vertical:  # lateral pairs at about the same z: half the median sample step along the wells
+            step = float(np.median(np.abs(np.diff(wells.sort_values(["well_id", "z"])["z"].to_numpy()))))
+            exp = experimental(x[ok], y[ok], v[ok], n_lags=12, z=wells["z"].to_numpy(float)[ok], z_tolerance=step / 2)
+            model = fit_variogram(exp)
+        else:
+            exp = experimental(x[ok], y[ok], v[ok], n_lags=12)
+            model = auto_variogram(x[ok], y[ok], v[ok])
+        _semivariogram_panel(axes[0, k], exp, model, label, "lag distance (m)" + (", pairs at the same z" if vertical
+                                                                                  else ""), " m")
+        if vertical:
+            exp = along_wells(wells["z"].to_numpy(float), v, wells["well_id"].to_numpy())
+            _semivariogram_panel(axes[1, k], exp, fit_variogram(exp), label,
+                                 "lag along the wells (z units), pairs within one well", "")
     return save(fig, path)
+
+
+def _semivariogram_panel(ax, exp, model, label: str, xlabel: str, unit: str) -> None:
+    ax.scatter(exp.lags, exp.gamma, s=10 + 40 * exp.counts / exp.counts.max(), c="tab:blue", label="experimental")
+    h = np.linspace(0, exp.lags.max() * 1.05, 200)
+    reach = f"{model.range:.0f}{unit}" if unit else f"{model.range:.3g}"
+    ax.plot(h, model(h), "k-", label=f"{model.kind}: nugget {model.nugget:.3g}, sill {model.nugget + model.sill:.3g}, "
+            f"range {reach}")
+    ax.set_xlabel(xlabel)
+    ax.set_ylabel(f"semivariance of {label}")
+    ax.set_ylim(bottom=0)
+    ax.legend(fontsize=7)
 
 
 def _shown(maps: xr.Dataset, target: str, log: bool) -> tuple[xr.DataArray, dict, str, dict | None]:

@@ -186,7 +186,8 @@ def _data(check, card, fig):
                     "facies, with a least-squares line per facies and for all wells (dashed)")
                if (fig / "crossplot.png").exists() else "")
             + (_img(fig / "semivariograms.png", "experimental semivariograms at the wells (points sized by pair "
-                    "count) and the fitted models")
+                    "count) and the fitted models" + ("; below, the vertical ones from pairs of samples within one well"
+                                                       if card.get("space", {}).get("kind") == "volume" else ""))
                if (fig / "semivariograms.png").exists() else ""))
     return _section("data", "The data and its checks", body)
 
@@ -392,6 +393,10 @@ def _field_wide(card, maps, wells, fig):
     return _section("field", "Field-wide numbers", body)
 
 
+def _share(value) -> str:
+    return "not recorded (older bundle)" if value is None else f"{value:.0%} (nominal 80 %)"
+
+
 def _intervals(card, maps):
     rows = []
     for t, info in card["targets"].items():
@@ -409,12 +414,15 @@ def _intervals(card, maps):
                 width = f"{np.median(w):.3g}{unit} (10-90 % of nodes: {np.quantile(w, 0.1):.3g} to {np.quantile(w, 0.9):.3g})"
             rows.append({"target": t, "median width of [q10, q90] on the map": width,
                          "width varies with the local spread": "yes" if c["scaled"] else "no (constant)",
+                         "wells inside [q10, q90], calibrated without their fold": _share(c.get("held_out_coverage")),
                          "effective wells": c.get("n_effective_wells") or c["n_effective"],
                          "spread model": info.get("interval_spread") or "none"})
     body = ("<p>q10 and q90 are non-exceedance percentiles: the property has a 10 % chance of being below q10 and a "
             "10 % chance of being above q90. The trade often reads P10/P90 the other way round (exceedance). Its "
             "width comes from the matched-CV out-of-fold errors, weighted by the declustering weights, so about "
-            "80 % of map cells should fall inside [q10, q90].</p>" + (_table(pd.DataFrame(rows)) if rows else ""))
+            "80 % of map cells should fall inside [q10, q90]. The check beside it recalibrates the interval without each "
+            "fold in turn and counts the fold's wells that fall inside: near 80 % means the calibration carries over "
+            "to wells it did not see.</p>" + (_table(pd.DataFrame(rows)) if rows else ""))
     return _section("intervals", "Uncertainty: the q10-q90 interval", body)
 
 
@@ -428,7 +436,7 @@ def _why(bundle, grid, wells, fig):
             "Facies are explained per class in log-odds.</p>")
     for t, info in bundle.card["targets"].items():
         imp = pd.Series(info["importance"]["values"]).sort_values(ascending=False)
-        plots.importance_chart(imp, t, fig / f"imp_{t}.png")
+        plots.importance_chart(imp, t, fig / f"imp_{t}.png", output_unit(t, info))
         body += f"<h3>{html.escape(t)}</h3>" + _img(fig / f"imp_{t}.png", f"{t}: importance")
         values, _, _, features = explain_wells(bundle, t)
         v = values if values.ndim == 2 else values[:, 0, :]

@@ -78,12 +78,28 @@ class Experimental:
     counts: np.ndarray
 
 
+def _binned(dist, sq, n_lags: int, max_lag: float | None) -> Experimental:
+    """Mean half squared difference per lag bin (equal bins up to ``max_lag``, default half the
+    largest distance); coincident pairs and empty bins are dropped."""
+    max_lag = float(max_lag) if max_lag else float(dist.max()) / 2.0
+    edges = np.linspace(0.0, max_lag, n_lags + 1)
+    which = np.digitize(dist, edges) - 1
+    inside = (which >= 0) & (which < n_lags) & (dist > 0)
+    counts = np.bincount(which[inside], minlength=n_lags)
+    total = np.bincount(which[inside], weights=sq[inside], minlength=n_lags)
+    lagsum = np.bincount(which[inside], weights=dist[inside], minlength=n_lags)
+    have = counts > 0
+    return Experimental(lagsum[have] / counts[have], total[have] / counts[have], counts[have])
+
+
 def experimental(x, y, values, n_lags: int = 15, max_lag: float | None = None, azimuth: float | None = None,
-                 tolerance: float = 22.5) -> Experimental:
+                 tolerance: float = 22.5, z=None, z_tolerance: float = 0.0) -> Experimental:
     """Experimental semivariogram: gamma(h) = mean of (v_i - v_j)^2 / 2 over pairs in each lag bin.
 
     ``azimuth`` (degrees clockwise from north, y) restricts pairs to that direction within
-    ``tolerance`` degrees; None gives the omnidirectional semivariogram.  Empty bins are dropped.
+    ``tolerance`` degrees; None gives the omnidirectional semivariogram.  With ``z`` (samples
+    along wells) only pairs within ``z_tolerance`` of the same z count, so the lateral
+    semivariogram does not mix in the vertical variability.  Empty bins are dropped.
     """
     x, y, v = (np.asarray(a, dtype=float) for a in (x, y, values))
     ok = np.isfinite(v)
@@ -99,15 +115,24 @@ def experimental(x, y, values, n_lags: int = 15, max_lag: float | None = None, a
         diff = np.abs(ang - (azimuth % 180.0))
         keep = np.minimum(diff, 180.0 - diff) <= tolerance
         dist, sq = dist[keep], sq[keep]
-    max_lag = float(max_lag) if max_lag else float(dist.max()) / 2.0
-    edges = np.linspace(0.0, max_lag, n_lags + 1)
-    which = np.digitize(dist, edges) - 1
-    inside = (which >= 0) & (which < n_lags) & (dist > 0)
-    counts = np.bincount(which[inside], minlength=n_lags)
-    total = np.bincount(which[inside], weights=sq[inside], minlength=n_lags)
-    lagsum = np.bincount(which[inside], weights=dist[inside], minlength=n_lags)
-    have = counts > 0
-    return Experimental(lagsum[have] / counts[have], total[have] / counts[have], counts[have])
+    if z is not None:
+        keep = pdist(np.asarray(z, dtype=float)[ok][:, None]) <= z_tolerance
+        dist, sq = dist[keep], sq[keep]
+    return _binned(dist, sq, n_lags, max_lag)
+
+
+def along_wells(z, values, wells, n_lags: int = 12, max_lag: float | None = None) -> Experimental:
+    """Vertical experimental semivariogram of samples along wells: only pairs of samples of one
+    well, the lag their z separation (deviated wells: the lateral drift is ignored)."""
+    z, v, wells = np.asarray(z, float), np.asarray(values, float), np.asarray(wells)
+    ok = np.isfinite(z) & np.isfinite(v)
+    pairs = [(pdist(z[ok & (wells == w)][:, None]), 0.5 * pdist(v[ok & (wells == w)][:, None], "sqeuclidean"))
+             for w in np.unique(wells[ok])]
+    pairs = [p for p in pairs if p[0].size]
+    if not pairs:
+        raise ModelError("a vertical semivariogram needs wells with at least 2 samples")
+    dist, sq = (np.concatenate(part) for part in zip(*pairs, strict=True))
+    return _binned(dist, sq, n_lags, max_lag)
 
 
 N_RANGES = 60  # ranges profiled per model kind, log-spaced from half the shortest lag to 4 x the longest

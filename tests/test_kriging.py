@@ -7,7 +7,7 @@ from sklearn.gaussian_process import GaussianProcessRegressor
 from sklearn.gaussian_process.kernels import ConstantKernel, Matern
 
 from predictor.kriging import OrdinaryKriging, simple_kriging
-from predictor.variogram import VariogramModel, experimental, fit_variogram
+from predictor.variogram import VariogramModel, along_wells, experimental, fit_variogram
 
 
 def test_experimental_semivariogram_hand_computed():
@@ -218,3 +218,22 @@ def test_wells_at_one_point_are_named_not_solved():
         OrdinaryKriging().fit(pts[:, 0], pts[:, 1], values)
     with pytest.raises(ModelError, match="3 or more"):
         OrdinaryKriging(neighbours=2).fit(pts[:3, 0], pts[:3, 1], values[:3])
+
+
+def test_volume_semivariograms_pair_samples_within_a_well_or_at_one_z():
+    # worked by hand: well A at z 0, 1, 2 with 0, 1, 3; well B at z 0, 1 with 10, 10.
+    # Lag 1 pairs: A (0,1) 0.5, A (1,2) 2.0, B 0.0 -> mean 0.8333; lag 2: A (0,2) 4.5.
+    # Pairs across wells (A 0 with B 10 at lag 0 or 1) would add 50 and more: they must not count.
+    z = np.array([0.0, 1.0, 2.0, 0.0, 1.0])
+    v = np.array([0.0, 1.0, 3.0, 10.0, 10.0])
+    exp = along_wells(z, v, np.array(["A", "A", "A", "B", "B"]), n_lags=2, max_lag=2.5)
+    np.testing.assert_allclose(exp.lags, [1.0, 2.0])
+    np.testing.assert_allclose(exp.gamma, [2.5 / 3, 4.5])
+    np.testing.assert_array_equal(exp.counts, [3, 1])
+    # lateral pairs at the same z only: of (0 m, z 0, 0), (10 m, z 0, 2) and (20 m, z 5, 10) the one
+    # pair at z 0 remains (lag 10, half squared difference 2); all pairs give lags 10, 10, 20
+    lateral = experimental([0.0, 10.0, 20.0], [0.0, 0.0, 0.0], [0.0, 2.0, 10.0], n_lags=2, max_lag=25,
+                           z=[0.0, 0.0, 5.0], z_tolerance=1.0)
+    np.testing.assert_allclose(lateral.gamma, [2.0])
+    every = experimental([0.0, 10.0, 20.0], [0.0, 0.0, 0.0], [0.0, 2.0, 10.0], n_lags=2, max_lag=25)
+    np.testing.assert_allclose(every.gamma, [(2.0 + 32.0) / 2, 50.0])
