@@ -31,8 +31,9 @@ from .errors import InputError, PredictorWarning
 from .features import halo_cells, wide_radii
 from .grid import read_seismic, spacing
 from .io.atomic import atomic_folder, check_target
+from .io.formats import file_format
 from .progress import progress
-from .volume import SEGY_SUFFIXES, is_volume, lateral_spacing, read_volume
+from .volume import is_volume, lateral_spacing, read_volume
 
 DEFAULT_TILE = 512
 SAMPLES_PER_TILE = 1_000_000
@@ -151,7 +152,7 @@ def predict_to_zarr(bundle_dir, grid_path, out, tile: int | None = None, threads
         raise InputError(f"{out}: tiled maps are written as a Zarr store; name it *.zarr")
     if tile is not None and tile < 8:
         raise InputError(f"tile size {tile} is too small; use 64 or more nodes a side")
-    if Path(grid_path).suffix.lower() in SEGY_SUFFIXES:
+    if file_format(grid_path) == "segy":
         from .io.netcdf import write_zarr
 
         check_target(out, overwrite)

@@ -14,6 +14,7 @@ import pandas as pd
 import xarray as xr
 
 from .errors import InputError, PredictorWarning, list_rows
+from .io.formats import file_format
 from .io.tables import X_NAMES, Y_NAMES, find_column, numeric_column, read_table
 from .options import SampleMethod
 
@@ -118,16 +119,24 @@ def check_grid(ds: xr.Dataset, source: str = "grid") -> xr.Dataset:
 
 
 def read_grid(path: str | Path, x: str | None = None, y: str | None = None, lazy: bool = False) -> xr.Dataset:
-    """Read a grid from a CSV/Parquet long table, a NetCDF file or a Zarr store (by extension).
+    """Read a grid from a CSV/Parquet long table, a NetCDF file, a Zarr store or a GeoTIFF
+    (by the file's signature, else its extension: :func:`predictor.io.formats.file_format`).
 
     With ``lazy`` NetCDF and Zarr grids stay on disk (dask-backed) until a part is used, so a
     grid larger than memory can be mapped tile by tile.
     """
     path = Path(path)
-    if path.suffix.lower() in (".nc", ".nc4", ".netcdf", ".cdf", ".zarr"):
+    kind = file_format(path)
+    if kind in ("netcdf", "zarr"):
         from .io.netcdf import read_netcdf_grid
 
-        return read_netcdf_grid(path, lazy=lazy)
+        return check_grid(read_netcdf_grid(path, lazy=lazy), str(path))
+    if kind == "geotiff":
+        from .io.geotiff import read_geotiff
+
+        return check_grid(read_geotiff(path, classes=False), str(path))
+    if kind == "segy":
+        raise InputError(f"{path}: a SEG-Y file holds a volume; read it with read_seismic or read_volume")
     return grid_from_table(read_table(path), x=x, y=y)
 
 
@@ -173,15 +182,15 @@ def read_seismic(path: str | Path, lazy: bool = False, z_domain: str | None = No
 
 
 def _read_seismic(path, lazy, z_domain, name, x, y) -> xr.Dataset:
-    from .volume import SEGY_SUFFIXES, read_volume
+    from .volume import read_volume
 
     path = Path(path)
-    suffix = path.suffix.lower()
-    if suffix in SEGY_SUFFIXES:
+    kind = file_format(path)
+    if kind == "segy":
         return read_volume(path, lazy=lazy, z_domain=z_domain, name=name or "amplitude")
-    if suffix in (".nc", ".nc4", ".netcdf", ".cdf", ".zarr") and path.exists():
+    if kind in ("netcdf", "zarr") and path.exists():
         try:
-            with (xr.open_zarr(path) if suffix == ".zarr" else xr.open_dataset(path, engine="h5netcdf")) as peek:
+            with (xr.open_zarr(path) if kind == "zarr" else xr.open_dataset(path, engine="h5netcdf")) as peek:
                 volume = "z" in peek.dims
         except Exception:  # unreadable: the grid reader below names the problem
             volume = False

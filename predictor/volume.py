@@ -22,10 +22,10 @@ import pandas as pd
 import xarray as xr
 
 from .errors import InputError, PredictorWarning
+from .io.formats import file_format
 
 ZDomain = Literal["depth", "time", "unknown"]
 DIMS = ("z", "inline", "crossline")
-SEGY_SUFFIXES = (".sgy", ".segy")
 TIME_WORDS = ("twt", "time", "ms", "twt_ms")
 DEPTH_WORDS = ("depth", "tvd", "tvdss", "md", "depth_m")
 
@@ -114,14 +114,15 @@ def read_volume(path: str | Path, lazy: bool = False, z_domain: ZDomain | None =
                 name: str = "amplitude") -> xr.Dataset:
     """Read a volume from SEG-Y (``name`` is the attribute's name), NetCDF or a Zarr store."""
     path = Path(path)
-    if path.suffix.lower() in SEGY_SUFFIXES:
+    kind = file_format(path)
+    if kind == "segy":
         from .io.segy import read_segy
 
         return check_volume(read_segy(path, name=name), str(path), z_domain)
     if not path.exists():
         raise InputError(f"{path}: file not found; check the path")
     try:
-        if path.suffix.lower() == ".zarr":
+        if kind == "zarr":
             ds = xr.open_zarr(path)
         else:
             ds = xr.open_dataset(path, engine="h5netcdf", chunks={} if lazy else None)

@@ -204,3 +204,59 @@ def test_attribute_kind_not_name_decides_the_positivity_check():
         set_attribute_kinds(grid, {"vp": "speed"})
     with pytest.raises(InputError, match="names 'ai', which is not an attribute of the grid"):
         set_attribute_kinds(grid, {"ai": "impedance"})
+
+
+def test_files_open_by_their_signature_whatever_their_name(tmp_path):
+    # signatures from the formats' specifications (HDF5, TIFF, Parquet), see predictor.io.formats
+    from conftest import DEMO
+
+    from predictor.grid import read_seismic
+    from predictor.io.formats import file_format
+    from predictor.io.geotiff import write_geotiff
+    from predictor.io.netcdf import write_zarr
+
+    grid = read_grid(DEMO / "seismic.nc")
+    write_netcdf(grid, tmp_path / "grid.nc")
+    (tmp_path / "grid.nc").rename(tmp_path / "impedance.dat")
+    write_zarr(grid, tmp_path / "store.zarr")
+    (tmp_path / "store.zarr").rename(tmp_path / "store")
+    write_geotiff(grid, tmp_path / "g.tif")
+    (tmp_path / "g.tif").rename(tmp_path / "g.raster")
+    pd.read_csv(DEMO / "seismic.csv").to_parquet(tmp_path / "table.bin")
+    kinds = {name: file_format(tmp_path / name) for name in ("impedance.dat", "store", "g.raster", "table.bin")}
+    assert kinds == {"impedance.dat": "netcdf", "store": "zarr", "g.raster": "geotiff", "table.bin": "parquet"}
+    for name in kinds:
+        again = read_seismic(tmp_path / name)
+        np.testing.assert_allclose(again["impedance"].to_numpy(), grid["impedance"].to_numpy(), rtol=1e-6)
+        np.testing.assert_allclose(again.x, grid.x)
+    # a text table named like a NetCDF file is refused by the NetCDF reader, saying so
+    write(tmp_path / "table.nc", "x,y,impedance\n0,0,1\n")
+    with pytest.raises(InputError, match="not a readable NetCDF"):
+        read_seismic(tmp_path / "table.nc")
+
+
+def test_a_plain_single_band_geotiff_is_a_grid_named_by_its_file(tmp_path):
+    # a GeoTIFF as another package writes it (rasterio here): one band, no description, north-up
+    import rasterio
+    from rasterio.transform import Affine, from_origin
+
+    from predictor.grid import read_seismic
+
+    values = np.arange(12, dtype="float32").reshape(3, 4)  # row 0 is the northernmost
+    values[1, 2] = -9999
+    profile = {"driver": "GTiff", "width": 4, "height": 3, "count": 1, "dtype": "float32", "nodata": -9999,
+               "crs": "EPSG:32631", "transform": from_origin(500000, 7205000, 25, 25)}
+    with rasterio.open(tmp_path / "acoustic_impedance.tif", "w", **profile) as dst:
+        dst.write(values, 1)
+    grid = read_seismic(tmp_path / "acoustic_impedance.tif")
+    assert list(grid.data_vars) == ["acoustic_impedance"]
+    np.testing.assert_allclose(grid.x, 500000 + 12.5 + 25 * np.arange(4))
+    np.testing.assert_allclose(grid.y, 7205000 - 12.5 - 25 * np.arange(3)[::-1])  # ascending
+    np.testing.assert_array_equal(grid["acoustic_impedance"].to_numpy()[::-1][0], [0, 1, 2, 3])
+    assert np.isnan(grid["acoustic_impedance"].sel(x=500062.5, y=7204962.5).item())
+    assert "32631" in grid.attrs["crs_wkt"] or "UTM zone 31N" in grid.attrs["crs_wkt"]
+    profile["transform"] = Affine(25, 5, 500000, 5, -25, 7205000)  # rotated
+    with rasterio.open(tmp_path / "rotated.tif", "w", **profile) as dst:
+        dst.write(values, 1)
+    with pytest.raises(InputError, match="rotated"):
+        read_seismic(tmp_path / "rotated.tif")

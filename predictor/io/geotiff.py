@@ -95,24 +95,39 @@ def crs_to_wkt(crs: str) -> str:
         raise InputError(f"unknown coordinate reference system {crs!r} ({err}); give e.g. EPSG:32631") from None
 
 
-def read_geotiff(path: str | Path) -> xr.Dataset:
-    """Read a GeoTIFF written by :func:`write_geotiff` back into a (y, x) grid (ascending y),
-    with the class bands of ``<stem>_classes.tif`` when it is there (empty nodes as NaN)."""
+def read_geotiff(path: str | Path, classes: bool = True) -> xr.Dataset:
+    """Read a north-up GeoTIFF into a (y, x) grid (ascending y, empty nodes as NaN): each band a
+    variable named by its description, a single undescribed band by the file's stem
+    (``impedance.tif`` -> ``impedance``). With ``classes`` the class bands of
+    ``<stem>_classes.tif`` (as :func:`write_geotiff` writes them) join when present."""
     import rasterio
+    from rasterio.errors import RasterioIOError
 
+    path = Path(path)
+    if not path.exists():
+        raise InputError(f"{path}: file not found; check the path")
     data = {}
-    for part in [Path(path)] + ([classes_path(path)] if classes_path(path).exists() else []):
-        with rasterio.open(part) as src:
+    for part in [path] + ([classes_path(path)] if classes and classes_path(path).exists() else []):
+        try:
+            src = rasterio.open(part)
+        except RasterioIOError as err:
+            raise InputError(f"{part}: not a readable GeoTIFF ({str(err)[:120]}); re-export it") from None
+        with src:
             t = src.transform
+            if t.b or t.d:
+                raise InputError(f"{part}: the raster is rotated (its geotransform has rotation terms); resample "
+                                 "it north-up, or give the grid as a NetCDF or CSV table of x, y and attributes")
             xs = t.c + t.a * (np.arange(src.width) + 0.5)
             ys = t.f + t.e * (np.arange(src.height) + 0.5)
             for i in range(src.count):
                 band = src.read(i + 1)[::-1].astype(float)
                 if src.nodata is not None and np.isfinite(src.nodata):
                     band[band == src.nodata] = np.nan
-                data[src.descriptions[i] or f"band{i + 1}"] = (("y", "x"), band)
+                name = src.descriptions[i] or (part.stem if src.count == 1 else f"band{i + 1}")
+                data[name] = (("y", "x"), band)
             crs = src.crs.to_wkt() if src.crs else None
     ds = xr.Dataset(data, coords={"x": xs, "y": ys[::-1]})
+    ds.attrs["source"] = str(path)
     if crs:
         ds.attrs["crs_wkt"] = crs
     return ds

@@ -8,19 +8,19 @@ import numpy as np
 import xarray as xr
 
 from ..errors import InputError
+from .formats import file_format
 
 X_COORDS = ("x", "easting", "east", "projection_x_coordinate")
 Y_COORDS = ("y", "northing", "north", "projection_y_coordinate")
 
 
 def read_netcdf_grid(path: Path, lazy: bool = False) -> xr.Dataset:
-    """Open a NetCDF file (or Zarr store) of 2-D variables on x/y coordinates as a grid."""
-    from ..grid import check_grid
-
+    """Open a NetCDF file (or Zarr store) of 2-D variables on x/y coordinates; the caller checks
+    it as a grid (:func:`predictor.grid.check_grid`)."""
     if not path.exists():
         raise InputError(f"{path}: file not found; check the path")
     try:
-        if path.suffix.lower() == ".zarr":
+        if file_format(path) == "zarr":
             ds = xr.open_zarr(path)
             ds = ds if lazy else ds.load()
         elif lazy:
@@ -46,7 +46,7 @@ def read_netcdf_grid(path: Path, lazy: bool = False) -> xr.Dataset:
     if mapping is not None:  # carry the CRS on to the maps
         ds.attrs["crs_wkt"] = mapping.attrs.get("crs_wkt") or mapping.attrs.get("spatial_ref")
         ds = ds.drop_vars(mapping.name) if mapping.name in ds.data_vars and mapping.ndim == 0 else ds
-    return check_grid(ds, str(path))
+    return ds
 
 
 def cf(ds: xr.Dataset, crs_wkt: str | None) -> xr.Dataset:

@@ -16,6 +16,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import InputError, list_rows
+from .formats import file_format
 
 X_NAMES = ("x", "easting", "east", "x_m", "xcoord", "x_coord", "utm_x")
 Y_NAMES = ("y", "northing", "north", "y_m", "ycoord", "y_coord", "utm_y")
@@ -75,7 +76,7 @@ def _check_field_counts(text: str, sep: str, path: Path) -> None:
 def read_table(path: str | Path) -> pd.DataFrame:
     """Read a CSV (delimiter detected) or Parquet file into a DataFrame, with a clear error on failure."""
     path = Path(path)
-    if path.suffix.lower() in (".parquet", ".pq"):
+    if file_format(path) == "parquet":
         if not path.exists():
             raise InputError(f"{path}: file not found; check the path")
         try:
