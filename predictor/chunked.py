@@ -53,12 +53,20 @@ def lateral_axes(grid: xr.Dataset) -> tuple[str, str]:
 
 def halo(grid: xr.Dataset, spec, presmoothed: bool = False) -> tuple[int, int]:
     """Halo (nodes along the first and second lateral axis) a tile needs for exact features;
-    with ``presmoothed``, a map's wide context radii come smoothed beforehand and need none."""
+    with ``presmoothed``, the wide context radii come smoothed beforehand and need none."""
     if is_volume(grid):
         d_il, d_xl = lateral_spacing(grid)
-        return halo_cells(spec, d_xl, d_il)
+        return halo_cells(spec, d_xl, d_il, wide_radii(spec, d_xl, d_il) if presmoothed else None)
     dx, dy = spacing(grid)
     return halo_cells(spec, dx, dy, wide_radii(spec, dx, dy) if presmoothed else None)
+
+
+def _wide(grid: xr.Dataset, spec) -> list[float]:
+    """Context radii to smooth once over the whole grid or volume before the tiles."""
+    if is_volume(grid):
+        d_il, d_xl = lateral_spacing(grid)
+        return wide_radii(spec, d_xl, d_il)
+    return wide_radii(spec, *spacing(grid))
 
 
 @functools.lru_cache(maxsize=4)
@@ -172,7 +180,7 @@ def predict_to_zarr(bundle_dir, grid_path, out, tile: int | None = None, threads
     check_space(bundle.card, grid)
     check_exceedance(bundle.card, exceed)
     ay, ax = lateral_axes(grid)
-    wide = [] if is_volume(grid) else wide_radii(bundle.feature_spec, *spacing(grid))
+    wide = _wide(grid, bundle.feature_spec)
     hy, hx = halo(grid, bundle.feature_spec, presmoothed=bool(wide))
     depth = grid.sizes.get("z", 1)
     tile = tile or default_tile(grid)
@@ -191,7 +199,7 @@ def predict_to_zarr(bundle_dir, grid_path, out, tile: int | None = None, threads
     with atomic_folder(out, overwrite=overwrite) as tmp, tempfile.TemporaryDirectory(
             prefix=f".{out.name}.smoothed.", dir=out.parent) as scratch:
         smoothed = None
-        if wide:  # wide context radii: smoothed once over the whole map, tiles read their part
+        if wide:  # wide context radii: smoothed once over the whole grid, tiles read their part
             from .features import smooth_store
 
             smooth_store(grid, bundle.feature_spec, wide, Path(scratch) / "smoothed.zarr")

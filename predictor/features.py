@@ -95,47 +95,69 @@ def gaussian(values: np.ndarray, sigma_cells) -> np.ndarray:
     return out
 
 
-def smooth_store(grid: xr.Dataset, spec: FeatureSpec, radii: list[float], store, block: int = 512) -> xr.Dataset:
-    """The smoothed attributes of ``radii`` over the whole of a (lazily opened) map, written to the
-    Zarr ``store`` without holding the map: the Gaussian is separable, so it runs along y over
-    blocks of columns, then along x over blocks of rows, as :func:`_smooth` does in memory (the
-    same sums, to rounding).  Returns the store, opened lazily."""
+def _lateral(grid: xr.Dataset) -> tuple[tuple[str, ...], tuple[str, str], tuple[float, float]]:
+    """(dims, the two lateral dims, their spacings): maps (y, x); volumes (z, inline, crossline)."""
+    if is_volume(grid):
+        return ("z", "inline", "crossline"), ("inline", "crossline"), lateral_spacing(grid)
+    dx, dy = spacing(grid)
+    return ("y", "x"), ("y", "x"), (dy, dx)
+
+
+def smooth_store(grid: xr.Dataset, spec: FeatureSpec, radii: list[float], store, block_values: int = 1 << 18
+                 ) -> xr.Dataset:
+    """The laterally smoothed attributes of ``radii`` over the whole of a (lazily opened) map or
+    volume, written to the Zarr ``store`` without holding it: the Gaussian is separable, so it
+    runs along the first lateral axis over blocks of whole columns, then along the second over
+    blocks of whole rows (a volume: every z slice alike), as :func:`_smooth` does in memory (the
+    same sums, to rounding).  Blocks hold about ``block_values`` nodes per z.  Returns the
+    store, opened lazily."""
     import zarr
 
-    dx, dy = spacing(grid)
-    ny, nx = grid.sizes["y"], grid.sizes["x"]
+    dims, (first, second), (d1, d2) = _lateral(grid)
+    shape = tuple(grid.sizes[d] for d in dims)
+    a1, a2 = dims.index(first), dims.index(second)
+    b1 = max(1, min(shape[a1], block_values // shape[a2]))  # rows per block in pass 2
+    b2 = max(1, min(shape[a2], block_values // shape[a1]))  # columns per block in pass 1
     root = zarr.open_group(str(store), mode="w", zarr_format=2)
-    chunks = (min(block, ny), min(block, nx))
+    chunks = tuple(min(n, 512) if d in (first, second) else n for d, n in zip(dims, shape, strict=True))
     names = []
+
+    def along(axis: int, sigma: float) -> tuple:
+        return tuple(sigma if k == axis else 0.0 for k in range(len(dims)))
+
+    def where(axis: int, start: int, size: int) -> tuple:
+        return tuple(slice(start, start + size) if k == axis else slice(None) for k in range(len(dims)))
+
     for attr in spec.attributes:
         for radius in radii:
-            sigma = (radius / dy, radius / dx)
             name = f"{attr}_smooth{radius:g}m"
-            parts = {k: root.create_array(f"{name}.{k}", shape=(ny, nx), chunks=chunks, dtype=dtype)
+            parts = {k: root.create_array(f"{name}.{k}", shape=shape, chunks=chunks, dtype=dtype)
                      for k, dtype in (("num", "f8"), ("den", "f8"), ("valid", "u1"))}
             any_missing = False
-            for c0 in range(0, nx, block):  # along y, a block of whole columns at a time
-                values = grid[attr].isel(x=slice(c0, c0 + block)).to_numpy().astype(float)
+            for c0 in range(0, shape[a2], b2):  # along the first axis, a block of whole columns at a time
+                block = where(a2, c0, b2)
+                values = grid[attr].isel({second: slice(c0, c0 + b2)}).transpose(*dims).to_numpy().astype(float)
                 valid = np.isfinite(values)
                 any_missing |= not valid.all()
-                parts["valid"][:, c0:c0 + block] = valid  # pass 2 masks with it instead of reading the map again
-                parts["num"][:, c0:c0 + block] = gaussian(np.where(valid, values, 0.0), (sigma[0], 0.0))
-                parts["den"][:, c0:c0 + block] = gaussian(valid.astype(float), (sigma[0], 0.0))
-            out = root.create_array(name, shape=(ny, nx), chunks=chunks, dtype="f8", fill_value=np.nan,
-                                    attributes={"_ARRAY_DIMENSIONS": ["y", "x"]})
-            for r0 in range(0, ny, block):  # then along x, a block of whole rows at a time
-                num = gaussian(parts["num"][r0:r0 + block, :], (0.0, sigma[1]))
-                valid = parts["valid"][r0:r0 + block, :].astype(bool)
+                parts["valid"][block] = valid  # pass 2 masks with it instead of reading the input again
+                parts["num"][block] = gaussian(np.where(valid, values, 0.0), along(a1, radius / d1))
+                parts["den"][block] = gaussian(valid.astype(float), along(a1, radius / d1))
+            out = root.create_array(name, shape=shape, chunks=chunks, dtype="f8", fill_value=np.nan,
+                                    attributes={"_ARRAY_DIMENSIONS": list(dims)})
+            for r0 in range(0, shape[a1], b1):  # then along the second, a block of whole rows at a time
+                block = where(a1, r0, b1)
+                num = gaussian(parts["num"][block], along(a2, radius / d2))
+                valid = parts["valid"][block].astype(bool)
                 if any_missing:
-                    den = gaussian(parts["den"][r0:r0 + block, :], (0.0, sigma[1]))
+                    den = gaussian(parts["den"][block], along(a2, radius / d2))
                     with np.errstate(invalid="ignore", divide="ignore"):
                         num = num / den
-                out[r0:r0 + block, :] = np.where(valid, num, np.nan)
+                out[block] = np.where(valid, num, np.nan)
             for k in parts:
                 del root[f"{name}.{k}"]
             names.append(name)
     smoothed = xr.open_zarr(str(store), consolidated=False, zarr_format=2)
-    return smoothed.assign_coords(x=grid.x.to_numpy(), y=grid.y.to_numpy())[names]
+    return smoothed.assign_coords({d: grid[d].to_numpy() for d in dims if d in grid.coords})[names]
 
 
 def _smooth(values: np.ndarray, sigma_cells) -> np.ndarray:
@@ -155,7 +177,7 @@ def build_features(grid: xr.Dataset, spec: FeatureSpec, threads: int | None = No
     """Every feature of ``spec`` as a variable on the grid or volume (same dims and coordinates).
 
     ``threads`` (default: every core) run the FFTs of long smoothing kernels; the values do
-    not depend on it.  ``smoothed`` (maps) holds ``<attribute>_smooth<R>m`` variables already
+    not depend on it.  ``smoothed`` holds ``<attribute>_smooth<R>m`` variables already
     smoothed over the whole grid, on the same nodes as ``grid`` (a tile's part of them).
     """
     with scipy.fft.set_workers(max(1, threads or os.cpu_count() or 1)):
@@ -170,7 +192,7 @@ def _build_features(grid: xr.Dataset, spec: FeatureSpec, smoothed: xr.Dataset | 
             f"it has {', '.join(map(str, grid.data_vars))}; give a grid with the same attribute names as in training"
         )
     if is_volume(grid):
-        return _volume_features(grid, spec)
+        return _volume_features(grid, spec, smoothed)
     if spec.vertical_radii or spec.z_coordinate:
         raise InputError(f"grid {grid.attrs.get('source', '')} is a map: vertical features need a volume "
                          "(z, inline, crossline)")
@@ -201,18 +223,22 @@ def _build_features(grid: xr.Dataset, spec: FeatureSpec, smoothed: xr.Dataset | 
     return ds
 
 
-def _volume_features(vol: xr.Dataset, spec: FeatureSpec) -> xr.Dataset:
+def _volume_features(vol: xr.Dataset, spec: FeatureSpec, smoothed: xr.Dataset | None = None) -> xr.Dataset:
     """Features of a volume; lateral context and gradients act within each z slice, vertical
-    context along each trace."""
+    context along each trace (``smoothed``: wide lateral radii smoothed beforehand)."""
     d_il, d_xl = lateral_spacing(vol)
     dz = z_step(vol)
     out = {}
     for attr in spec.attributes:
-        values = vol[attr].to_numpy().astype(float)
+        values = vol[attr].transpose("z", "inline", "crossline").to_numpy().astype(float)
         out[attr] = values
         for radius in spec.context_radii:
-            smooth = _smooth(values, (0.0, radius / d_il, radius / d_xl))
-            out[f"{attr}_smooth{radius:g}m"] = smooth
+            name = f"{attr}_smooth{radius:g}m"
+            if smoothed is not None and name in smoothed:
+                smooth = smoothed[name].transpose("z", "inline", "crossline").to_numpy()
+            else:
+                smooth = _smooth(values, (0.0, radius / d_il, radius / d_xl))
+            out[name] = smooth
             out[f"{attr}_contrast{radius:g}m"] = values - smooth
         for radius in spec.vertical_radii:
             smooth = _smooth(values, (radius / dz, 0.0, 0.0))

@@ -182,6 +182,28 @@ def test_tiled_volume_equals_in_memory_locally_and_on_two_dask_workers(bundle, f
     assert not list(tmp_path.glob(".*input*")), "the temporary copy of the SEG-Y input is removed"
 
 
+def test_wide_lateral_radius_of_a_volume_is_smoothed_beforehand_and_tiles_still_match(bundle, files, tmp_path,
+                                                                                       monkeypatch):
+    # the bundle's 100 m radius on 25 m traces needs a halo of 17 traces; with WIDE_HALO below
+    # that, every z slice is smoothed once over the whole volume and tiles keep a small halo
+    import predictor.features as features
+    from predictor.bundle import load_bundle
+    from predictor.chunked import halo, predict_to_zarr
+
+    vol = read_seismic(files["impedance.nc"])
+    with pytest.warns(Warning):
+        ref = predict_maps(bundle, vol)
+    spec = load_bundle(bundle).feature_spec
+    monkeypatch.setattr(features, "WIDE_HALO", 10)
+    assert max(halo(vol, spec, presmoothed=True)) < 10 < max(halo(vol, spec))
+    with pytest.warns(Warning):
+        predict_to_zarr(bundle, files["impedance.nc"], tmp_path / "v.zarr", tile=12)
+    tiled = xr.open_zarr(tmp_path / "v.zarr").load()
+    for var in ref.data_vars:
+        np.testing.assert_allclose(tiled[var].to_numpy(), ref[var].to_numpy(), rtol=1e-10, atol=1e-12, err_msg=var)
+    assert not list(tmp_path.glob(".v.zarr.smoothed.*"))
+
+
 def _samples(files, tmp_path, edit, name="w.csv"):
     frame = edit(pd.read_csv(files["well_samples.csv"]))
     path = tmp_path / name
