@@ -54,11 +54,11 @@ def lateral_axes(grid: xr.Dataset) -> tuple[str, str]:
 def halo(grid: xr.Dataset, spec, presmoothed: bool = False) -> tuple[int, int]:
     """Halo (nodes along the first and second lateral axis) a tile needs for exact features;
     with ``presmoothed``, the wide context radii come smoothed beforehand and need none."""
+    skip = _wide(grid, spec) if presmoothed else None
     if is_volume(grid):
         d_il, d_xl = lateral_spacing(grid)
-        return halo_cells(spec, d_xl, d_il, wide_radii(spec, d_xl, d_il) if presmoothed else None)
-    dx, dy = spacing(grid)
-    return halo_cells(spec, dx, dy, wide_radii(spec, dx, dy) if presmoothed else None)
+        return halo_cells(spec, d_xl, d_il, skip)
+    return halo_cells(spec, *spacing(grid), skip)
 
 
 def _wide(grid: xr.Dataset, spec) -> list[float]:

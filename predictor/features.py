@@ -103,23 +103,24 @@ def _lateral(grid: xr.Dataset) -> tuple[tuple[str, ...], tuple[str, str], tuple[
     return ("y", "x"), ("y", "x"), (dy, dx)
 
 
-def smooth_store(grid: xr.Dataset, spec: FeatureSpec, radii: list[float], store, block_values: int = 1 << 18
+def smooth_store(grid: xr.Dataset, spec: FeatureSpec, radii: list[float], store, block_values: int = 1 << 20
                  ) -> xr.Dataset:
     """The laterally smoothed attributes of ``radii`` over the whole of a (lazily opened) map or
     volume, written to the Zarr ``store`` without holding it: the Gaussian is separable, so it
     runs along the first lateral axis over blocks of whole columns, then along the second over
     blocks of whole rows (a volume: every z slice alike), as :func:`_smooth` does in memory (the
-    same sums, to rounding).  Blocks hold about ``block_values`` nodes per z.  Returns the
-    store, opened lazily."""
+    same sums, to rounding).  A block holds at most ``block_values`` values (8 MB in float64;
+    the FFT of a long kernel pads it several-fold) and is a whole number of the store's chunks,
+    so no chunk is written twice.  Returns the store, opened lazily."""
     import zarr
 
     dims, (first, second), (d1, d2) = _lateral(grid)
     shape = tuple(grid.sizes[d] for d in dims)
     a1, a2 = dims.index(first), dims.index(second)
-    b1 = max(1, min(shape[a1], block_values // shape[a2]))  # rows per block in pass 2
-    b2 = max(1, min(shape[a2], block_values // shape[a1]))  # columns per block in pass 1
+    depth = int(np.prod([n for d, n in zip(dims, shape, strict=True) if d not in (first, second)]))
+    step = max(8, min(512, block_values // (depth * max(shape[a1], shape[a2]))))  # rows or columns per block
     root = zarr.open_group(str(store), mode="w", zarr_format=2)
-    chunks = tuple(min(n, 512) if d in (first, second) else n for d, n in zip(dims, shape, strict=True))
+    chunks = tuple(min(n, step) if d in (first, second) else n for d, n in zip(dims, shape, strict=True))
     names = []
 
     def along(axis: int, sigma: float) -> tuple:
@@ -134,9 +135,9 @@ def smooth_store(grid: xr.Dataset, spec: FeatureSpec, radii: list[float], store,
             parts = {k: root.create_array(f"{name}.{k}", shape=shape, chunks=chunks, dtype=dtype)
                      for k, dtype in (("num", "f8"), ("den", "f8"), ("valid", "u1"))}
             any_missing = False
-            for c0 in range(0, shape[a2], b2):  # along the first axis, a block of whole columns at a time
-                block = where(a2, c0, b2)
-                values = grid[attr].isel({second: slice(c0, c0 + b2)}).transpose(*dims).to_numpy().astype(float)
+            for c0 in range(0, shape[a2], step):  # along the first axis, a block of whole columns at a time
+                block = where(a2, c0, step)
+                values = grid[attr].isel({second: slice(c0, c0 + step)}).transpose(*dims).to_numpy().astype(float)
                 valid = np.isfinite(values)
                 any_missing |= not valid.all()
                 parts["valid"][block] = valid  # pass 2 masks with it instead of reading the input again
@@ -144,8 +145,8 @@ def smooth_store(grid: xr.Dataset, spec: FeatureSpec, radii: list[float], store,
                 parts["den"][block] = gaussian(valid.astype(float), along(a1, radius / d1))
             out = root.create_array(name, shape=shape, chunks=chunks, dtype="f8", fill_value=np.nan,
                                     attributes={"_ARRAY_DIMENSIONS": list(dims)})
-            for r0 in range(0, shape[a1], b1):  # then along the second, a block of whole rows at a time
-                block = where(a1, r0, b1)
+            for r0 in range(0, shape[a1], step):  # then along the second, a block of whole rows at a time
+                block = where(a1, r0, step)
                 num = gaussian(parts["num"][block], along(a2, radius / d2))
                 valid = parts["valid"][block].astype(bool)
                 if any_missing:
