@@ -191,9 +191,9 @@ def predict_maps(bundle: Bundle | TrainedModels | str | Path, grid: xr.Dataset, 
             name = exceedance_name(target, cutoff)
             out[name] = (dims, on_grid(name))
             out[name].attrs.update(units="1", long_name=f"probability that {target} exceeds {cutoff:g}{' mD' if log else ''}",
-                                   cutoff=float(cutoff), comment="from the out-of-fold residuals of the matched CV "
-                                   "around the map's prediction; in experiments/field_wide.py mid-range values ran about 0.1 above "
-                                   "the observed frequency, so read it as a ranking")
+                                   cutoff=float(cutoff), comment="from the matched CV's out-of-fold residuals of "
+                                   "the wells predicted near this node's value; in experiments/field_wide.py values in the "
+                                   "lower middle ran up to about 0.1 above the observed frequency")
         if applicable is not None:
             out[f"{target}_applicable"] = applicable
     # file names, not absolute paths: a shared file should not disclose the folders it was made in
