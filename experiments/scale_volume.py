@@ -8,7 +8,8 @@ command's defaults (the features and candidates a user gets; ``--lightgbm-only``
 impedance with lateral context at 50 m and vertical context at 12 m, as measured before), and
 `predict_to_zarr` runs in a fresh process (peak resident memory from the OS).  The bare
 reference is what the bundle cannot avoid: each LightGBM booster inside it predicting the
-whole volume's feature matrix, in memory, in the same run, with the same two threads.
+whole volume's feature matrix, in memory, in the same run, on every core (two here, as the
+tiled run; experiments/scale_predict.py measures maps the same way).
 """
 
 import argparse
@@ -20,12 +21,11 @@ import time
 import warnings
 from pathlib import Path
 
-import numpy as np
-from scale_predict import boosters
+from scale_predict import bare_predict
 
-from predictor.bundle import save_bundle
+from predictor.bundle import load_bundle, save_bundle
 from predictor.errors import PredictorWarning
-from predictor.features import FeatureSpec, build_features, feature_matrix
+from predictor.features import FeatureSpec
 from predictor.io.netcdf import write_zarr
 from predictor.synthetic import VolumeSpec, make_volume_field
 from predictor.training import TrainOptions, train
@@ -75,15 +75,8 @@ def main() -> None:
         names = trained.feature_names
         print(f"trained in {time.perf_counter() - t0:.0f} s: {trained.targets['porosity'].chosen}, "
               f"{len(names)} features")
-        matrix, _ = feature_matrix(build_features(seismic, trained.feature_spec), names)
-        bare = 0.0
-        for booster, features in boosters(trained.targets["porosity"].model):
-            X = np.ascontiguousarray(matrix[:, [names.index(f) for f in features]])
-            t0 = time.perf_counter()
-            booster.predict(X, num_threads=2)
-            bare += time.perf_counter() - t0
-            del X
-        del seismic, matrix
+        bare, _ = bare_predict(load_bundle(bundle), seismic)
+        del seismic
         print(f"bare predict of the bundle's LightGBM boosters: {bare:.1f} s")
         for workers in args.workers:
             out = tmp / f"predicted{workers}.zarr"

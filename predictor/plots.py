@@ -466,11 +466,12 @@ def semivariograms(wells: pd.DataFrame, properties: list[str], path) -> Path:
     fig, axes = plt.subplots(1 + vertical, len(properties), figsize=(5.0 * len(properties), 3.8 * (1 + vertical)),
                              squeeze=False, layout="constrained")
     x, y = wells["x"].to_numpy(float), wells["y"].to_numpy(float)
+    if vertical:  # lateral pairs at about the same z: within half the median sample step along the wells
+        step = float(np.median(np.abs(np.diff(wells.sort_values(["well_id", "z"])["z"].to_numpy()))))
     for k, col in enumerate(properties):
         v, label = _property(wells, col)
         ok = np.isfinite(v)
-        if vertical:  # lateral pairs at about the same z: half the median sample step along the wells
-            step = float(np.median(np.abs(np.diff(wells.sort_values(["well_id", "z"])["z"].to_numpy()))))
+        if vertical:
             exp = experimental(x[ok], y[ok], v[ok], n_lags=12, z=wells["z"].to_numpy(float)[ok], z_tolerance=step / 2)
             model = fit_variogram(exp)
         else:

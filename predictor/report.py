@@ -187,7 +187,7 @@ def _data(check, card, fig):
                if (fig / "crossplot.png").exists() else "")
             + (_img(fig / "semivariograms.png", "experimental semivariograms at the wells (points sized by pair "
                     "count) and the fitted models" + ("; below, the vertical ones from pairs of samples within one well"
-                                                       if card.get("space", {}).get("kind") == "volume" else ""))
+                                                       if _rows(card) == "samples" else ""))
                if (fig / "semivariograms.png").exists() else ""))
     return _section("data", "The data and its checks", body)
 
