@@ -186,84 +186,64 @@ def build_features(grid: xr.Dataset, spec: FeatureSpec, threads: int | None = No
 
 
 def _build_features(grid: xr.Dataset, spec: FeatureSpec, smoothed: xr.Dataset | None = None) -> xr.Dataset:
+    """One path for maps (y, x) and volumes (z, inline, crossline): lateral context and gradients
+    act over the two lateral dims (in each z slice of a volume), vertical context along z."""
     missing = [a for a in spec.attributes if a not in grid.data_vars]
     if missing:
         raise InputError(
             f"grid {grid.attrs.get('source', '')} lacks the attribute(s) {', '.join(missing)} the model needs; "
             f"it has {', '.join(map(str, grid.data_vars))}; give a grid with the same attribute names as in training"
         )
-    if is_volume(grid):
-        return _volume_features(grid, spec, smoothed)
-    if spec.vertical_radii or spec.z_coordinate:
+    volume = is_volume(grid)
+    if not volume and (spec.vertical_radii or spec.z_coordinate):
         raise InputError(f"grid {grid.attrs.get('source', '')} is a map: vertical features need a volume "
                          "(z, inline, crossline)")
-    dx, dy = spacing(grid)
+    dims, lateral, (d1, d2) = _lateral(grid)
+    a1, a2 = dims.index(lateral[0]), dims.index(lateral[1])
+
+    def sigma(cells: dict[int, float]) -> tuple[float, ...]:  # Gaussian sigma in nodes, per dim
+        return tuple(cells.get(k, 0.0) for k in range(len(dims)))
+
     out = {}
     for attr in spec.attributes:
-        values = grid[attr].to_numpy().astype(float)
+        values = grid[attr].transpose(*dims).to_numpy().astype(float)
         out[attr] = values
         for radius in spec.context_radii:
             name = f"{attr}_smooth{radius:g}m"
             if smoothed is not None and name in smoothed:
-                smooth = smoothed[name].to_numpy()
+                smooth = smoothed[name].transpose(*dims).to_numpy()
             else:
-                smooth = _smooth(values, (radius / dy, radius / dx))
+                smooth = _smooth(values, sigma({a1: radius / d1, a2: radius / d2}))
             out[name] = smooth
             out[f"{attr}_contrast{radius:g}m"] = values - smooth
-        if spec.gradient:
-            gy, gx = np.gradient(values, dy, dx)
-            out[f"{attr}_gradient"] = np.hypot(gx, gy)
-    if spec.location:
-        xx, yy = np.meshgrid(grid.x.to_numpy(), grid.y.to_numpy())
-        theta = np.deg2rad(spec.rotation)
-        out["x_coord"], out["y_coord"] = xx, yy
-        out["x_rotated"] = xx * np.cos(theta) + yy * np.sin(theta)
-        out["y_rotated"] = -xx * np.sin(theta) + yy * np.cos(theta)
-    ds = xr.Dataset({k: (("y", "x"), v) for k, v in out.items()}, coords={"x": grid.x, "y": grid.y})
-    ds.attrs = dict(grid.attrs)
-    return ds
-
-
-def _volume_features(vol: xr.Dataset, spec: FeatureSpec, smoothed: xr.Dataset | None = None) -> xr.Dataset:
-    """Features of a volume; lateral context and gradients act within each z slice, vertical
-    context along each trace (``smoothed``: wide lateral radii smoothed beforehand)."""
-    d_il, d_xl = lateral_spacing(vol)
-    dz = z_step(vol)
-    out = {}
-    for attr in spec.attributes:
-        values = vol[attr].transpose("z", "inline", "crossline").to_numpy().astype(float)
-        out[attr] = values
-        for radius in spec.context_radii:
-            name = f"{attr}_smooth{radius:g}m"
-            if smoothed is not None and name in smoothed:
-                smooth = smoothed[name].transpose("z", "inline", "crossline").to_numpy()
-            else:
-                smooth = _smooth(values, (0.0, radius / d_il, radius / d_xl))
-            out[name] = smooth
-            out[f"{attr}_contrast{radius:g}m"] = values - smooth
-        for radius in spec.vertical_radii:
-            smooth = _smooth(values, (radius / dz, 0.0, 0.0))
+        for radius in spec.vertical_radii:  # volumes only (checked above)
+            smooth = _smooth(values, sigma({dims.index("z"): radius / z_step(grid)}))
             out[f"{attr}_vsmooth{radius:g}"] = smooth
             out[f"{attr}_vcontrast{radius:g}"] = values - smooth
         if spec.gradient:
-            gi, gj = np.gradient(values, d_il, d_xl, axis=(1, 2))
-            out[f"{attr}_gradient"] = np.hypot(gi, gj)
-    shape = tuple(vol.sizes[d] for d in ("z", "inline", "crossline"))
+            g1, g2 = np.gradient(values, d1, d2, axis=(a1, a2))
+            out[f"{attr}_gradient"] = np.hypot(g1, g2)
+    shape = tuple(grid.sizes[d] for d in dims)
     if spec.location:
-        xx = np.broadcast_to(vol.cdp_x.to_numpy(), shape)
-        yy = np.broadcast_to(vol.cdp_y.to_numpy(), shape)
+        xx, yy = node_positions(grid, shape)
         theta = np.deg2rad(spec.rotation)
         out["x_coord"], out["y_coord"] = xx, yy
         out["x_rotated"] = xx * np.cos(theta) + yy * np.sin(theta)
         out["y_rotated"] = -xx * np.sin(theta) + yy * np.cos(theta)
     if spec.z_coordinate:
-        out["z_coord"] = np.broadcast_to(vol.z.to_numpy()[:, None, None], shape)
-    ds = xr.Dataset({k: (("z", "inline", "crossline"), v) for k, v in out.items()}, coords=vol.coords)
-    ds.attrs = dict(vol.attrs)
+        out["z_coord"] = np.broadcast_to(grid.z.to_numpy()[:, None, None], shape)
+    coords = grid.coords if volume else {"x": grid.x, "y": grid.y}
+    ds = xr.Dataset({k: (dims, v) for k, v in out.items()}, coords=coords)
+    ds.attrs = dict(grid.attrs)
     return ds
 
 
-TRUNCATE = 4.0  # scipy's default Gaussian truncation, in standard deviations
+def node_positions(grid: xr.Dataset, shape: tuple[int, ...]) -> tuple[np.ndarray, np.ndarray]:
+    """Map x and y of every node, in the grid's shape (a volume: each trace's, at every z)."""
+    if is_volume(grid):
+        return np.broadcast_to(grid.cdp_x.to_numpy(), shape), np.broadcast_to(grid.cdp_y.to_numpy(), shape)
+    xx, yy = np.meshgrid(grid.x.to_numpy(), grid.y.to_numpy())
+    return xx, yy
 
 
 def halo_cells(spec: FeatureSpec, dx: float, dy: float, skip: list[float] | None = None) -> tuple[int, int]:

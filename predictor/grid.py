@@ -17,6 +17,7 @@ from .errors import InputError, PredictorWarning, list_rows
 from .io.formats import file_format
 from .io.tables import X_NAMES, Y_NAMES, find_column, numeric_column, read_table
 from .options import SampleMethod
+from .sampling import interpolate
 
 
 def _typical_step(values: np.ndarray, others: np.ndarray) -> float:
@@ -244,13 +245,7 @@ def sample_at(ds: xr.Dataset, x: np.ndarray, y: np.ndarray, labels=None,
     nx, ny = ds.sizes["x"], ds.sizes["y"]
     half = 0.5  # a point within half a cell of the outer nodes still belongs to the map
     outside = (fx < -half) | (fx > nx - 1 + half) | (fy < -half) | (fy > ny - 1 + half)
-    fx = np.clip(fx, 0, nx - 1)
-    fy = np.clip(fy, 0, ny - 1)
-    inear, jnear = np.round(fy).astype(int), np.round(fx).astype(int)
-    arrays = {var: ds[var].to_numpy() for var in ds.data_vars}
-    gap = np.zeros(x.size, bool)
-    for arr in arrays.values():
-        gap |= np.isnan(arr[inear, jnear])
+    values, gap = interpolate(ds, ("y", "x"), [fy, fx], nearest=method == "nearest")
     gap &= ~outside
     problems = []
     if outside.any():
@@ -273,27 +268,4 @@ def sample_at(ds: xr.Dataset, x: np.ndarray, y: np.ndarray, labels=None,
                 "--drop-outside to leave them out"
             )
         warnings.warn(f"left out wells {message}", PredictorWarning, stacklevel=2)
-    out = {}
-    for var, arr in arrays.items():
-        if method == "nearest":
-            vals = arr[inear, jnear]
-        else:
-            vals = _bilinear(arr, fx, fy)
-        out[var] = vals[kept]
-    return pd.DataFrame(out), kept
-
-
-def _bilinear(arr: np.ndarray, fx: np.ndarray, fy: np.ndarray) -> np.ndarray:
-    ny, nx = arr.shape
-    j0 = np.clip(np.floor(fx).astype(int), 0, max(nx - 2, 0))
-    i0 = np.clip(np.floor(fy).astype(int), 0, max(ny - 2, 0))
-    tx, ty = fx - j0, fy - i0
-    total = np.zeros(fx.size)
-    weight = np.zeros(fx.size)
-    for di, dj, w in ((0, 0, (1 - tx) * (1 - ty)), (0, 1, tx * (1 - ty)), (1, 0, (1 - tx) * ty), (1, 1, tx * ty)):
-        v = arr[i0 + di, j0 + dj]
-        ok = ~np.isnan(v)
-        total += np.where(ok, v * w, 0.0)
-        weight += np.where(ok, w, 0.0)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        return np.where(weight > 0, total / weight, np.nan)
+    return values[kept].reset_index(drop=True), kept

@@ -23,6 +23,7 @@ import xarray as xr
 
 from .errors import InputError, PredictorWarning
 from .io.formats import file_format
+from .sampling import interpolate
 
 ZDomain = Literal["depth", "time", "unknown"]
 DIMS = ("z", "inline", "crossline")
@@ -242,16 +243,8 @@ def values_at(vol: xr.Dataset, x, y, z) -> tuple[pd.DataFrame, np.ndarray]:
     """Trilinear values of every variable at points inside ``vol`` (a whole volume or a window
     of one), and whether the nearest node holds no value for some variable (a gap)."""
     fi, fj = fractional_index(vol, x, y)
-    ni, nj, nk = vol.sizes["inline"], vol.sizes["crossline"], vol.sizes["z"]
     fk = (np.asarray(z, float) - float(vol.z[0])) / z_step(vol)
-    fi, fj, fk = np.clip(fi, 0, ni - 1), np.clip(fj, 0, nj - 1), np.clip(fk, 0, nk - 1)
-    near = (np.round(fk).astype(int), np.round(fi).astype(int), np.round(fj).astype(int))
-    out, gap = {}, np.zeros(fi.size, bool)
-    for var in vol.data_vars:
-        arr = vol[var].to_numpy()
-        gap |= np.isnan(arr[near])
-        out[str(var)] = _trilinear(arr, fk, fi, fj)
-    return pd.DataFrame(out), gap
+    return interpolate(vol, DIMS, [fk, fi, fj])
 
 
 def report_unsampled(outside: np.ndarray, gap: np.ndarray, labels, drop_outside: bool, source: str) -> None:
@@ -268,7 +261,7 @@ def report_unsampled(outside: np.ndarray, gap: np.ndarray, labels, drop_outside:
     message = "; ".join(problems)
     if not drop_outside:
         raise InputError(f"wells {message} (volume {source}); fix the coordinates, or pass --drop-outside "
-                         "(drop_outside=True) to leave those samples out")
+                         "to leave those samples out")
     warnings.warn(f"left out samples of wells {message}", PredictorWarning, stacklevel=3)
 
 
@@ -301,26 +294,6 @@ def sample_volume(vol: xr.Dataset, x, y, z, labels=None, drop_outside: bool = Fa
     report_unsampled(outside, gap, labels, drop_outside, vol.attrs.get("source", ""))
     kept = ~(outside | gap) & in_z
     return values[kept].reset_index(drop=True), kept
-
-
-def _trilinear(arr: np.ndarray, fk, fi, fj) -> np.ndarray:
-    nk, ni, nj = arr.shape
-    k0 = np.clip(np.floor(fk).astype(int), 0, max(nk - 2, 0))
-    i0 = np.clip(np.floor(fi).astype(int), 0, max(ni - 2, 0))
-    j0 = np.clip(np.floor(fj).astype(int), 0, max(nj - 2, 0))
-    tk, ti, tj = fk - k0, fi - i0, fj - j0
-    total = np.zeros(fk.size)
-    weight = np.zeros(fk.size)
-    for dk in (0, 1):
-        for di in (0, 1):
-            for dj in (0, 1):
-                w = (tk if dk else 1 - tk) * (ti if di else 1 - ti) * (tj if dj else 1 - tj)
-                v = arr[np.minimum(k0 + dk, nk - 1), np.minimum(i0 + di, ni - 1), np.minimum(j0 + dj, nj - 1)]
-                ok = ~np.isnan(v)
-                total += np.where(ok, v * w, 0.0)
-                weight += np.where(ok, w, 0.0)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        return np.where(weight > 0, total / weight, np.nan)
 
 
 def view_depth(vol: xr.Dataset, wells: pd.DataFrame | None = None) -> float:
