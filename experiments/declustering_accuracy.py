@@ -23,8 +23,13 @@ def one(spec: FieldSpec) -> dict:
     nearest = nearest_node_weights(wells.x, wells.y, xx, yy)
     true_phi = float(truth.porosity.mean())
     true_sand = float((truth.facies == 2).mean())
-    row = {"seed": spec.seed, "geometry": spec.geometry, "strength": spec.drilling_strength,
-           "phi_true": true_phi, "phi_naive": wells.porosity.mean()}
+    row = {
+        "seed": spec.seed,
+        "geometry": spec.geometry,
+        "strength": spec.drilling_strength,
+        "phi_true": true_phi,
+        "phi_naive": wells.porosity.mean(),
+    }
     row["phi_cell"] = weighted_mean(wells.porosity, cell.weights)
     row["phi_nearest"] = weighted_mean(wells.porosity, nearest)
     row["sand_true"] = true_sand
@@ -34,22 +39,44 @@ def one(spec: FieldSpec) -> dict:
     for what in ("phi", "sand"):
         naive_err = abs(row[f"{what}_naive"] - row[f"{what}_true"])
         for method in ("cell", "nearest"):
-            row[f"{what}_{method}_ratio"] = abs(row[f"{what}_{method}"] - row[f"{what}_true"]) / naive_err
+            row[f"{what}_{method}_ratio"] = (
+                abs(row[f"{what}_{method}"] - row[f"{what}_true"]) / naive_err
+            )
     return row
 
 
 def main() -> None:
-    rows = [one(FieldSpec(seed=seed, geometry=geometry, drilling_strength=strength))
-            for seed in range(1, 6) for geometry in ("channels", "lobes") for strength in (1.0, 1.5, 2.5)]
+    rows = [
+        one(FieldSpec(seed=seed, geometry=geometry, drilling_strength=strength))
+        for seed in range(1, 6)
+        for geometry in ("channels", "lobes")
+        for strength in (1.0, 1.5, 2.5)
+    ]
     table = pd.DataFrame(rows)
     pd.set_option("display.width", 200)
     print(table.round(3).to_string(index=False))
     print("\nmean error ratio (declustered / naive), 0 = perfect, 1 = no better than raw wells:")
-    print(table.groupby(["geometry", "strength"])[
-        ["phi_cell_ratio", "phi_nearest_ratio", "sand_cell_ratio", "sand_nearest_ratio"]].mean().round(2))
-    print("\nall fields:", table[["phi_cell_ratio", "phi_nearest_ratio", "sand_cell_ratio",
-                                 "sand_nearest_ratio"]].mean().round(2).to_dict())
-    print("declustered closer than naive in", int((table.phi_cell_ratio < 1).sum()), "of", len(table), "fields (cell)")
+    print(
+        table.groupby(["geometry", "strength"])[
+            ["phi_cell_ratio", "phi_nearest_ratio", "sand_cell_ratio", "sand_nearest_ratio"]
+        ]
+        .mean()
+        .round(2)
+    )
+    print(
+        "\nall fields:",
+        table[["phi_cell_ratio", "phi_nearest_ratio", "sand_cell_ratio", "sand_nearest_ratio"]]
+        .mean()
+        .round(2)
+        .to_dict(),
+    )
+    print(
+        "declustered closer than naive in",
+        int((table.phi_cell_ratio < 1).sum()),
+        "of",
+        len(table),
+        "fields (cell)",
+    )
 
 
 if __name__ == "__main__":

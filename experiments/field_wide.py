@@ -40,7 +40,10 @@ from predictor.synthetic import FACIES, FieldSpec, make_field
 from predictor.training import TrainOptions, train
 
 BINS = np.linspace(0, 1, 11)
-BIASED_PHI, BIASED_SAND = 0.02, 0.05  # raw-well errors above which drilling counts as biased (ratios shown)
+BIASED_PHI, BIASED_SAND = (
+    0.02,
+    0.05,
+)  # raw-well errors above which drilling counts as biased (ratios shown)
 
 
 def brier(labels, proba, classes) -> float:
@@ -70,14 +73,23 @@ def one(layout: str, seed: int) -> tuple[dict, pd.DataFrame]:
     pred = phi.calibration.clip(phi.model.predict(X, xy))
     spread = local_spread(phi.spread, phi.model, X, xy) if phi.calibration.scaled else None
     rel = []
-    pooled = dataclasses.replace(phi.calibration, local_quantiles=None)  # one residual distribution for all nodes
+    pooled = dataclasses.replace(
+        phi.calibration, local_quantiles=None
+    )  # one residual distribution for all nodes
     constant = calibrate(phi.observed - phi.oof, phi.weights, bounds=(0.0, 1.0))
     for level in (0.3, 0.5, 0.7):
         cutoff = float(np.quantile(true_phi, level))
-        rel.append(pd.DataFrame({"p": phi.calibration.exceedance(pred, cutoff, spread),
-                                 "p_pooled": pooled.exceedance(pred, cutoff, spread),
-                                 "p_constant": constant.exceedance(pred, cutoff),
-                                 "hit": true_phi > cutoff, "level": level}))
+        rel.append(
+            pd.DataFrame(
+                {
+                    "p": phi.calibration.exceedance(pred, cutoff, spread),
+                    "p_pooled": pooled.exceedance(pred, cutoff, spread),
+                    "p_constant": constant.exceedance(pred, cutoff),
+                    "hit": true_phi > cutoff,
+                    "level": level,
+                }
+            )
+        )
     row["map_bias"] = float(np.mean(pred - true_phi))
     row["oof_residual_mean"] = float(np.average(phi.observed - phi.oof, weights=phi.weights))
     rel = pd.concat(rel).assign(layout=layout, seed=seed)
@@ -104,14 +116,17 @@ def one(layout: str, seed: int) -> tuple[dict, pd.DataFrame]:
         for rule in MAP_RULES:
             drawn = np.argmax(p * rule_factors(rule, p, target), axis=1)
             row[f"{name}{rule}_sand_error"] = float(np.mean(drawn == sand)) - true_share["sand"]
-            row[f"{name}{rule}_bacc_gain"] = balanced_accuracy_score(labels, np.array(classes)[drawn]) - \
-                row["bacc_logistic"]
+            row[f"{name}{rule}_bacc_gain"] = (
+                balanced_accuracy_score(labels, np.array(classes)[drawn]) - row["bacc_logistic"]
+            )
     return row, rel
 
 
 def reliability(rel: pd.DataFrame, column: str = "p") -> pd.DataFrame:
     rel = rel.assign(bin=np.clip(np.digitize(rel[column], BINS) - 1, 0, 9))
-    out = rel.groupby("bin").agg(predicted=(column, "mean"), observed=("hit", "mean"), nodes=(column, "size"))
+    out = rel.groupby("bin").agg(
+        predicted=(column, "mean"), observed=("hit", "mean"), nodes=(column, "size")
+    )
     out["centre"] = (BINS[:-1] + BINS[1:])[out.index] / 2
     return out
 
@@ -120,34 +135,54 @@ def summary(table: pd.DataFrame, rel: pd.DataFrame, label: str) -> None:
     print(f"\n{label}: {len(table)} fields")
     for what, floor in (("phi", BIASED_PHI), ("sand", BIASED_SAND)):
         biased = table[table[f"{what}_raw_error"] > floor]
-        print(f"  {what}: {len(biased)} fields where the raw wells' error exceeds {floor} (ratios); all fields "
-              "(absolute errors)")
-        for method in ("declustered_cell", "declustered_nearest_node", "debiased_seismic", "model_map"):
+        print(
+            f"  {what}: {len(biased)} fields where the raw wells' error exceeds {floor} (ratios);"
+            " all fields (absolute errors)"
+        )
+        for method in (
+            "declustered_cell",
+            "declustered_nearest_node",
+            "debiased_seismic",
+            "model_map",
+        ):
             r = biased[f"{what}_{method}"].dropna()
             a = (table[f"{what}_{method}"] * table[f"{what}_raw_error"]).dropna()
-            print(f"    {method:<25}: error / raw-well error mean {r.mean():.3f}, worst {r.max():.3f}, "
-                  f"<= 0.20 on {np.mean(r <= 0.2):.0%}; absolute error mean {a.mean():.4f}, worst {a.max():.4f}")
-    print(f"  true mean porosity inside the bootstrap [q10, q90]: {table.phi_in_interval.mean():.0%}")
+            print(
+                f"    {method:<25}: error / raw-well error mean {r.mean():.3f}, worst"
+                f" {r.max():.3f}, <= 0.20 on {np.mean(r <= 0.2):.0%}; absolute error mean"
+                f" {a.mean():.4f}, worst {a.max():.4f}"
+            )
+    print(
+        f"  true mean porosity inside the bootstrap [q10, q90]: {table.phi_in_interval.mean():.0%}"
+    )
     for name in ("", "shifted_"):
         for rule in MAP_RULES:
             e = table[f"{name}{rule}_sand_error"].dropna()
             g = table[f"{name}{rule}_bacc_gain"].dropna()
-            print(f"  facies map {name}{rule:<14}: sand share error mean {e.abs().mean():.3f}, worst {e.abs().max():.3f}"
-                  f" (within 0.04 on {np.mean(e.abs() <= 0.04):.0%}); balanced accuracy - logistic: mean "
-                  f"{g.mean():+.3f}, worst {g.min():+.3f}")
+            print(
+                f"  facies map {name}{rule:<14}: sand share error mean {e.abs().mean():.3f}, worst"
+                f" {e.abs().max():.3f} (within 0.04 on {np.mean(e.abs() <= 0.04):.0%}); balanced"
+                f" accuracy - logistic: mean {g.mean():+.3f}, worst {g.min():+.3f}"
+            )
     for col in ("brier_ratio", "brier_ratio_shifted"):
         b = table[col].dropna()
-        print(f"  map Brier / logistic ({col}): mean {b.mean():.3f}, worst {b.max():.3f}, <= 0.90 on "
-              f"{np.mean(b <= 0.9):.0%}")
-    print(f"  porosity map bias (mean prediction - truth): mean {table.map_bias.mean():+.4f}; weighted mean "
-          f"out-of-fold residual {table.oof_residual_mean.mean():+.4f}")
+        print(
+            f"  map Brier / logistic ({col}): mean {b.mean():.3f}, worst {b.max():.3f}, <= 0.90 on "
+            f"{np.mean(b <= 0.9):.0%}"
+        )
+    print(
+        f"  porosity map bias (mean prediction - truth): mean {table.map_bias.mean():+.4f};"
+        f" weighted mean out-of-fold residual {table.oof_residual_mean.mean():+.4f}"
+    )
     for column in ("p", "p_pooled", "p_constant"):
         r = reliability(rel, column)
         dev = (r.observed - r.centre).abs()
         scores = rel[column] - rel.hit
-        print(f"  P(porosity > cutoff) reliability ({column}): Brier {np.mean(scores ** 2):.4f}, "
-              f"worst |observed - bin centre| {dev.max():.3f}, "
-              f"worst |observed - mean predicted| {(r.observed - r.predicted).abs().max():.3f}")
+        print(
+            f"  P(porosity > cutoff) reliability ({column}): Brier {np.mean(scores**2):.4f}, "
+            f"worst |observed - bin centre| {dev.max():.3f}, "
+            f"worst |observed - mean predicted| {(r.observed - r.predicted).abs().max():.3f}"
+        )
         print("    " + r.round(3).to_string().replace("\n", "\n    "))
 
 

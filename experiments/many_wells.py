@@ -43,16 +43,18 @@ t2 = time.perf_counter()
 hwm = next(int(l.split()[1]) for l in open("/proc/self/status") if l.startswith("VmHWM"))
 por = maps.porosity.to_numpy()
 ok = np.isfinite(por)
-print(json.dumps({"wells": len(wells), "train_s": t1 - t0, "predict_s": t2 - t1, "peak_mb": hwm / 1024,
-                  "chosen": {t: m.chosen for t, m in trained.targets.items()},
-                  "rmse": float(np.sqrt(np.mean((por[ok] - truth.porosity.to_numpy()[ok]) ** 2)))}))
+rmse = float(np.sqrt(np.mean((por[ok] - truth.porosity.to_numpy()[ok]) ** 2)))
+chosen = {t: m.chosen for t, m in trained.targets.items()}
+print(json.dumps({"wells": len(wells), "train_s": t1 - t0, "predict_s": t2 - t1,
+                  "peak_mb": hwm / 1024, "chosen": chosen, "rmse": rmse}))
 np.save(f"/tmp/many_wells_{n_wells}_{form}.npy", por)
 """
 
 
 def run(n_wells: int, size: int, form: str) -> dict:
-    proc = subprocess.run([sys.executable, "-c", CHILD, str(n_wells), str(size), form], capture_output=True,
-                          text=True)
+    proc = subprocess.run(
+        [sys.executable, "-c", CHILD, str(n_wells), str(size), form], capture_output=True, text=True
+    )
     if proc.returncode:
         raise SystemExit(proc.stderr[-3000:])
     return json.loads(proc.stdout.strip().splitlines()[-1])
@@ -69,21 +71,31 @@ def main() -> None:
     results = {}
     for n in args.wells:
         r = results[n] = run(n, args.size, "default")
-        print(f"{r['wells']} wells, {args.size} x {args.size} map: train {r['train_s']:.0f} s, predict "
-              f"{r['predict_s']:.0f} s, total {(r['train_s'] + r['predict_s']) / 60:.1f} min; peak memory "
-              f"{r['peak_mb']:.0f} MB; porosity RMSE against the truth {r['rmse']:.4f}; chosen {r['chosen']}")
+        print(
+            f"{r['wells']} wells, {args.size} x {args.size} map: train {r['train_s']:.0f} s,"
+            f" predict {r['predict_s']:.0f} s, total {(r['train_s'] + r['predict_s']) / 60:.1f}"
+            f" min; peak memory {r['peak_mb']:.0f} MB; porosity RMSE against the truth"
+            f" {r['rmse']:.4f}; chosen {r['chosen']}"
+        )
         sys.stdout.flush()
     for n in args.compare or []:
         local = results.get(n) or run(n, args.size, "default")
         glob = run(n, args.size, "global")
-        a, b = np.load(f"/tmp/many_wells_{n}_default.npy"), np.load(f"/tmp/many_wells_{n}_global.npy")
+        a, b = (
+            np.load(f"/tmp/many_wells_{n}_default.npy"),
+            np.load(f"/tmp/many_wells_{n}_global.npy"),
+        )
         ok = np.isfinite(a) & np.isfinite(b)
         rms = float(np.sqrt(np.mean((a[ok] - b[ok]) ** 2)))
         local_rmse = local["rmse"]
-        print(f"{n} wells, moving neighbourhood against the global system: porosity RMSE against the truth "
-              f"{local_rmse:.4f} against {glob['rmse']:.4f} ({local_rmse / glob['rmse'] - 1:+.2%}); RMS difference "
-              f"between the two maps {rms:.4f} ({rms / glob['rmse']:.1%} of the global map's error); global "
-              f"form: train {glob['train_s']:.0f} s, predict {glob['predict_s']:.0f} s, peak {glob['peak_mb']:.0f} MB")
+        print(
+            f"{n} wells, moving neighbourhood against the global system: porosity RMSE against the"
+            f" truth {local_rmse:.4f} against {glob['rmse']:.4f}"
+            f" ({local_rmse / glob['rmse'] - 1:+.2%}); RMS difference between the two maps"
+            f" {rms:.4f} ({rms / glob['rmse']:.1%} of the global map's error); global form: train"
+            f" {glob['train_s']:.0f} s, predict {glob['predict_s']:.0f} s, peak"
+            f" {glob['peak_mb']:.0f} MB"
+        )
 
 
 if __name__ == "__main__":

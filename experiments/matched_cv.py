@@ -42,21 +42,66 @@ TUNING, HELD_OUT = (1, 2), (11, 12)
 
 # name: (FieldSpec keywords)
 LAYOUTS = {
-    "dense_preferential_channels": dict(nx=200, ny=160, spacing=12.5, n_preferential=160, drilling_strength=2.0,
-                                        regular_pattern=(5, 4), body_width=180.0, correlation_length=200.0),
-    "dense_preferential_lobes_2attr": dict(nx=180, ny=200, spacing=12.5, n_preferential=210, drilling_strength=2.5,
-                                           regular_pattern=(4, 4), body_width=200.0, geometry="lobes",
-                                           second_attribute=True, correlation_length=200.0),
-    "dense_random_channels": dict(nx=220, ny=140, spacing=12.5, n_preferential=130, drilling_strength=0.0,
-                                  regular_pattern=(0, 0), body_width=180.0, correlation_length=200.0),
-    "dense_regular_lobes": dict(nx=160, ny=160, spacing=12.5, n_preferential=0, regular_pattern=(13, 12),
-                                geometry="lobes", body_width=200.0, correlation_length=200.0),
-    "sparse_preferential_channels": dict(n_preferential=30, drilling_strength=2.5, regular_pattern=(3, 3)),
-    "sparse_random_lobes_2attr": dict(n_preferential=40, drilling_strength=0.0, regular_pattern=(2, 2),
-                                      geometry="lobes", second_attribute=True),
+    "dense_preferential_channels": dict(
+        nx=200,
+        ny=160,
+        spacing=12.5,
+        n_preferential=160,
+        drilling_strength=2.0,
+        regular_pattern=(5, 4),
+        body_width=180.0,
+        correlation_length=200.0,
+    ),
+    "dense_preferential_lobes_2attr": dict(
+        nx=180,
+        ny=200,
+        spacing=12.5,
+        n_preferential=210,
+        drilling_strength=2.5,
+        regular_pattern=(4, 4),
+        body_width=200.0,
+        geometry="lobes",
+        second_attribute=True,
+        correlation_length=200.0,
+    ),
+    "dense_random_channels": dict(
+        nx=220,
+        ny=140,
+        spacing=12.5,
+        n_preferential=130,
+        drilling_strength=0.0,
+        regular_pattern=(0, 0),
+        body_width=180.0,
+        correlation_length=200.0,
+    ),
+    "dense_regular_lobes": dict(
+        nx=160,
+        ny=160,
+        spacing=12.5,
+        n_preferential=0,
+        regular_pattern=(13, 12),
+        geometry="lobes",
+        body_width=200.0,
+        correlation_length=200.0,
+    ),
+    "sparse_preferential_channels": dict(
+        n_preferential=30, drilling_strength=2.5, regular_pattern=(3, 3)
+    ),
+    "sparse_random_lobes_2attr": dict(
+        n_preferential=40,
+        drilling_strength=0.0,
+        regular_pattern=(2, 2),
+        geometry="lobes",
+        second_attribute=True,
+    ),
     "sparse_regular_channels": dict(n_preferential=0, regular_pattern=(7, 6)),
-    "sparse_preferential_lobes_2attr": dict(n_preferential=45, drilling_strength=1.5, regular_pattern=(3, 2),
-                                            geometry="lobes", second_attribute=True),
+    "sparse_preferential_lobes_2attr": dict(
+        n_preferential=45,
+        drilling_strength=1.5,
+        regular_pattern=(3, 2),
+        geometry="lobes",
+        second_attribute=True,
+    ),
 }
 
 
@@ -64,7 +109,11 @@ def map_rows(grid, spec, names):
     features = build_features(grid, spec)
     matrix, valid = feature_matrix(features, names)
     xx, yy = np.meshgrid(grid.x.to_numpy(), grid.y.to_numpy())
-    return pd.DataFrame(matrix, columns=names), np.column_stack([xx.ravel()[valid], yy.ravel()[valid]]), valid
+    return (
+        pd.DataFrame(matrix, columns=names),
+        np.column_stack([xx.ravel()[valid], yy.ravel()[valid]]),
+        valid,
+    )
 
 
 def rmse(a, b):
@@ -77,8 +126,12 @@ def one(layout: str, seed: int, options: dict | None = None) -> dict:
     wells.attrs["source"] = "synthetic"
     t0 = time.perf_counter()
     try:
-        trained = train(wells, seismic, TrainOptions(targets=["porosity", "facies"], **(options or {})))
-    except ModelError as error:  # a facies drilled by one well only: the tool refuses it, as it should
+        trained = train(
+            wells, seismic, TrainOptions(targets=["porosity", "facies"], **(options or {}))
+        )
+    except (
+        ModelError
+    ) as error:  # a facies drilled by one well only: the tool refuses it, as it should
         if "facies" not in str(error):
             raise
         trained = train(wells, seismic, TrainOptions(targets=["porosity"], **(options or {})))
@@ -88,12 +141,22 @@ def one(layout: str, seed: int, options: dict | None = None) -> dict:
     true_phi = truth.porosity.to_numpy().ravel()[valid]
     pred = phi.calibration.clip(phi.model.predict(X, xy))
     true_rmse = rmse(pred, true_phi)
-    row = {"layout": layout, "seed": seed, "wells": len(wells), "train_s": round(seconds, 1), "chosen": phi.chosen,
-           "rmse_map": true_rmse}
+    row = {
+        "layout": layout,
+        "seed": seed,
+        "wells": len(wells),
+        "train_s": round(seconds, 1),
+        "chosen": phi.chosen,
+        "rmse_map": true_rmse,
+    }
     rk = phi.refit("regression_kriging").predict(X, xy)
     row["rk_ratio"] = true_rmse / rmse(rk, true_phi)
-    if phi.chosen != "blend" and "blend" in phi.candidates:  # the selection rule against always the blend
-        row["rk_ratio_blend"] = rmse(phi.refit("blend").predict(X, xy), true_phi) / rmse(rk, true_phi)
+    if (
+        phi.chosen != "blend" and "blend" in phi.candidates
+    ):  # the selection rule against always the blend
+        row["rk_ratio_blend"] = rmse(phi.refit("blend").predict(X, xy), true_phi) / rmse(
+            rk, true_phi
+        )
     else:
         row["rk_ratio_blend"] = row["rk_ratio"]
     chosen_row = next(r for r in phi.leaderboard if r["chosen"])
@@ -101,10 +164,17 @@ def one(layout: str, seed: int, options: dict | None = None) -> dict:
     row["cv_representative"] = chosen_row["cv_representative"]["rmse"] / true_rmse
     row["cv_random"] = chosen_row["cv_random"]["rmse"] / true_rmse
     blocks = phi.distances["designs"]["blocks"]
-    design = design_folds("blocks", *unit_heads(phi.data.xy, phi.data.units), phi.data.map_distances,
-                          phi.data.n_splits, phi.block_size)
+    design = design_folds(
+        "blocks",
+        *unit_heads(phi.data.xy, phi.data.units),
+        phi.data.map_distances,
+        phi.data.n_splits,
+        phi.block_size,
+    )
     oof = out_of_fold(phi.candidates[phi.chosen], phi.data, design.splits)
-    row["cv_blocks"] = float(np.sqrt(np.average((phi.observed - oof) ** 2, weights=phi.weights))) / true_rmse
+    row["cv_blocks"] = (
+        float(np.sqrt(np.average((phi.observed - oof) ** 2, weights=phi.weights))) / true_rmse
+    )
     row["w_matched"] = phi.distances["designs"]["matched"]["w"]
     row["w_blocks"], row["w_random"] = blocks["w"], phi.distances["designs"]["random"]["w"]
     spread = local_spread(phi.spread, phi.model, X, xy) if phi.calibration.scaled else None
@@ -116,8 +186,9 @@ def one(layout: str, seed: int, options: dict | None = None) -> dict:
     q10c, q90c = calibrate(resid, phi.weights, bounds=(0.0, 1.0)).apply(pred)
     row["coverage_constant"] = float(np.mean((true_phi >= q10c) & (true_phi <= q90c)))
     lo, hi = (weighted_quantile(resid, q, phi.weights) for q in (0.1, 0.9))
-    row["coverage_no_test_mass"] = float(np.mean((true_phi >= np.clip(pred + lo, 0, 1))
-                                                 & (true_phi <= np.clip(pred + hi, 0, 1))))
+    row["coverage_no_test_mass"] = float(
+        np.mean((true_phi >= np.clip(pred + lo, 0, 1)) & (true_phi <= np.clip(pred + hi, 0, 1)))
+    )
     if "facies" not in trained.targets:
         row["bacc"] = row["bacc_logistic"] = np.nan
         return row
@@ -126,7 +197,9 @@ def one(layout: str, seed: int, options: dict | None = None) -> dict:
     proba = fac.model.predict(X, xy)
     logistic = fac.refit("logistic").predict(X, xy)
     row["bacc"] = balanced_accuracy_score(labels, np.array(fac.classes)[proba.argmax(1)])
-    row["bacc_logistic"] = balanced_accuracy_score(labels, np.array(fac.classes)[logistic.argmax(1)])
+    row["bacc_logistic"] = balanced_accuracy_score(
+        labels, np.array(fac.classes)[logistic.argmax(1)]
+    )
     return row
 
 
@@ -135,20 +208,35 @@ def summary(table: pd.DataFrame, label: str) -> None:
     for design in ("matched", "representative", "blocks", "random"):
         ratio = table[f"cv_{design}"]
         inside = np.mean(np.abs(ratio - 1) <= 0.15)
-        print(f"  CV RMSE / true map RMSE, {design:<8}: mean {ratio.mean():.3f}, median {ratio.median():.3f}, "
-              f"range {ratio.min():.2f}-{ratio.max():.2f}, within +-15 % on {inside:.0%} of fields")
-    for label, cov in (("", table.coverage), (" (constant widths)", table.coverage_constant),
-                       (" (no spread model, no test-point mass)", table.coverage_no_test_mass)):
-        print(f"  [q10, q90] coverage{label}: mean {cov.mean():.3f}, range {cov.min():.2f}-{cov.max():.2f}, "
-              f"within 0.80 +- 0.05 on {np.mean(np.abs(cov - 0.8) <= 0.05):.0%} of fields")
+        print(
+            f"  CV RMSE / true map RMSE, {design:<8}: mean {ratio.mean():.3f}, median"
+            f" {ratio.median():.3f}, range {ratio.min():.2f}-{ratio.max():.2f}, within +-15 % on"
+            f" {inside:.0%} of fields"
+        )
+    for label, cov in (
+        ("", table.coverage),
+        (" (constant widths)", table.coverage_constant),
+        (" (no spread model, no test-point mass)", table.coverage_no_test_mass),
+    ):
+        print(
+            f"  [q10, q90] coverage{label}: mean {cov.mean():.3f}, range"
+            f" {cov.min():.2f}-{cov.max():.2f}, within 0.80 +- 0.05 on"
+            f" {np.mean(np.abs(cov - 0.8) <= 0.05):.0%} of fields"
+        )
     gap = table.coverage_held_out_wells - table.coverage
-    print(f"  held-out wells' coverage (card) - map coverage: mean {gap.mean():+.3f}, mean |.| {gap.abs().mean():.3f}, "
-          f"within 0.05 on {np.mean(gap.abs() <= 0.05):.0%} of fields")
-    print(f"  porosity map RMSE / regression kriging: mean {table.rk_ratio.mean():.3f}, "
-          f"worst {table.rk_ratio.max():.3f}, <= 1 on {np.mean(table.rk_ratio <= 1):.0%} of fields")
+    print(
+        f"  held-out wells' coverage (card) - map coverage: mean {gap.mean():+.3f}, mean |.|"
+        f" {gap.abs().mean():.3f}, within 0.05 on {np.mean(gap.abs() <= 0.05):.0%} of fields"
+    )
+    print(
+        f"  porosity map RMSE / regression kriging: mean {table.rk_ratio.mean():.3f}, "
+        f"worst {table.rk_ratio.max():.3f}, <= 1 on {np.mean(table.rk_ratio <= 1):.0%} of fields"
+    )
     gain = table.bacc - table.bacc_logistic
-    print(f"  facies balanced accuracy on the map: {table.bacc.mean():.3f} vs logistic "
-          f"{table.bacc_logistic.mean():.3f} (gain {gain.mean():+.3f}, worst {gain.min():+.3f})")
+    print(
+        f"  facies balanced accuracy on the map: {table.bacc.mean():.3f} vs logistic "
+        f"{table.bacc_logistic.mean():.3f} (gain {gain.mean():+.3f}, worst {gain.min():+.3f})"
+    )
     print(f"  training time: mean {table.train_s.mean():.1f} s, max {table.train_s.max():.1f} s")
 
 
@@ -159,7 +247,9 @@ def main() -> None:
     parser.add_argument("--jobs", type=int, default=2)
     parser.add_argument("--layouts", nargs="*", default=list(LAYOUTS))
     parser.add_argument("--cv", help="a fold design other than the default (for comparison)")
-    parser.add_argument("--folds", type=int, help="a number of folds other than the default (for comparison)")
+    parser.add_argument(
+        "--folds", type=int, help="a number of folds other than the default (for comparison)"
+    )
     args = parser.parse_args()
     seeds = {"tuning": TUNING, "held_out": HELD_OUT, "all": TUNING + HELD_OUT}[args.set]
     seeds = seeds[:1] if args.quick else seeds

@@ -54,13 +54,20 @@ def boosters(model) -> list:
     if isinstance(model, FaciesMixture):
         return boosters(model.classifier_)
     if isinstance(model, Blend):
-        return [b for m, w in zip(model.members_, model.weights_, strict=True) if w > 0 for b in boosters(m)]
+        return [
+            b
+            for m, w in zip(model.members_, model.weights_, strict=True)
+            if w > 0
+            for b in boosters(m)
+        ]
     return []
 
 
 def bare_predict(bundle, grid) -> tuple[float, int]:
     """Seconds for the bundle's boosters to predict every valid node, and the number of nodes."""
-    matrix, valid = feature_matrix(build_features(grid, bundle.feature_spec), bundle.card["features"]["names"])
+    matrix, valid = feature_matrix(
+        build_features(grid, bundle.feature_spec), bundle.card["features"]["names"]
+    )
     names = bundle.card["features"]["names"]
     total = 0.0
     for model in bundle.models.values():
@@ -81,8 +88,16 @@ def main() -> None:
     with tempfile.TemporaryDirectory() as tmp:
         tmp = Path(tmp)
         for size in args.sizes:
-            spec = FieldSpec(seed=41, nx=size, ny=size, spacing=10.0, n_bodies=12, body_width=150.0,
-                             n_preferential=160, regular_pattern=(8, 5))
+            spec = FieldSpec(
+                seed=41,
+                nx=size,
+                ny=size,
+                spacing=10.0,
+                n_bodies=12,
+                body_width=150.0,
+                n_preferential=160,
+                regular_pattern=(8, 5),
+            )
             seismic, _, wells = make_field(spec)
             grid_path = write_netcdf(seismic, tmp / f"grid{size}.nc")
             t0 = time.perf_counter()
@@ -92,19 +107,27 @@ def main() -> None:
             chosen = ", ".join(f"{t}: {m.chosen}" for t, m in trained.targets.items())
             bare, nodes = bare_predict(load_bundle(folder), seismic)
             del seismic, trained
-            print(f"{size} x {size} ({nodes / 1e6:.1f}M nodes), {len(wells)} wells; trained in {train_s:.0f} s "
-                  f"({chosen}); bare predict of the bundle's LightGBM boosters {bare:.1f} s")
+            print(
+                f"{size} x {size} ({nodes / 1e6:.1f}M nodes), {len(wells)} wells; trained in"
+                f" {train_s:.0f} s ({chosen}); bare predict of the bundle's LightGBM boosters"
+                f" {bare:.1f} s"
+            )
             for fmt in args.outputs:
                 out = tmp / f"maps{size}.{fmt}"
-                proc = subprocess.run([sys.executable, "-c", CHILD, str(folder), str(grid_path), str(out)],
-                                      capture_output=True, text=True)
+                proc = subprocess.run(
+                    [sys.executable, "-c", CHILD, str(folder), str(grid_path), str(out)],
+                    capture_output=True,
+                    text=True,
+                )
                 if proc.returncode:
                     print(proc.stderr[-2000:])
                     continue
                 result = json.loads(proc.stdout.strip().splitlines()[-1])
-                print(f"  predict --out maps.{fmt}: {result['seconds']:.1f} s end to end (read, features, every "
-                      f"target with intervals and applicability, write), ratio to bare {result['seconds'] / bare:.2f}; "
-                      f"peak memory {result['peak_mb']:.0f} MB")
+                print(
+                    f"  predict --out maps.{fmt}: {result['seconds']:.1f} s end to end (read,"
+                    " features, every target with intervals and applicability, write), ratio to"
+                    f" bare {result['seconds'] / bare:.2f}; peak memory {result['peak_mb']:.0f} MB"
+                )
             sys.stdout.flush()
 
 

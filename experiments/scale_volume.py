@@ -47,23 +47,41 @@ print(json.dumps({"seconds": time.perf_counter() - t0, "peak_mb": hwm / 1024}))
 
 def main() -> None:
     parser = argparse.ArgumentParser()
-    parser.add_argument("--size", type=int, nargs=3, default=[400, 400, 300], metavar=("INLINES", "CROSSLINES",
-                                                                                     "SAMPLES"))
+    parser.add_argument(
+        "--size",
+        type=int,
+        nargs=3,
+        default=[400, 400, 300],
+        metavar=("INLINES", "CROSSLINES", "SAMPLES"),
+    )
     parser.add_argument("--workers", type=int, nargs="+", default=[0])
-    parser.add_argument("--lightgbm-only", action="store_true", help="the LightGBM-only bundle measured before")
+    parser.add_argument(
+        "--lightgbm-only", action="store_true", help="the LightGBM-only bundle measured before"
+    )
     args = parser.parse_args()
     warnings.simplefilter("ignore", PredictorWarning)
     ni, nj, nk = args.size
     with tempfile.TemporaryDirectory() as tmp:
         tmp = Path(tmp)
         t0 = time.perf_counter()
-        seismic, _, wells = make_volume_field(VolumeSpec(seed=3, n_inlines=ni, n_crosslines=nj, n_samples=nk,
-                                                         n_preferential=40, regular_pattern=(4, 4)))
+        seismic, _, wells = make_volume_field(
+            VolumeSpec(
+                seed=3,
+                n_inlines=ni,
+                n_crosslines=nj,
+                n_samples=nk,
+                n_preferential=40,
+                regular_pattern=(4, 4),
+            )
+        )
         seismic = check_volume(seismic)
         wells = wells.rename(columns={"depth": "z"})
         volume_path = write_zarr(seismic, tmp / "volume.zarr")
-        print(f"volume {ni} x {nj} x {nk} ({ni * nj * nk / 1e6:.0f}M samples), {wells.well_id.nunique()} wells, "
-              f"{len(wells)} samples; made in {time.perf_counter() - t0:.0f} s")
+        print(
+            f"volume {ni} x {nj} x {nk} ({ni * nj * nk / 1e6:.0f}M samples),"
+            f" {wells.well_id.nunique()} wells, {len(wells)} samples; made in"
+            f" {time.perf_counter() - t0:.0f} s"
+        )
         if args.lightgbm_only:
             spec = FeatureSpec(["impedance"], context_radii=[50.0], vertical_radii=[12.0])
             options = TrainOptions(targets=["porosity"], features=spec, candidates=["lightgbm"])
@@ -73,21 +91,37 @@ def main() -> None:
         trained = train(wells, seismic, options)
         bundle = save_bundle(trained, tmp / "bundle")
         names = trained.feature_names
-        print(f"trained in {time.perf_counter() - t0:.0f} s: {trained.targets['porosity'].chosen}, "
-              f"{len(names)} features")
+        print(
+            f"trained in {time.perf_counter() - t0:.0f} s: {trained.targets['porosity'].chosen}, "
+            f"{len(names)} features"
+        )
         bare, _ = bare_predict(load_bundle(bundle), seismic)
         del seismic
         print(f"bare predict of the bundle's LightGBM boosters: {bare:.1f} s")
         for workers in args.workers:
             out = tmp / f"predicted{workers}.zarr"
-            proc = subprocess.run([sys.executable, "-c", CHILD, str(bundle), str(volume_path), str(out),
-                                   str(workers)], capture_output=True, text=True)
+            proc = subprocess.run(
+                [
+                    sys.executable,
+                    "-c",
+                    CHILD,
+                    str(bundle),
+                    str(volume_path),
+                    str(out),
+                    str(workers),
+                ],
+                capture_output=True,
+                text=True,
+            )
             if proc.returncode:
                 sys.exit(f"tiled predict failed:\n{proc.stderr[-3000:]}")
             result = json.loads(proc.stdout.strip().splitlines()[-1])
             how = f"{workers} Dask workers" if workers else "2 local threads"
-            print(f"{how}: tiled predict (read, features, q10/q50/q90, applicability, write) {result['seconds']:.1f} s, "
-                  f"ratio to bare {result['seconds'] / bare:.2f}; peak memory {result['peak_mb']:.0f} MB")
+            print(
+                f"{how}: tiled predict (read, features, q10/q50/q90, applicability, write)"
+                f" {result['seconds']:.1f} s, ratio to bare {result['seconds'] / bare:.2f}; peak"
+                f" memory {result['peak_mb']:.0f} MB"
+            )
 
 
 if __name__ == "__main__":

@@ -35,7 +35,9 @@ def main() -> None:
     parser.add_argument("--size", type=int, default=1000)
     args = parser.parse_args()
     warnings.simplefilter("ignore", PredictorWarning)
-    spec = FieldSpec(seed=31, nx=args.size, ny=args.size, spacing=10.0, n_bodies=10, body_width=150.0)
+    spec = FieldSpec(
+        seed=31, nx=args.size, ny=args.size, spacing=10.0, n_bodies=10, body_width=150.0
+    )
     seismic, _, wells = make_field(spec)
     trained = train(wells, seismic, TrainOptions(targets=["porosity"]))
     with tempfile.TemporaryDirectory() as tmp:
@@ -46,14 +48,23 @@ def main() -> None:
         bundle = load_bundle(folder)
         shap_s = timed(lambda: contribution_maps(bundle, seismic, "porosity"))
     print(f"{args.size} x {args.size} map, chosen model {trained.targets['porosity'].chosen}")
-    print(f"predict_maps {predict_s:.1f} s; contribution_maps {shap_s:.1f} s; ratio {shap_s / predict_s:.2f}")
+    print(
+        f"predict_maps {predict_s:.1f} s; contribution_maps {shap_s:.1f} s; ratio"
+        f" {shap_s / predict_s:.2f}"
+    )
     matrix, _ = feature_matrix(build_features(seismic, trained.feature_spec), trained.feature_names)
     y = np.random.default_rng(0).normal(size=len(wells))
-    booster = lgb.train({"objective": "regression", "verbose": -1, "num_leaves": 7, "min_data_in_leaf": 5},
-                        lgb.Dataset(matrix[:len(wells)], y), 200)
+    booster = lgb.train(
+        {"objective": "regression", "verbose": -1, "num_leaves": 7, "min_data_in_leaf": 5},
+        lgb.Dataset(matrix[: len(wells)], y),
+        200,
+    )
     p = timed(lambda: booster.predict(matrix))
     c = timed(lambda: booster.predict(matrix, pred_contrib=True))
-    print(f"bare LightGBM on the same matrix: predict {p:.2f} s, pred_contrib {c:.2f} s, ratio {c / p:.2f}")
+    print(
+        f"bare LightGBM on the same matrix: predict {p:.2f} s, pred_contrib {c:.2f} s, ratio"
+        f" {c / p:.2f}"
+    )
 
 
 if __name__ == "__main__":

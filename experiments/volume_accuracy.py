@@ -31,8 +31,12 @@ from predictor.volume import check_volume
 
 GEOMETRIES = {
     "layered": {"lateral_correlation": 500.0, "vertical_correlation": 10.0, "rotation": 30.0},
-    "patchy": {"lateral_correlation": 200.0, "vertical_correlation": 20.0, "rotation": -15.0,
-               "deviated_share": 0.6},
+    "patchy": {
+        "lateral_correlation": 200.0,
+        "vertical_correlation": 20.0,
+        "rotation": -15.0,
+        "deviated_share": 0.6,
+    },
 }
 
 
@@ -49,11 +53,22 @@ def one(seed: int, geometry: str, default_features: bool = False) -> dict:
     wells = wells.rename(columns={"depth": "z"})
     spec = FeatureSpec(["impedance"], context_radii=[100.0], vertical_radii=[12.0])
     t0 = time.perf_counter()
-    trained = train(wells, volume, TrainOptions(targets=["porosity", "facies", "permeability"],
-                                                features=None if default_features else spec))
+    trained = train(
+        wells,
+        volume,
+        TrainOptions(
+            targets=["porosity", "facies", "permeability"],
+            features=None if default_features else spec,
+        ),
+    )
     spec = trained.feature_spec
-    row = {"seed": seed, "geometry": geometry, "wells": wells.well_id.nunique(), "samples": len(wells),
-           "train_s": time.perf_counter() - t0}
+    row = {
+        "seed": seed,
+        "geometry": geometry,
+        "wells": wells.well_id.nunique(),
+        "samples": len(wells),
+        "train_s": time.perf_counter() - t0,
+    }
     names = trained.feature_names
     phi = trained.targets["porosity"]
     pred, valid, X = volume_values(phi.model, volume, spec, names)
@@ -72,17 +87,24 @@ def one(seed: int, geometry: str, default_features: bool = False) -> dict:
     fac = trained.targets["facies"]
     truth_labels = np.array(FACIES)[truth.facies.to_numpy().ravel()[valid]]
     proba, *_ = volume_values(fac.model, volume, spec, names)
-    row["facies_bacc"] = balanced_accuracy_score(truth_labels, np.array(fac.classes)[proba.argmax(1)])
+    row["facies_bacc"] = balanced_accuracy_score(
+        truth_labels, np.array(fac.classes)[proba.argmax(1)]
+    )
     lproba, *_ = volume_values(fac.refit("logistic"), volume, spec, names)
-    row["facies_bacc_logistic"] = balanced_accuracy_score(truth_labels, np.array(fac.classes)[lproba.argmax(1)])
+    row["facies_bacc_logistic"] = balanced_accuracy_score(
+        truth_labels, np.array(fac.classes)[lproba.argmax(1)]
+    )
     return row
 
 
 def main() -> None:
     parser = argparse.ArgumentParser()
     parser.add_argument("--quick", action="store_true", help="two fields instead of eight")
-    parser.add_argument("--default-features", action="store_true",
-                        help="train as the plain command does (no feature flags) instead of the fixed set")
+    parser.add_argument(
+        "--default-features",
+        action="store_true",
+        help="train as the plain command does (no feature flags) instead of the fixed set",
+    )
     args = parser.parse_args()
     warnings.simplefilter("ignore", PredictorWarning)
     seeds = [1] if args.quick else [1, 2, 3, 4]
@@ -91,15 +113,25 @@ def main() -> None:
     pd.set_option("display.width", 200)
     print(table.round(4).to_string(index=False))
     cv_vs_truth = table.rmse_cv / table.rmse - 1
-    print(f"\n{len(table)} fields: porosity RMSE over the volume / linear baseline {np.mean(table.rmse / table.rmse_linear):.3f} "
-          f"(worst {np.max(table.rmse / table.rmse_linear):.3f}); / declustered mean everywhere "
-          f"{np.mean(table.rmse / table.rmse_declustered_mean):.3f}")
-    print(f"CV RMSE vs true volume RMSE: mean {cv_vs_truth.mean():+.1%} ({cv_vs_truth.min():+.1%} to "
-          f"{cv_vs_truth.max():+.1%}); random CV vs truth {np.mean(table.rmse_cv_random / table.rmse - 1):+.1%}")
-    print(f"q10-q90 coverage of the true porosity: mean {table.coverage.mean():.3f} "
-          f"({table.coverage.min():.3f} to {table.coverage.max():.3f}; nominal 0.80)")
-    print(f"facies balanced accuracy over the volume: chosen {table.facies_bacc.mean():.3f}, logistic "
-          f"{table.facies_bacc_logistic.mean():.3f}")
+    print(
+        f"\n{len(table)} fields: porosity RMSE over the volume / linear baseline"
+        f" {np.mean(table.rmse / table.rmse_linear):.3f} (worst"
+        f" {np.max(table.rmse / table.rmse_linear):.3f}); / declustered mean everywhere"
+        f" {np.mean(table.rmse / table.rmse_declustered_mean):.3f}"
+    )
+    print(
+        f"CV RMSE vs true volume RMSE: mean {cv_vs_truth.mean():+.1%} ({cv_vs_truth.min():+.1%} to"
+        f" {cv_vs_truth.max():+.1%}); random CV vs truth"
+        f" {np.mean(table.rmse_cv_random / table.rmse - 1):+.1%}"
+    )
+    print(
+        f"q10-q90 coverage of the true porosity: mean {table.coverage.mean():.3f} "
+        f"({table.coverage.min():.3f} to {table.coverage.max():.3f}; nominal 0.80)"
+    )
+    print(
+        f"facies balanced accuracy over the volume: chosen {table.facies_bacc.mean():.3f}, logistic"
+        f" {table.facies_bacc_logistic.mean():.3f}"
+    )
 
 
 if __name__ == "__main__":

@@ -18,7 +18,28 @@ from .report import build_report  # noqa: E402
 from .training import TargetModel, TrainedModels, TrainOptions, train  # noqa: E402
 from .volume import read_volume, sample_volume  # noqa: E402
 
-__all__ = ["Bundle", "FeatureSpec", "IntervalCalibration", "TargetModel", "TrainOptions", "TrainedModels",
-           "build_report", "check_data", "check_files", "explain_bundle", "load_bundle", "predict_maps",
-           "predict_to_zarr", "read_grid", "read_seismic", "read_volume", "read_wells", "sample_at",
-           "sample_volume", "save_bundle", "train", "write_maps", "__version__"]
+__all__ = [
+    "Bundle",
+    "FeatureSpec",
+    "IntervalCalibration",
+    "TargetModel",
+    "TrainOptions",
+    "TrainedModels",
+    "build_report",
+    "check_data",
+    "check_files",
+    "explain_bundle",
+    "load_bundle",
+    "predict_maps",
+    "predict_to_zarr",
+    "read_grid",
+    "read_seismic",
+    "read_volume",
+    "read_wells",
+    "sample_at",
+    "sample_volume",
+    "save_bundle",
+    "train",
+    "write_maps",
+    "__version__",
+]

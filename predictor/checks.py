@@ -47,20 +47,28 @@ class DataCheck:
     def to_dict(self) -> dict:
         out = self.qc.to_dict()
         out["declustering"] = self.declustering.summary()
-        out["declustering"]["weights"] = dict(zip(self.wells["well_id"], self.declustering.weights, strict=True))
-        out["nearest_node_weights"] = dict(zip(self.wells["well_id"], self.nearest_node, strict=True))
+        out["declustering"]["weights"] = dict(
+            zip(self.wells["well_id"], self.declustering.weights, strict=True)
+        )
+        out["nearest_node_weights"] = dict(
+            zip(self.wells["well_id"], self.nearest_node, strict=True)
+        )
         out["statistics"] = self.statistics
         return out
 
 
-def decluster(wells: pd.DataFrame, grid: xr.Dataset, variable: str | None = None) -> tuple[Declustering, np.ndarray]:
+def decluster(
+    wells: pd.DataFrame, grid: xr.Dataset, variable: str | None = None
+) -> tuple[Declustering, np.ndarray]:
     """Cell declustering on ``variable`` (porosity by default) and nearest-node weights on the grid.
 
     With a volume, ``wells`` holds one row per well (its mean position and values) and the
     nearest-node weights share out the survey's live traces.
     """
     numeric = numeric_properties(wells)
-    variable = variable or ("porosity" if "porosity" in wells else (numeric[0] if numeric else None))
+    variable = variable or (
+        "porosity" if "porosity" in wells else (numeric[0] if numeric else None)
+    )
     values = wells[variable].to_numpy(dtype=float) if variable else np.ones(len(wells))
     cell = cell_declustering(wells["x"], wells["y"], values, variable=variable)
     if is_volume(grid):  # the survey's live traces stand in for the map's nodes
@@ -72,7 +80,9 @@ def decluster(wells: pd.DataFrame, grid: xr.Dataset, variable: str | None = None
     return cell, nearest
 
 
-def decluster_samples(wells: pd.DataFrame, volume: xr.Dataset) -> tuple[Declustering, np.ndarray, np.ndarray]:
+def decluster_samples(
+    wells: pd.DataFrame, volume: xr.Dataset
+) -> tuple[Declustering, np.ndarray, np.ndarray]:
     """Lateral declustering of wells sampled along their paths: (cell declustering of the wells,
     nearest-node weights of the wells, the well of each sample).  A sample carries its well's
     weight, so a well counts by the thickness it samples."""
@@ -95,7 +105,9 @@ def check_data(wells: pd.DataFrame, grid: xr.Dataset, tolerance: float = 1.0) ->
     return DataCheck(wells, grid, qc, cell, nearest, stats)
 
 
-def write_check(check: DataCheck, json_path: str | Path | None = None, figures: str | Path | None = None) -> list[Path]:
+def write_check(
+    check: DataCheck, json_path: str | Path | None = None, figures: str | Path | None = None
+) -> list[Path]:
     """Write the JSON record and the QC figures; returns the paths written."""
     from . import plots  # matplotlib loads when a figure is drawn, not on import
 
@@ -107,32 +119,68 @@ def write_check(check: DataCheck, json_path: str | Path | None = None, figures: 
         folder.mkdir(parents=True, exist_ok=True)
         wells, grid = check.wells, check.grid
         attribute = next(iter(grid.data_vars))
-        props = [c for c in ("facies", "porosity", "permeability") if c in wells] or numeric_properties(wells)[:3]
+        props = [
+            c for c in ("facies", "porosity", "permeability") if c in wells
+        ] or numeric_properties(wells)[:3]
         if is_volume(grid):  # the map view at the wells' middle z, in survey line numbers
             z = view_depth(grid, wells)
-            written.append(plots.location_maps(wells_in_view(wells, grid, z), map_view(grid, z), attribute, props,
-                                               folder / "wells_on_map.png"))
+            written.append(
+                plots.location_maps(
+                    wells_in_view(wells, grid, z),
+                    map_view(grid, z),
+                    attribute,
+                    props,
+                    folder / "wells_on_map.png",
+                )
+            )
         else:
-            written.append(plots.location_maps(wells, grid, attribute, props, folder / "wells_on_map.png"))
+            written.append(
+                plots.location_maps(wells, grid, attribute, props, folder / "wells_on_map.png")
+            )
         for var, bias in check.qc.bias.items():
             at_wells = _at_wells(wells, grid, var)
-            written.append(plots.bias_figure(at_wells, grid[var].to_numpy().ravel(), var, bias["verdict"],
-                                             folder / f"bias_{var}.png"))
+            written.append(
+                plots.bias_figure(
+                    at_wells,
+                    grid[var].to_numpy().ravel(),
+                    var,
+                    bias["verdict"],
+                    folder / f"bias_{var}.png",
+                )
+            )
         numeric = [c for c in ("porosity", "permeability") if c in wells] + [attribute]
         if "facies" in wells:
             table = wells.assign(**{attribute: _at_wells(wells, grid, attribute)})
-            written.append(plots.facies_distributions(table, numeric, folder / "facies_distributions.png"))
-        measured = [c for c in ("porosity", "permeability") if c in wells and wells[c].notna().sum() >= 6]
+            written.append(
+                plots.facies_distributions(table, numeric, folder / "facies_distributions.png")
+            )
+        measured = [
+            c for c in ("porosity", "permeability") if c in wells and wells[c].notna().sum() >= 6
+        ]
         if measured:
-            written.append(plots.crossplot(wells, attribute, _at_wells(wells, grid, attribute), measured,
-                                           folder / "crossplot.png"))
-            if not is_volume(grid):  # one value per well; in a volume the lateral semivariogram needs well means
+            written.append(
+                plots.crossplot(
+                    wells,
+                    attribute,
+                    _at_wells(wells, grid, attribute),
+                    measured,
+                    folder / "crossplot.png",
+                )
+            )
+            if not is_volume(
+                grid
+            ):  # one value per well; in a volume the lateral semivariogram needs well means
                 written.append(plots.semivariograms(wells, measured, folder / "semivariograms.png"))
-        written.append(plots.declustering_figure(check.declustering, folder / "declustering_curve.png"))
+        written.append(
+            plots.declustering_figure(check.declustering, folder / "declustering_curve.png")
+        )
         if check.declustering.variable:
             var = check.declustering.variable
-            written.append(plots.weighted_histograms(wells[var], check.declustering.weights, var,
-                                                     folder / f"declustered_{var}.png"))
+            written.append(
+                plots.weighted_histograms(
+                    wells[var], check.declustering.weights, var, folder / f"declustered_{var}.png"
+                )
+            )
     return written
 
 
@@ -142,24 +190,40 @@ def _at_wells(wells: pd.DataFrame, grid: xr.Dataset, var: str) -> np.ndarray:
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", PredictorWarning)
         if is_volume(grid):
-            sampled, kept = sample_volume(grid[[var]], wells["x"], wells["y"], wells["z"], drop_outside=True)
+            sampled, kept = sample_volume(
+                grid[[var]], wells["x"], wells["y"], wells["z"], drop_outside=True
+            )
         else:
             sampled, kept = sample_at(grid[[var]], wells["x"], wells["y"], drop_outside=True)
     out[kept] = sampled[var].to_numpy()
     return out
 
 
-def check_files(wells_path, grid_path, json_path=None, figures=None, porosity_percent: bool = False,
-                x: str | None = None, y: str | None = None, tolerance: float = 1.0, z: str | None = None,
-                z_domain: str | None = None, segy_name: str | None = None,
-                roles: dict[str, str] | None = None, kinds: dict[str, str] | None = None) -> DataCheck:
+def check_files(
+    wells_path,
+    grid_path,
+    json_path=None,
+    figures=None,
+    porosity_percent: bool = False,
+    x: str | None = None,
+    y: str | None = None,
+    tolerance: float = 1.0,
+    z: str | None = None,
+    z_domain: str | None = None,
+    segy_name: str | None = None,
+    roles: dict[str, str] | None = None,
+    kinds: dict[str, str] | None = None,
+) -> DataCheck:
     """Read the files, run :func:`check_data` and write the outputs (``roles``: see
-    :func:`predictor.io.tables.read_wells`; ``kinds``: :func:`predictor.grid.set_attribute_kinds`)."""
+    :func:`predictor.io.tables.read_wells`; ``kinds``: :func:`predictor.grid.set_attribute_kinds`).
+    """
     wells = read_wells(wells_path, x=x, y=y, z=z, porosity_percent=porosity_percent, roles=roles)
     grid = read_seismic(grid_path, z_domain=z_domain, name=segy_name, kinds=kinds)
     if is_volume(grid) and "z" not in wells:
-        raise InputError(f"{wells_path}: a volume needs wells as samples with z (depth or two-way time): add a z, "
-                         "depth or twt column, one row per sample")
+        raise InputError(
+            f"{wells_path}: a volume needs wells as samples with z (depth or two-way time): add a"
+            " z, depth or twt column, one row per sample"
+        )
     check = check_data(wells, grid, tolerance)
     write_check(check, json_path, figures)
     return check

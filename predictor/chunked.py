@@ -42,7 +42,11 @@ BYTES_PER_NODE = 8 * 64  # generous: features, member predictions and outputs pe
 
 def tiles(ny: int, nx: int, size: int) -> list[tuple[int, int, int, int]]:
     """(y0, y1, x0, x1) of every tile, row by row."""
-    return [(y0, min(y0 + size, ny), x0, min(x0 + size, nx)) for y0 in range(0, ny, size) for x0 in range(0, nx, size)]
+    return [
+        (y0, min(y0 + size, ny), x0, min(x0 + size, nx))
+        for y0 in range(0, ny, size)
+        for x0 in range(0, nx, size)
+    ]
 
 
 def lateral_axes(grid: xr.Dataset) -> tuple[str, str]:
@@ -71,7 +75,9 @@ def _wide(grid: xr.Dataset, spec) -> list[float]:
 
 @functools.lru_cache(maxsize=4)
 def _presmoothed(path: str) -> xr.Dataset:
-    return xr.open_zarr(path, consolidated=False, zarr_format=2)  # once per process, read tile by tile
+    return xr.open_zarr(
+        path, consolidated=False, zarr_format=2
+    )  # once per process, read tile by tile
 
 
 @functools.lru_cache(maxsize=4)
@@ -79,8 +85,14 @@ def _bundle(folder: str):
     return load_bundle(folder)  # once per process: a Dask worker keeps it between tasks
 
 
-def predict_tile(folder: str, grid_path: str, tile: tuple[int, int, int, int], z_domain: str | None = None,
-                 exceed: dict | None = None, smoothed: str | None = None) -> tuple[tuple, xr.Dataset, bool]:
+def predict_tile(
+    folder: str,
+    grid_path: str,
+    tile: tuple[int, int, int, int],
+    z_domain: str | None = None,
+    exceed: dict | None = None,
+    smoothed: str | None = None,
+) -> tuple[tuple, xr.Dataset, bool]:
     """Predict one tile (with its halo): its interior, and whether some of it lies outside the
     feature range seen at the wells.  ``smoothed``: a store of the map's wide context radii,
     smoothed beforehand over the whole map (:func:`predictor.features.smooth_store`)."""
@@ -95,18 +107,32 @@ def predict_tile(folder: str, grid_path: str, tile: tuple[int, int, int, int], z
     xa, xb = max(0, x0 - hx), min(grid.sizes[ax], x1 + hx)
     part = grid.isel({ay: slice(ya, yb), ax: slice(xa, xb)}).load()
     part.attrs = dict(grid.attrs)
-    wide = _presmoothed(smoothed).isel({ay: slice(ya, yb), ax: slice(xa, xb)}).load() if smoothed else None
+    wide = (
+        _presmoothed(smoothed).isel({ay: slice(ya, yb), ax: slice(xa, xb)}).load()
+        if smoothed
+        else None
+    )
     interior = {ay: slice(y0 - ya, y0 - ya + (y1 - y0)), ax: slice(x0 - xa, x0 - xa + (x1 - x0))}
-    try:  # no warnings from threads (not thread-safe); one thread per tile: tiles already run side by side
-        inner = predict_maps(bundle, part, warn=False, interior=interior, exceed=exceed, threads=1, smoothed=wide)
+    # no warnings from threads (not thread-safe); one thread per tile: tiles already run side by
+    # side
+    try:
+        inner = predict_maps(
+            bundle, part, warn=False, interior=interior, exceed=exceed, threads=1, smoothed=wide
+        )
     except NoValidNodes:  # a tile in a hole of the survey: its region keeps the store's fill values
         return tile, None, False
     return tile, inner, inner.attrs["extrapolated_share"] > 0  # reported once, at the end
 
 
-def write_tile(folder: str, grid_path: str, tile: tuple[int, int, int, int], store: str,
-               z_domain: str | None = None, exceed: dict | None = None,
-               smoothed: str | None = None) -> tuple[tuple, bool, bool]:
+def write_tile(
+    folder: str,
+    grid_path: str,
+    tile: tuple[int, int, int, int],
+    store: str,
+    z_domain: str | None = None,
+    exceed: dict | None = None,
+    smoothed: str | None = None,
+) -> tuple[tuple, bool, bool]:
     """Predict one tile and write its interior into its own region of the Zarr ``store``, on the
     thread or Dask worker that predicted it; only (tile, written, extrapolated) travels back, so
     the client never holds map data.  Tiles match the store's chunks: writers never overlap."""
@@ -139,15 +165,27 @@ def _opened(grid_path: str, z_domain: str | None, mtime: int, inode: int):
 
 
 def default_tile(grid: xr.Dataset) -> int:
-    """Tile side: 512 nodes for maps; for volumes about a million samples per tile (whole traces)."""
+    """Tile side: 512 nodes for maps; for volumes about a million samples per tile (whole
+    traces)."""
     depth = grid.sizes.get("z", 1)
     return DEFAULT_TILE if depth == 1 else max(16, int(np.sqrt(SAMPLES_PER_TILE / depth)))
 
 
-def predict_to_zarr(bundle_dir, grid_path, out, tile: int | None = None, threads: int | None = None,
-                    workers: int | None = None, scheduler: str | None = None, overwrite: bool = False,
-                    memory_limit: float | None = None, z_domain: str | None = None,
-                    segy_name: str | None = None, exceed: dict | None = None, crs: str | None = None) -> Path:
+def predict_to_zarr(
+    bundle_dir,
+    grid_path,
+    out,
+    tile: int | None = None,
+    threads: int | None = None,
+    workers: int | None = None,
+    scheduler: str | None = None,
+    overwrite: bool = False,
+    memory_limit: float | None = None,
+    z_domain: str | None = None,
+    segy_name: str | None = None,
+    exceed: dict | None = None,
+    crs: str | None = None,
+) -> Path:
     """Predict every target of the bundle over a (possibly larger-than-memory) grid or volume
     into ``out`` (.zarr).  Volume tiles are ``tile`` x ``tile`` traces, each with all its samples.
 
@@ -168,8 +206,20 @@ def predict_to_zarr(bundle_dir, grid_path, out, tile: int | None = None, threads
         with tempfile.TemporaryDirectory(prefix=f".{out.name}.input.", dir=out.parent) as scratch:
             copy = write_zarr(volume, Path(scratch) / "input.zarr")
             del volume
-            return predict_to_zarr(bundle_dir, copy, out, tile, threads, workers, scheduler, overwrite,
-                                   memory_limit, z_domain, exceed=exceed, crs=crs)
+            return predict_to_zarr(
+                bundle_dir,
+                copy,
+                out,
+                tile,
+                threads,
+                workers,
+                scheduler,
+                overwrite,
+                memory_limit,
+                z_domain,
+                exceed=exceed,
+                crs=crs,
+            )
     folder, grid_path = str(Path(bundle_dir).resolve()), str(Path(grid_path).resolve())
     bundle = _bundle(folder)
     grid = _open(grid_path, z_domain)
@@ -191,36 +241,59 @@ def predict_to_zarr(bundle_dir, grid_path, out, tile: int | None = None, threads
     limit = memory_limit or _available_memory()
     if limit and need * in_flight > limit:
         what = f"{tile} x {tile} traces of {depth} samples" if depth > 1 else f"{tile} nodes"
-        raise InputError(f"{in_flight} tiles of {what} (plus a halo of {hy} x {hx}) in flight need about "
-                         f"{need * in_flight / 1e9:.1f} GB, more than the {limit / 1e9:.1f} GB available; use a "
-                         "smaller --tile" + (" or fewer --threads/--workers" if in_flight > 1 else ""))
+        raise InputError(
+            f"{in_flight} tiles of {what} (plus a halo of {hy} x {hx}) in flight need about "
+            f"{need * in_flight / 1e9:.1f} GB, more than the {limit / 1e9:.1f} GB available; use a "
+            "smaller --tile" + (" or fewer --threads/--workers" if in_flight > 1 else "")
+        )
     ny, nx = grid.sizes[ay], grid.sizes[ax]
     all_tiles = tiles(ny, nx, tile)
-    with atomic_folder(out, overwrite=overwrite) as tmp, tempfile.TemporaryDirectory(
-            prefix=f".{out.name}.smoothed.", dir=out.parent) as scratch:
+    with (
+        atomic_folder(out, overwrite=overwrite) as tmp,
+        tempfile.TemporaryDirectory(prefix=f".{out.name}.smoothed.", dir=out.parent) as scratch,
+    ):
         smoothed = None
         if wide:  # wide context radii: smoothed once over the whole grid, tiles read their part
             from .features import smooth_store
 
             smooth_store(grid, bundle.feature_spec, wide, Path(scratch) / "smoothed.zarr")
             smoothed = str(Path(scratch) / "smoothed.zarr")
-        layout = _template(_layout(folder, grid_path, all_tiles, ny, nx, z_domain, exceed, smoothed), grid, tile)
+        layout = _template(
+            _layout(folder, grid_path, all_tiles, ny, nx, z_domain, exceed, smoothed), grid, tile
+        )
         crs = crs or grid.attrs.get("crs_wkt")
         layout = cf(layout, crs_to_wkt(crs) if crs else None)
         if "affine" in layout.attrs:  # Zarr attributes are JSON: a plain list
             layout.attrs["affine"] = [float(v) for v in layout.attrs["affine"]]
         layout.to_zarr(tmp, compute=False, mode="w", zarr_format=2)
         extrapolated = 0
-        done = _run(folder, grid_path, all_tiles, str(tmp), threads, workers, scheduler, z_domain, exceed, smoothed)
+        done = _run(
+            folder,
+            grid_path,
+            all_tiles,
+            str(tmp),
+            threads,
+            workers,
+            scheduler,
+            z_domain,
+            exceed,
+            smoothed,
+        )
         for _, _, outside in progress(done, "tiles", total=len(all_tiles)):
             extrapolated += outside
     if extrapolated:
-        warnings.warn(f"{extrapolated} of {len(all_tiles)} tiles hold nodes with feature values outside the range "
-                      "seen at the wells; predictions there are extrapolations", PredictorWarning, stacklevel=2)
+        warnings.warn(
+            f"{extrapolated} of {len(all_tiles)} tiles hold nodes with feature values outside the"
+            " range seen at the wells; predictions there are extrapolations",
+            PredictorWarning,
+            stacklevel=2,
+        )
     return out
 
 
-def _layout(folder, grid_path, all_tiles, ny, nx, z_domain, exceed=None, smoothed=None) -> xr.Dataset:
+def _layout(
+    folder, grid_path, all_tiles, ny, nx, z_domain, exceed=None, smoothed=None
+) -> xr.Dataset:
     """A predicted part that shows the store's layout (variables, dtypes, attributes): a corner
     of a few nodes when it holds data (cheap), else the first tile that does."""
     for part in [(0, min(8, ny), 0, min(8, nx)), *all_tiles]:
@@ -230,20 +303,44 @@ def _layout(folder, grid_path, all_tiles, ny, nx, z_domain, exceed=None, smoothe
     raise InputError(f"{grid_path}: no node has every feature the model needs")
 
 
-def _run(folder, grid_path, all_tiles, store, threads, workers, scheduler, z_domain=None, exceed=None,
-         smoothed=None):
+def _run(
+    folder,
+    grid_path,
+    all_tiles,
+    store,
+    threads,
+    workers,
+    scheduler,
+    z_domain=None,
+    exceed=None,
+    smoothed=None,
+):
     """Predict and write every tile into ``store`` on local threads or a Dask cluster; yield
     each tile's (tile, written, extrapolated) as it finishes."""
     if workers or scheduler:
         from dask.distributed import Client, LocalCluster, as_completed
 
-        cluster = None if scheduler else LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
-                                                      dashboard_address=None)
+        cluster = (
+            None
+            if scheduler
+            else LocalCluster(
+                n_workers=workers, threads_per_worker=1, processes=True, dashboard_address=None
+            )
+        )
         client = Client(scheduler or cluster)
         try:
             n = len(all_tiles)
-            futures = client.map(write_tile, [folder] * n, [grid_path] * n, all_tiles, [store] * n,
-                                 [z_domain] * n, [exceed] * n, [smoothed] * n, pure=False)
+            futures = client.map(
+                write_tile,
+                [folder] * n,
+                [grid_path] * n,
+                all_tiles,
+                [store] * n,
+                [z_domain] * n,
+                [exceed] * n,
+                [smoothed] * n,
+                pure=False,
+            )
             for future in as_completed(futures):
                 yield future.result()
         finally:
@@ -256,7 +353,9 @@ def _run(folder, grid_path, all_tiles, store, threads, workers, scheduler, z_dom
         # a bounded queue of tiles keeps the bookkeeping small however many tiles there are
         pending = deque()
         for t in all_tiles:
-            pending.append(pool.submit(write_tile, folder, grid_path, t, store, z_domain, exceed, smoothed))
+            pending.append(
+                pool.submit(write_tile, folder, grid_path, t, store, z_domain, exceed, smoothed)
+            )
             if len(pending) >= 2 * n:
                 yield pending.popleft().result()
         while pending:
@@ -274,12 +373,18 @@ def _template(first: xr.Dataset, grid: xr.Dataset, tile: int) -> xr.Dataset:
     for var in first.data_vars:
         v = first[var]
         fill = v.attrs.get("_FillValue", np.nan)
-        data[var] = xr.Variable(dims, da.full(shape, fill, dtype=v.dtype, chunks=chunks),
-                                attrs={k: a for k, a in v.attrs.items() if k != "_FillValue"})
+        data[var] = xr.Variable(
+            dims,
+            da.full(shape, fill, dtype=v.dtype, chunks=chunks),
+            attrs={k: a for k, a in v.attrs.items() if k != "_FillValue"},
+        )
         if "_FillValue" in v.attrs:
             data[var].encoding["_FillValue"] = v.attrs["_FillValue"]
-    coords = {c: (grid.coords[c].dims, grid.coords[c].to_numpy()) for c in grid.coords
-              if set(grid.coords[c].dims) <= set(dims)}
+    coords = {
+        c: (grid.coords[c].dims, grid.coords[c].to_numpy())
+        for c in grid.coords
+        if set(grid.coords[c].dims) <= set(dims)
+    }
     out = xr.Dataset(data, coords=coords)
     out.attrs = {k: v for k, v in first.attrs.items() if isinstance(v, str)}
     if "affine" in first.attrs:

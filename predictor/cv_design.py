@@ -78,25 +78,38 @@ class FoldDesign:
         return self.n_splits
 
     def summary(self) -> dict:
-        return {"design": self.name, "w": round(float(self.w), 3), "folds": self.n_splits,
-                "median_cv_distance": round(float(np.median(self.distances)), 1),
-                "description": self.description, **self.details}
+        return {
+            "design": self.name,
+            "w": round(float(self.w), 3),
+            "folds": self.n_splits,
+            "median_cv_distance": round(float(np.median(self.distances)), 1),
+            "description": self.description,
+            **self.details,
+        }
 
 
 def sample_locations(n: int, seed: int = 0, size: int = MAP_SAMPLE) -> np.ndarray:
     """Indices of a seeded sample of ``n`` prediction locations: enough for their distance and
     attribute distributions, small enough to be cheap."""
     if n == 0:
-        raise ModelError("the grid has no valid node to predict (every node lacks an attribute value); check the "
-                         "grid's attribute columns")
-    return np.sort(np.random.default_rng(seed).choice(n, size, replace=False)) if n > size else np.arange(n)
+        raise ModelError(
+            "the grid has no valid node to predict (every node lacks an attribute value); check the"
+            " grid's attribute columns"
+        )
+    return (
+        np.sort(np.random.default_rng(seed).choice(n, size, replace=False))
+        if n > size
+        else np.arange(n)
+    )
 
 
 def map_distances(map_xy: np.ndarray, wells_xy: np.ndarray) -> np.ndarray:
     """Distance from each prediction location to its nearest well."""
     map_xy = np.asarray(map_xy, float)
     if len(map_xy) == 0:
-        raise ModelError("the grid has no valid node to predict; check that the attribute is not all missing")
+        raise ModelError(
+            "the grid has no valid node to predict; check that the attribute is not all missing"
+        )
     return cKDTree(wells_xy).query(map_xy)[0]
 
 
@@ -120,7 +133,9 @@ def _deal(xy: np.ndarray, clusters: np.ndarray, k: int) -> np.ndarray:
     """Folds from clusters: big clusters (>= n/k wells) become folds of their own, the others are
     dealt round-robin in the order of their centroids along the wells' first principal axis."""
     n = len(xy)
-    _, of, sizes = np.unique(clusters, return_inverse=True, return_counts=True)  # of: each well's cluster
+    _, of, sizes = np.unique(
+        clusters, return_inverse=True, return_counts=True
+    )  # of: each well's cluster
     fold_of = np.full(sizes.size, -1)
     big = np.flatnonzero(sizes >= n / k)[:k]
     fold_of[big] = np.arange(big.size)
@@ -128,15 +143,20 @@ def _deal(xy: np.ndarray, clusters: np.ndarray, k: int) -> np.ndarray:
     if rest.size:  # per-cluster sums by bincount: thousands of wells and clusters stay fast
         centred = xy - xy.mean(axis=0)
         axis = np.linalg.svd(centred, full_matrices=False)[2][0]
-        centroids = np.column_stack([np.bincount(of, centred[:, i], sizes.size) for i in (0, 1)]) / sizes[:, None]
+        centroids = (
+            np.column_stack([np.bincount(of, centred[:, i], sizes.size) for i in (0, 1)])
+            / sizes[:, None]
+        )
         order = rest[np.argsort(centroids[rest] @ axis, kind="stable")]
         fold_of[order] = (big.size + np.arange(order.size)) % k
     return fold_of[of]
 
 
-def knndm_folds(xy: np.ndarray, g_map: np.ndarray, k: int, seed: int = 0,
-                n_configs: int = 60) -> tuple[np.ndarray, dict]:
-    """kNNDM fold labels of the wells at ``xy`` (one row per well) for the map distances ``g_map``."""
+def knndm_folds(
+    xy: np.ndarray, g_map: np.ndarray, k: int, seed: int = 0, n_configs: int = 60
+) -> tuple[np.ndarray, dict]:
+    """kNNDM fold labels of the wells at ``xy`` (one row per well) for the map distances
+    ``g_map``."""
     n = len(xy)
     g_ww = cKDTree(xy).query(xy, k=2)[0][:, 1]
     random = KFold(k, shuffle=True, random_state=seed)
@@ -147,10 +167,16 @@ def knndm_folds(xy: np.ndarray, g_map: np.ndarray, k: int, seed: int = 0,
     info = {"ks_p_value_wells_closer": round(p_value, 4)}
     if p_value >= 0.05:
         # kNNDM's first step: random k-fold is the matched design
-        info["configuration"] = "random k-fold (the wells are not closer to each other than the map is to them)"
+        info["configuration"] = (
+            "random k-fold (the wells are not closer to each other than the map is to them)"
+        )
         return random_folds, info
     tree = linkage(xy, method="ward")
-    best = (wasserstein_distance(_cv_distances(xy, random_folds), g_map), random_folds, "random k-fold")
+    best = (
+        wasserstein_distance(_cv_distances(xy, random_folds), g_map),
+        random_folds,
+        "random k-fold",
+    )
     for q in np.unique(np.round(np.geomspace(k, max(k, n - 2), n_configs)).astype(int)):
         folds = _deal(xy, fcluster(tree, q, criterion="maxclust"), k)
         counts = np.bincount(folds, minlength=k)
@@ -163,7 +189,9 @@ def knndm_folds(xy: np.ndarray, g_map: np.ndarray, k: int, seed: int = 0,
     return best[1], info
 
 
-def nndm_splits(xy: np.ndarray, g_map: np.ndarray, min_train: float = 0.5) -> list[tuple[np.ndarray, np.ndarray]]:
+def nndm_splits(
+    xy: np.ndarray, g_map: np.ndarray, min_train: float = 0.5
+) -> list[tuple[np.ndarray, np.ndarray]]:
     """NNDM leave-one-out over the wells at ``xy``: (train, test) index pairs, one per well.
 
     Distances r are scanned upward; while the CV's nearest-training-distance CDF lies above the
@@ -215,26 +243,46 @@ def _unit_distances(heads: np.ndarray, unit_splits) -> np.ndarray:
     return out
 
 
-def design_folds(name: str, heads: np.ndarray, units: np.ndarray, g_map: np.ndarray, n_splits: int,
-                 block_size: float, block_angle: float = 0.0, seed: int = 0) -> FoldDesign:
+def design_folds(
+    name: str,
+    heads: np.ndarray,
+    units: np.ndarray,
+    g_map: np.ndarray,
+    n_splits: int,
+    block_size: float,
+    block_angle: float = 0.0,
+    seed: int = 0,
+) -> FoldDesign:
     """The fold design ``name`` over the rows whose wells are ``units`` (row -> well index)
     and whose wells sit at ``heads`` (one row per well)."""
     n = len(heads)
     if n < n_splits:
-        raise ModelError(f"{n} wells cannot fill {n_splits} CV folds; use fewer folds (--folds) or add wells")
+        raise ModelError(
+            f"{n} wells cannot fill {n_splits} CV folds; use fewer folds (--folds) or add wells"
+        )
     details: dict = {}
     if name == "matched":
         folds, details = knndm_folds(heads, g_map, n_splits, seed)
-        unit_splits = [(np.flatnonzero(folds != k), np.flatnonzero(folds == k)) for k in range(n_splits)]
-        text = f"{n_splits} folds matched to the map's prediction distances (kNNDM): {details['configuration']}"
+        unit_splits = [
+            (np.flatnonzero(folds != k), np.flatnonzero(folds == k)) for k in range(n_splits)
+        ]
+        text = (
+            f"{n_splits} folds matched to the map's prediction distances (kNNDM):"
+            f" {details['configuration']}"
+        )
     elif name == "nndm":
         unit_splits = nndm_splits(heads, g_map)
-        text = "leave-one-well-out with neighbours dropped to match the map's prediction distances (NNDM)"
+        text = (
+            "leave-one-well-out with neighbours dropped to match the map's prediction distances"
+            " (NNDM)"
+        )
     elif name == "random":
         unit_splits = list(KFold(n_splits, shuffle=True, random_state=seed).split(heads))
         text = f"{n_splits}-fold random CV (for contrast: nearby wells are alike)"
     elif name == "blocks":
-        unit_splits = list(BlockKFold(block_size, n_splits, block_angle, coordinates=heads).split(heads))
+        unit_splits = list(
+            BlockKFold(block_size, n_splits, block_angle, coordinates=heads).split(heads)
+        )
         text = f"{n_splits}-fold CV over {block_size:.0f} m blocks"
     elif name == "buffered":
         unit_splits = list(BufferedLeaveOneOut(block_size, coordinates=heads).split(heads))
@@ -253,18 +301,29 @@ CDF_LEVELS = np.linspace(0.0, 1.0, 41)
 def distance_summary(g_map: np.ndarray, designs: dict[str, FoldDesign], chosen: str) -> dict:
     """What the card records: the map's distances, W and the median CV distance per design, and
     quantiles of every distance distribution (for the CDF figure)."""
+
     def quantiles(values):
         return np.round(np.quantile(values, CDF_LEVELS), 1).tolist()
 
-    return {"chosen": chosen, "map_median_distance": round(float(np.median(g_map)), 1),
-            "map_q90_distance": round(float(np.quantile(g_map, 0.9)), 1),
-            "designs": {k: d.summary() for k, d in designs.items()},
-            "cdf": {"levels": np.round(CDF_LEVELS, 3).tolist(), "map": quantiles(g_map),
-                    **{k: quantiles(d.distances) for k, d in designs.items()}}}
+    return {
+        "chosen": chosen,
+        "map_median_distance": round(float(np.median(g_map)), 1),
+        "map_q90_distance": round(float(np.quantile(g_map, 0.9)), 1),
+        "designs": {k: d.summary() for k, d in designs.items()},
+        "cdf": {
+            "levels": np.round(CDF_LEVELS, 3).tolist(),
+            "map": quantiles(g_map),
+            **{k: quantiles(d.distances) for k, d in designs.items()},
+        },
+    }
 
 
-def representative_weights(base: np.ndarray, margins: list[tuple[np.ndarray, np.ndarray]], n_bins: int = 4,
-                           iterations: int = 50) -> tuple[np.ndarray, float]:
+def representative_weights(
+    base: np.ndarray,
+    margins: list[tuple[np.ndarray, np.ndarray]],
+    n_bins: int = 4,
+    iterations: int = 50,
+) -> tuple[np.ndarray, float]:
     """Rake ``base`` weights (iterative proportional fitting) so that, for every margin
     (values at the held-out wells, the same quantity at the map's locations), the weighted
     share of wells in each of the map's quantile bins equals the map's share.

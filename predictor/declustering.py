@@ -41,7 +41,9 @@ def cell_weights(x, y, cell_size: float, n_offsets: int = 16) -> np.ndarray:
         oy = ((k * golden) % 1.0) * cell_size
         ix = np.floor((x - x0 + ox) / cell_size).astype(np.int64)
         iy = np.floor((y - y0 + oy) / cell_size).astype(np.int64)
-        _, cell, counts = np.unique(np.stack([ix, iy]), axis=1, return_inverse=True, return_counts=True)
+        _, cell, counts = np.unique(
+            np.stack([ix, iy]), axis=1, return_inverse=True, return_counts=True
+        )
         cell = cell.ravel()
         w = 1.0 / counts[cell]
         total += w * n / w.sum()
@@ -65,14 +67,19 @@ class Declustering:
     def summary(self) -> dict:
         out = {"method": self.method, "variable": self.variable}
         if self.cell_size is not None:
-            out.update(cell_size=self.cell_size, direction=self.direction,
-                       sizes=[float(s) for s in self.sizes], declustered_mean_by_size=[float(c) for c in self.curve])
+            out.update(
+                cell_size=self.cell_size,
+                direction=self.direction,
+                sizes=[float(s) for s in self.sizes],
+                declustered_mean_by_size=[float(c) for c in self.curve],
+            )
         out.update(naive_mean=self.naive_mean, declustered_mean=self.declustered_mean)
         return out
 
 
 def default_cell_sizes(x, y, n_sizes: int = 24) -> np.ndarray:
-    """Cell sizes from half the typical well spacing up to half the larger side of the well extent."""
+    """Cell sizes from half the typical well spacing up to half the larger side of the well
+    extent."""
     pts = np.column_stack([x, y])
     dist, _ = cKDTree(pts).query(pts, k=2)
     nearest = np.median(dist[:, 1])
@@ -82,8 +89,15 @@ def default_cell_sizes(x, y, n_sizes: int = 24) -> np.ndarray:
     return np.linspace(lo, hi, n_sizes)
 
 
-def cell_declustering(x, y, values, sizes=None, direction: Direction = "auto", n_offsets: int = 16,
-                      variable: str | None = None) -> Declustering:
+def cell_declustering(
+    x,
+    y,
+    values,
+    sizes=None,
+    direction: Direction = "auto",
+    n_offsets: int = 16,
+    variable: str | None = None,
+) -> Declustering:
     """Choose a cell size from the declustered-mean curve and return the weights at that size.
 
     With ``direction="auto"`` the data decide: when most of the curve lies below the naive
@@ -92,7 +106,9 @@ def cell_declustering(x, y, values, sizes=None, direction: Direction = "auto", n
     x, y, values = (np.asarray(a, dtype=float) for a in (x, y, values))
     ok = np.isfinite(values)
     if ok.sum() < 3:
-        raise InputError(f"declustering needs at least 3 wells with a value of {variable or 'the variable'}")
+        raise InputError(
+            f"declustering needs at least 3 wells with a value of {variable or 'the variable'}"
+        )
     xs, ys, vs = x[ok], y[ok], values[ok]
     sizes = default_cell_sizes(xs, ys) if sizes is None else np.asarray(sizes, dtype=float)
     curve = np.array([weighted_mean(vs, cell_weights(xs, ys, s, n_offsets)) for s in sizes])
@@ -103,8 +119,17 @@ def cell_declustering(x, y, values, sizes=None, direction: Direction = "auto", n
     size = float(sizes[pick])
     # every well gets a weight, also those missing this variable, from the same cell size
     weights = cell_weights(x, y, size, n_offsets)
-    return Declustering(method="cell", weights=weights, variable=variable, cell_size=size, direction=direction,
-                        sizes=sizes, curve=curve, naive_mean=naive, declustered_mean=float(curve[pick]))
+    return Declustering(
+        method="cell",
+        weights=weights,
+        variable=variable,
+        cell_size=size,
+        direction=direction,
+        sizes=sizes,
+        curve=curve,
+        naive_mean=naive,
+        declustered_mean=float(curve[pick]),
+    )
 
 
 def nearest_node_weights(x, y, grid_x, grid_y, valid=None) -> np.ndarray:
@@ -124,8 +149,9 @@ def nearest_node_weights(x, y, grid_x, grid_y, valid=None) -> np.ndarray:
     return counts * x.size / counts.sum()
 
 
-def declustered_statistics(wells: pd.DataFrame, weights: np.ndarray, numeric: list[str],
-                           categorical: list[str]) -> dict:
+def declustered_statistics(
+    wells: pd.DataFrame, weights: np.ndarray, numeric: list[str], categorical: list[str]
+) -> dict:
     """Naive and declustered statistics side by side: ``{"naive": {...}, "declustered": {...}}``."""
     naive, declustered = {}, {}
     for col in numeric:

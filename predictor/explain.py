@@ -25,11 +25,18 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from .shapley import KRIGING, permutation_shap  # noqa: F401  (explanation helpers live with the models)
+# the explanation helpers live with the models; re-exported here for callers of this module
+from .shapley import KRIGING, permutation_shap  # noqa: F401
 
 
-def contributions(model, X: pd.DataFrame, xy: np.ndarray, names: list[str], background: pd.DataFrame | None = None,
-                  seed: int = 0) -> tuple[np.ndarray, np.ndarray]:
+def contributions(
+    model,
+    X: pd.DataFrame,
+    xy: np.ndarray,
+    names: list[str],
+    background: pd.DataFrame | None = None,
+    seed: int = 0,
+) -> tuple[np.ndarray, np.ndarray]:
     """Additive contributions of every feature (and of kriging) to the model's raw output.
 
     Returns
@@ -45,7 +52,8 @@ def contributions(model, X: pd.DataFrame, xy: np.ndarray, names: list[str], back
 
 
 def importance(values: np.ndarray, weights: np.ndarray, names: list[str]) -> pd.Series:
-    """Declustering-weighted mean |contribution| per feature (summed over classes), largest first."""
+    """Declustering-weighted mean |contribution| per feature (summed over classes), largest
+    first."""
     a = np.abs(values)
     if a.ndim == 3:
         a = a.sum(axis=1)
@@ -66,7 +74,16 @@ class Applicability:
     whisker rule as recalled from memory of the method).
     """
 
-    def __init__(self, features: list[str], mean, scale, weights, points, mean_distance: float, threshold: float):
+    def __init__(
+        self,
+        features: list[str],
+        mean,
+        scale,
+        weights,
+        points,
+        mean_distance: float,
+        threshold: float,
+    ):
         self.features = features
         self.mean, self.scale, self.weights = (np.asarray(a, float) for a in (mean, scale, weights))
         self.points = np.asarray(points, float)
@@ -82,7 +99,9 @@ class Applicability:
     def _tree(self):
         from scipy.spatial import cKDTree
 
-        if getattr(self, "tree_", None) is None:  # built once per loaded model, reused by every tile
+        if (
+            getattr(self, "tree_", None) is None
+        ):  # built once per loaded model, reused by every tile
             self.tree_ = cKDTree(self.points)
         return self.tree_
 
@@ -95,33 +114,52 @@ class Applicability:
         return np.minimum(below, above)
 
     def _distance(self, X, bound: float = np.inf, chunk: int = 50_000) -> np.ndarray:
-        """Distance to the nearest training point in the weighted feature space (inf beyond ``bound``)."""
+        """Distance to the nearest training point in the weighted feature space (inf beyond
+        ``bound``)."""
         q = self._space(X)
         if q.shape[1] == 1:  # a sorted search: exact, and much faster than a tree in one dimension
             return self._nearest_1d(q)
         tree = self._tree()
         out = np.empty(len(q))
         for s in range(0, len(q), chunk):
-            out[s:s + chunk] = tree.query(q[s:s + chunk], distance_upper_bound=bound)[0]
+            out[s : s + chunk] = tree.query(q[s : s + chunk], distance_upper_bound=bound)[0]
         return out
 
     def inside(self, X) -> np.ndarray:
         """Whether each row's index is within the threshold; the same as ``index(X) <= threshold``
         but faster, since the nearest-neighbour search stops at the threshold distance."""
-        bound = self.threshold * self.mean_distance * (1 + 1e-12)  # the bound is strict; the threshold is not
+        bound = (
+            self.threshold * self.mean_distance * (1 + 1e-12)
+        )  # the bound is strict; the threshold is not
         return self._distance(X, bound) / self.mean_distance <= self.threshold
 
     def to_dict(self) -> dict:
-        return {"features": self.features, "mean": self.mean.tolist(), "scale": self.scale.tolist(),
-                "weights": self.weights.tolist(), "points": self.points.tolist(),
-                "mean_distance": self.mean_distance, "threshold": self.threshold}
+        return {
+            "features": self.features,
+            "mean": self.mean.tolist(),
+            "scale": self.scale.tolist(),
+            "weights": self.weights.tolist(),
+            "points": self.points.tolist(),
+            "mean_distance": self.mean_distance,
+            "threshold": self.threshold,
+        }
 
     @classmethod
     def from_dict(cls, d: dict) -> Applicability:
-        return cls(d["features"], d["mean"], d["scale"], d["weights"], d["points"], d["mean_distance"], d["threshold"])
+        return cls(
+            d["features"],
+            d["mean"],
+            d["scale"],
+            d["weights"],
+            d["points"],
+            d["mean_distance"],
+            d["threshold"],
+        )
 
 
-def fit_applicability(X: pd.DataFrame, imp: pd.Series, folds: np.ndarray) -> tuple[Applicability, np.ndarray]:
+def fit_applicability(
+    X: pd.DataFrame, imp: pd.Series, folds: np.ndarray
+) -> tuple[Applicability, np.ndarray]:
     """The applicability model and the CV-based index of each training well."""
     from scipy.spatial.distance import cdist, pdist
 
@@ -141,9 +179,19 @@ def fit_applicability(X: pd.DataFrame, imp: pd.Series, folds: np.ndarray) -> tup
     return Applicability(features, mean, scale, w, points, mean_distance, threshold), di
 
 
-def trust_warnings(target: str, task: str, imp: pd.Series, X: pd.DataFrame, values: np.ndarray,
-                   cv: dict, cv_random: dict, n_classes: int, fold_sizes: list[int],
-                   location_limit: float = 0.3, impedance: list[str] = ()) -> tuple[list[str], dict]:
+def trust_warnings(
+    target: str,
+    task: str,
+    imp: pd.Series,
+    X: pd.DataFrame,
+    values: np.ndarray,
+    cv: dict,
+    cv_random: dict,
+    n_classes: int,
+    fold_sizes: list[int],
+    location_limit: float = 0.3,
+    impedance: list[str] = (),
+) -> tuple[list[str], dict]:
     """Plain-words warnings about what the model leans on and how far its scores can be trusted.
 
     ``impedance``: the attributes that are impedances (by what the user said they are, or their
@@ -156,9 +204,12 @@ def trust_warnings(target: str, task: str, imp: pd.Series, X: pd.DataFrame, valu
     facts["location_features_share"] = loc / total
     facts["kriging_share"] = krig / total
     if (loc + krig) / total > location_limit:
-        warnings_.append(f"{target}: location features and kriging of the wells carry {(loc + krig) / total:.0%} "
-                         f"of the total |SHAP| ({loc / total:.0%} and {krig / total:.0%}; limit "
-                         f"{location_limit:.0%}): the map leans on where the wells are rather than on the seismic")
+        warnings_.append(
+            f"{target}: location features and kriging of the wells carry {(loc + krig) / total:.0%}"
+            f" of the total |SHAP| ({loc / total:.0%} and {krig / total:.0%}; limit"
+            f" {location_limit:.0%}): the map leans on where the wells are rather than on the"
+            " seismic"
+        )
     if task == "regression" and target in ("porosity", "permeability"):
         names = list(X.columns)
         levels = [f for f in names if any(f == a or f.startswith(f"{a}_smooth") for a in impedance)]
@@ -167,22 +218,35 @@ def trust_warnings(target: str, task: str, imp: pd.Series, X: pd.DataFrame, valu
                 r = np.corrcoef(X[f].to_numpy(float), values[:, names.index(f)])[0, 1]
                 facts[f"sign_{f}"] = float(r)
                 if r > 0.1:
-                    warnings_.append(f"{target}: its contribution rises with {f} (correlation {r:+.2f}); rock physics "
-                                     "expects it to fall as impedance rises: check the data or constrain the model")
+                    warnings_.append(
+                        f"{target}: its contribution rises with {f} (correlation {r:+.2f}); rock"
+                        " physics expects it to fall as impedance rises: check the data or"
+                        " constrain the model"
+                    )
     if task == "regression":
         if cv["r2"] < 0.1:
-            warnings_.append(f"{target}: CV R2 is {cv['r2']:.2f}: next to no skill away from the wells")
+            warnings_.append(
+                f"{target}: CV R2 is {cv['r2']:.2f}: next to no skill away from the wells"
+            )
         if cv_random and cv_random["rmse"] < 0.8 * cv["rmse"]:
-            warnings_.append(f"{target}: random k-fold RMSE {cv_random['rmse']:.3g} is far below the blocked "
-                             f"{cv['rmse']:.3g}: nearby wells are alike, trust the blocked figure")
+            warnings_.append(
+                f"{target}: random k-fold RMSE {cv_random['rmse']:.3g} is far below the blocked "
+                f"{cv['rmse']:.3g}: nearby wells are alike, trust the blocked figure"
+            )
     else:
         chance = 1.0 / max(n_classes, 1)
         if cv["balanced_accuracy"] < chance + 0.05:
-            warnings_.append(f"{target}: CV balanced accuracy {cv['balanced_accuracy']:.2f} is near chance "
-                             f"({chance:.2f})")
+            warnings_.append(
+                f"{target}: CV balanced accuracy {cv['balanced_accuracy']:.2f} is near chance "
+                f"({chance:.2f})"
+            )
         if cv_random and cv_random["balanced_accuracy"] > cv["balanced_accuracy"] + 0.1:
-            warnings_.append(f"{target}: random k-fold balanced accuracy is much higher than blocked: nearby wells "
-                             "are alike, trust the blocked figure")
+            warnings_.append(
+                f"{target}: random k-fold balanced accuracy is much higher than blocked: nearby"
+                " wells are alike, trust the blocked figure"
+            )
     if fold_sizes and min(fold_sizes) < 5:
-        warnings_.append(f"{target}: the smallest CV fold holds {min(fold_sizes)} wells: scores are noisy")
+        warnings_.append(
+            f"{target}: the smallest CV fold holds {min(fold_sizes)} wells: scores are noisy"
+        )
     return warnings_, facts

@@ -1,4 +1,5 @@
-"""``predictor explain``: SHAP tables, figures and contribution maps for every target of a bundle."""
+"""``predictor explain``: SHAP tables, figures and contribution maps for every target of a
+bundle."""
 
 from __future__ import annotations
 
@@ -17,23 +18,32 @@ CHUNK = 20_000
 
 
 def _class_slices(info: dict):
-    """(label, index) per explained output: one for a property, one per class (log-odds) for facies."""
+    """(label, index) per explained output: one for a property, one per class (log-odds) for
+    facies."""
     if info["task"] == "classification":
         return [(f"{cls} (log-odds)", i) for i, cls in enumerate(info["classes"])]
     return [("", None)]
 
 
-def explain_wells(bundle: Bundle, target: str) -> tuple[np.ndarray, np.ndarray, pd.DataFrame, pd.DataFrame]:
+def explain_wells(
+    bundle: Bundle, target: str
+) -> tuple[np.ndarray, np.ndarray, pd.DataFrame, pd.DataFrame]:
     """Contributions at the training wells: (values, base, wells table, well features)."""
     names = bundle.card["features"]["names"]
     wells, features = bundle.training_wells()
-    values, base = contributions(bundle.models[target], features, wells[["x", "y"]].to_numpy(float), names,
-                                 background=features)
+    values, base = contributions(
+        bundle.models[target],
+        features,
+        wells[["x", "y"]].to_numpy(float),
+        names,
+        background=features,
+    )
     return values, base, wells, features
 
 
-def contribution_maps(bundle: Bundle, grid: xr.Dataset, target: str, chunk: int = CHUNK,
-                      z: float | None = None) -> xr.Dataset:
+def contribution_maps(
+    bundle: Bundle, grid: xr.Dataset, target: str, chunk: int = CHUNK, z: float | None = None
+) -> xr.Dataset:
     """Per-feature contribution maps (chunked), named ``<target>[_<class>]_shap_<feature>``.
 
     For a volume: the map view at ``z`` (default: the middle of the training wells' samples),
@@ -43,7 +53,9 @@ def contribution_maps(bundle: Bundle, grid: xr.Dataset, target: str, chunk: int 
     info = bundle.card["targets"][target]
     features = build_features(grid, bundle.feature_spec)
     if is_volume(grid):
-        features = map_view(features, view_depth(grid, bundle.training_wells()[0]) if z is None else z)
+        features = map_view(
+            features, view_depth(grid, bundle.training_wells()[0]) if z is None else z
+        )
         grid = features
     matrix, valid = feature_matrix(features, names)
     xx, yy = np.meshgrid(grid.x.to_numpy(), grid.y.to_numpy())
@@ -51,11 +63,17 @@ def contribution_maps(bundle: Bundle, grid: xr.Dataset, target: str, chunk: int 
     _, wells_features = bundle.training_wells()
     parts = []
     for s in range(0, len(matrix), chunk):
-        X = pd.DataFrame(matrix[s:s + chunk], columns=names)
-        parts.append(contributions(bundle.models[target], X, xy[s:s + chunk], names, background=wells_features)[0])
+        X = pd.DataFrame(matrix[s : s + chunk], columns=names)
+        parts.append(
+            contributions(
+                bundle.models[target], X, xy[s : s + chunk], names, background=wells_features
+            )[0]
+        )
     values = np.concatenate(parts)
-    out = xr.Dataset(coords={"x": grid.x, "y": grid.y},
-                     attrs={k: grid.attrs[k] for k in ("z_shown", "axis_labels", "z_domain") if k in grid.attrs})
+    out = xr.Dataset(
+        coords={"x": grid.x, "y": grid.y},
+        attrs={k: grid.attrs[k] for k in ("z_shown", "axis_labels", "z_domain") if k in grid.attrs},
+    )
     shape = (grid.sizes["y"], grid.sizes["x"])
     for label, k in _class_slices(info):
         v = values if k is None else values[:, k, :]
@@ -66,8 +84,9 @@ def contribution_maps(bundle: Bundle, grid: xr.Dataset, target: str, chunk: int 
             full = np.full(valid.size, np.nan)
             full[valid] = v[:, j]
             out[f"{prefix}_shap_{name}"] = (("y", "x"), full.reshape(shape))
-            out[f"{prefix}_shap_{name}"].attrs["long_name"] = (f"contribution of {describe_feature(name)} to "
-                                                               f"{target} {label}").strip()
+            out[f"{prefix}_shap_{name}"].attrs["long_name"] = (
+                f"contribution of {describe_feature(name)} to {target} {label}"
+            ).strip()
     return out
 
 
@@ -80,7 +99,9 @@ def output_unit(target: str, info: dict) -> str:
     return "fraction" if target == "porosity" else "target units"
 
 
-def explain_bundle(bundle_dir, out, grid: xr.Dataset | None = None, overwrite: bool = False) -> list[str]:
+def explain_bundle(
+    bundle_dir, out, grid: xr.Dataset | None = None, overwrite: bool = False
+) -> list[str]:
     """Write importance tables, SHAP at the wells, figures and (with a grid) contribution maps."""
     from . import plots  # matplotlib loads when a figure is drawn, not on import
 
@@ -91,8 +112,12 @@ def explain_bundle(bundle_dir, out, grid: xr.Dataset | None = None, overwrite: b
         for target, info in bundle.card["targets"].items():
             values, base, wells, features = explain_wells(bundle, target)
             imp = importance(values, wells["weight"].to_numpy(float), names)
-            imp.rename("mean_abs_shap").to_csv(tmp / f"{target}_importance.csv", index_label="feature")
-            plots.importance_chart(imp, target, tmp / f"{target}_importance.png", output_unit(target, info))
+            imp.rename("mean_abs_shap").to_csv(
+                tmp / f"{target}_importance.csv", index_label="feature"
+            )
+            plots.importance_chart(
+                imp, target, tmp / f"{target}_importance.png", output_unit(target, info)
+            )
             table = wells[["well_id", "x", "y"]].copy()
             for label, k in _class_slices(info):
                 v = values if k is None else values[:, k, :]
@@ -106,24 +131,45 @@ def explain_bundle(bundle_dir, out, grid: xr.Dataset | None = None, overwrite: b
                 cols = [n for n in names if np.any(v[:, names.index(n)])]
                 if cols:
                     idx = [names.index(c) for c in cols]
-                    plots.shap_summary(v[:, idx], features, cols, f"{target} {label}".strip(),
-                                       tmp / f"{stem}_summary.png")
+                    plots.shap_summary(
+                        v[:, idx],
+                        features,
+                        cols,
+                        f"{target} {label}".strip(),
+                        tmp / f"{stem}_summary.png",
+                    )
                     top = sorted(cols, key=lambda c: -imp.get(c, 0))[:2]
                     for feat in top:
-                        plots.shap_dependence(v[:, idx], features, cols, feat,
-                                              f"{target} {label}: {describe_feature(feat)}".strip(),
-                                              tmp / f"{stem}_dependence_{feat}.png")
+                        plots.shap_dependence(
+                            v[:, idx],
+                            features,
+                            cols,
+                            feat,
+                            f"{target} {label}: {describe_feature(feat)}".strip(),
+                            tmp / f"{stem}_dependence_{feat}.png",
+                        )
             table.to_csv(tmp / f"{target}_shap_at_wells.csv", index=False)
-            lines.append(f"{target}, mean |contribution| at the wells in {output_unit(target, info)} "
-                         "(declustering-weighted; largest first): "
-                         + ", ".join(f"{k} {v:.3g}" for k, v in imp.head(5).items() if v > 0))
+            lines.append(
+                f"{target}, mean |contribution| at the wells in {output_unit(target, info)} "
+                "(declustering-weighted; largest first): "
+                + ", ".join(f"{k} {v:.3g}" for k, v in imp.head(5).items() if v > 0)
+            )
             if grid is not None:
                 maps = contribution_maps(bundle, grid, target)
                 write_netcdf(maps, tmp / f"{target}_shap_maps.nc")
-                ranked = sorted(maps.data_vars, key=lambda v: -float(np.nanmean(np.abs(maps[v].to_numpy()))))
-                shown = wells_in_view(wells, grid, maps.attrs["z_shown"]) if is_volume(grid) else wells
-                plots.shap_maps(maps, [str(v) for v in ranked[:3]], shown, tmp / f"{target}_shap_maps.png",
-                                unit=output_unit(target, info))
+                ranked = sorted(
+                    maps.data_vars, key=lambda v: -float(np.nanmean(np.abs(maps[v].to_numpy())))
+                )
+                shown = (
+                    wells_in_view(wells, grid, maps.attrs["z_shown"]) if is_volume(grid) else wells
+                )
+                plots.shap_maps(
+                    maps,
+                    [str(v) for v in ranked[:3]],
+                    shown,
+                    tmp / f"{target}_shap_maps.png",
+                    unit=output_unit(target, info),
+                )
         for warning in bundle.card.get("warnings", []):
             lines.append(f"warning: {warning}")
     return lines

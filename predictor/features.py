@@ -66,8 +66,12 @@ class FeatureSpec:
 
 
 TRUNCATE = 4.0  # kernel half-width in standard deviations (scipy.ndimage's default)
-FFT_TAPS = 129  # longer kernels run by FFT: the same sums to rounding, at a cost independent of the radius
-WIDE_HALO = 256  # nodes: a wider halo makes tiles mostly halo, so tiled maps smooth such radii beforehand
+FFT_TAPS = (
+    129  # longer kernels run by FFT: the same sums to rounding, at a cost independent of the radius
+)
+WIDE_HALO = (
+    256  # nodes: a wider halo makes tiles mostly halo, so tiled maps smooth such radii beforehand
+)
 
 
 def gaussian(values: np.ndarray, sigma_cells) -> np.ndarray:
@@ -90,8 +94,12 @@ def gaussian(values: np.ndarray, sigma_cells) -> np.ndarray:
         shape[axis] = taps.size
         pad = [(0, 0)] * out.ndim
         pad[axis] = (radius, radius)
-        out = oaconvolve(np.pad(out, pad, mode="edge"), (taps / taps.sum()).reshape(shape), mode="valid",
-                         axes=axis)
+        out = oaconvolve(
+            np.pad(out, pad, mode="edge"),
+            (taps / taps.sum()).reshape(shape),
+            mode="valid",
+            axes=axis,
+        )
     return out
 
 
@@ -103,8 +111,9 @@ def _lateral(grid: xr.Dataset) -> tuple[tuple[str, ...], tuple[str, str], tuple[
     return ("y", "x"), ("y", "x"), (dy, dx)
 
 
-def smooth_store(grid: xr.Dataset, spec: FeatureSpec, radii: list[float], store, block_values: int = 1 << 20
-                 ) -> xr.Dataset:
+def smooth_store(
+    grid: xr.Dataset, spec: FeatureSpec, radii: list[float], store, block_values: int = 1 << 20
+) -> xr.Dataset:
     """The laterally smoothed attributes of ``radii`` over the whole of a (lazily opened) map or
     volume, written to the Zarr ``store`` without holding it: the Gaussian is separable, so it
     runs along the first lateral axis over blocks of whole columns, then along the second over
@@ -118,34 +127,60 @@ def smooth_store(grid: xr.Dataset, spec: FeatureSpec, radii: list[float], store,
     shape = tuple(grid.sizes[d] for d in dims)
     a1, a2 = dims.index(first), dims.index(second)
     depth = int(np.prod([n for d, n in zip(dims, shape, strict=True) if d not in (first, second)]))
-    step = max(8, min(512, block_values // (depth * max(shape[a1], shape[a2]))))  # rows or columns per block
+    step = max(
+        8, min(512, block_values // (depth * max(shape[a1], shape[a2])))
+    )  # rows or columns per block
     root = zarr.open_group(str(store), mode="w", zarr_format=2)
-    chunks = tuple(min(n, step) if d in (first, second) else n for d, n in zip(dims, shape, strict=True))
+    chunks = tuple(
+        min(n, step) if d in (first, second) else n for d, n in zip(dims, shape, strict=True)
+    )
     names = []
 
     def along(axis: int, sigma: float) -> tuple:
         return tuple(sigma if k == axis else 0.0 for k in range(len(dims)))
 
     def where(axis: int, start: int, size: int) -> tuple:
-        return tuple(slice(start, start + size) if k == axis else slice(None) for k in range(len(dims)))
+        return tuple(
+            slice(start, start + size) if k == axis else slice(None) for k in range(len(dims))
+        )
 
     for attr in spec.attributes:
         for radius in radii:
             name = f"{attr}_smooth{radius:g}m"
-            parts = {k: root.create_array(f"{name}.{k}", shape=shape, chunks=chunks, dtype=dtype)
-                     for k, dtype in (("num", "f8"), ("den", "f8"), ("valid", "u1"))}
+            parts = {
+                k: root.create_array(f"{name}.{k}", shape=shape, chunks=chunks, dtype=dtype)
+                for k, dtype in (("num", "f8"), ("den", "f8"), ("valid", "u1"))
+            }
             any_missing = False
-            for c0 in range(0, shape[a2], step):  # along the first axis, a block of whole columns at a time
+            for c0 in range(
+                0, shape[a2], step
+            ):  # along the first axis, a block of whole columns at a time
                 block = where(a2, c0, step)
-                values = grid[attr].isel({second: slice(c0, c0 + step)}).transpose(*dims).to_numpy().astype(float)
+                values = (
+                    grid[attr]
+                    .isel({second: slice(c0, c0 + step)})
+                    .transpose(*dims)
+                    .to_numpy()
+                    .astype(float)
+                )
                 valid = np.isfinite(values)
                 any_missing |= not valid.all()
-                parts["valid"][block] = valid  # pass 2 masks with it instead of reading the input again
+                parts["valid"][block] = (
+                    valid  # pass 2 masks with it instead of reading the input again
+                )
                 parts["num"][block] = gaussian(np.where(valid, values, 0.0), along(a1, radius / d1))
                 parts["den"][block] = gaussian(valid.astype(float), along(a1, radius / d1))
-            out = root.create_array(name, shape=shape, chunks=chunks, dtype="f8", fill_value=np.nan,
-                                    attributes={"_ARRAY_DIMENSIONS": list(dims)})
-            for r0 in range(0, shape[a1], step):  # then along the second, a block of whole rows at a time
+            out = root.create_array(
+                name,
+                shape=shape,
+                chunks=chunks,
+                dtype="f8",
+                fill_value=np.nan,
+                attributes={"_ARRAY_DIMENSIONS": list(dims)},
+            )
+            for r0 in range(
+                0, shape[a1], step
+            ):  # then along the second, a block of whole rows at a time
                 block = where(a1, r0, step)
                 num = gaussian(parts["num"][block], along(a2, radius / d2))
                 valid = parts["valid"][block].astype(bool)
@@ -173,8 +208,12 @@ def _smooth(values: np.ndarray, sigma_cells) -> np.ndarray:
     return np.where(valid, out, np.nan)
 
 
-def build_features(grid: xr.Dataset, spec: FeatureSpec, threads: int | None = None,
-                   smoothed: xr.Dataset | None = None) -> xr.Dataset:
+def build_features(
+    grid: xr.Dataset,
+    spec: FeatureSpec,
+    threads: int | None = None,
+    smoothed: xr.Dataset | None = None,
+) -> xr.Dataset:
     """Every feature of ``spec`` as a variable on the grid or volume (same dims and coordinates).
 
     ``threads`` (default: every core) run the FFTs of long smoothing kernels; the values do
@@ -185,19 +224,24 @@ def build_features(grid: xr.Dataset, spec: FeatureSpec, threads: int | None = No
         return _build_features(grid, spec, smoothed)
 
 
-def _build_features(grid: xr.Dataset, spec: FeatureSpec, smoothed: xr.Dataset | None = None) -> xr.Dataset:
+def _build_features(
+    grid: xr.Dataset, spec: FeatureSpec, smoothed: xr.Dataset | None = None
+) -> xr.Dataset:
     """One path for maps (y, x) and volumes (z, inline, crossline): lateral context and gradients
     act over the two lateral dims (in each z slice of a volume), vertical context along z."""
     missing = [a for a in spec.attributes if a not in grid.data_vars]
     if missing:
         raise InputError(
-            f"grid {grid.attrs.get('source', '')} lacks the attribute(s) {', '.join(missing)} the model needs; "
-            f"it has {', '.join(map(str, grid.data_vars))}; give a grid with the same attribute names as in training"
+            f"grid {grid.attrs.get('source', '')} lacks the attribute(s) {', '.join(missing)} the"
+            f" model needs; it has {', '.join(map(str, grid.data_vars))}; give a grid with the same"
+            " attribute names as in training"
         )
     volume = is_volume(grid)
     if not volume and (spec.vertical_radii or spec.z_coordinate):
-        raise InputError(f"grid {grid.attrs.get('source', '')} is a map: vertical features need a volume "
-                         "(z, inline, crossline)")
+        raise InputError(
+            f"grid {grid.attrs.get('source', '')} is a map: vertical features need a volume "
+            "(z, inline, crossline)"
+        )
     dims, lateral, (d1, d2) = _lateral(grid)
     a1, a2 = dims.index(lateral[0]), dims.index(lateral[1])
 
@@ -241,12 +285,16 @@ def _build_features(grid: xr.Dataset, spec: FeatureSpec, smoothed: xr.Dataset | 
 def node_positions(grid: xr.Dataset, shape: tuple[int, ...]) -> tuple[np.ndarray, np.ndarray]:
     """Map x and y of every node, in the grid's shape (a volume: each trace's, at every z)."""
     if is_volume(grid):
-        return np.broadcast_to(grid.cdp_x.to_numpy(), shape), np.broadcast_to(grid.cdp_y.to_numpy(), shape)
+        return np.broadcast_to(grid.cdp_x.to_numpy(), shape), np.broadcast_to(
+            grid.cdp_y.to_numpy(), shape
+        )
     xx, yy = np.meshgrid(grid.x.to_numpy(), grid.y.to_numpy())
     return xx, yy
 
 
-def halo_cells(spec: FeatureSpec, dx: float, dy: float, skip: list[float] | None = None) -> tuple[int, int]:
+def halo_cells(
+    spec: FeatureSpec, dx: float, dy: float, skip: list[float] | None = None
+) -> tuple[int, int]:
     """Nodes of context a tile needs on each side so its features equal those of the whole grid
     (``skip``: context radii smoothed beforehand over the whole grid, which need none)."""
     hy = hx = 1 if spec.gradient else 0
@@ -259,7 +307,8 @@ def halo_cells(spec: FeatureSpec, dx: float, dy: float, skip: list[float] | None
 
 
 def wide_radii(spec: FeatureSpec, dx: float, dy: float) -> list[float]:
-    """Context radii whose halo would exceed ``WIDE_HALO`` nodes: a tiled map smooths them beforehand."""
+    """Context radii whose halo would exceed ``WIDE_HALO`` nodes: a tiled map smooths them
+    beforehand."""
     return [r for r in spec.context_radii if TRUNCATE * r / min(dx, dy) > WIDE_HALO]
 
 
@@ -268,22 +317,33 @@ def location_features(names) -> list[str]:
     return [n for n in names if n in ("x_coord", "y_coord", "x_rotated", "y_rotated")]
 
 
-def features_at_wells(features: xr.Dataset, wells: pd.DataFrame, method: str = "bilinear",
-                      drop_outside: bool = False) -> tuple[pd.DataFrame, np.ndarray]:
+def features_at_wells(
+    features: xr.Dataset, wells: pd.DataFrame, method: str = "bilinear", drop_outside: bool = False
+) -> tuple[pd.DataFrame, np.ndarray]:
     """Sample the feature grid at the wells: (table of shape (n_kept, n_features), kept mask)."""
-    return sample_at(features, wells["x"], wells["y"], wells["well_id"], method=method, drop_outside=drop_outside)
+    return sample_at(
+        features, wells["x"], wells["y"], wells["well_id"], method=method, drop_outside=drop_outside
+    )
 
 
-def features_at_samples(volume: xr.Dataset, spec: FeatureSpec, wells: pd.DataFrame, drop_outside: bool = False,
-                        wells_domain: str = "unknown") -> tuple[pd.DataFrame, np.ndarray]:
-    """Features at well samples (x, y, z) of a volume: (table of shape (n_kept, n_features), kept mask).
+def features_at_samples(
+    volume: xr.Dataset,
+    spec: FeatureSpec,
+    wells: pd.DataFrame,
+    drop_outside: bool = False,
+    wells_domain: str = "unknown",
+) -> tuple[pd.DataFrame, np.ndarray]:
+    """Features at well samples (x, y, z) of a volume: (table of shape (n_kept, n_features), kept
+    mask).
 
     Features are built on a window around each well, wide enough (the tiling halo) that they
     equal the whole volume's, so training never holds the features of a large volume at once.
     """
     x, y, z = (wells[c].to_numpy(float) for c in ("x", "y", "z"))
     labels = wells["well_id"].to_numpy()
-    outside, in_z = locate_samples(volume, x, y, z, labels, wells_domain, wells.attrs.get("source", "wells"))
+    outside, in_z = locate_samples(
+        volume, x, y, z, labels, wells_domain, wells.attrs.get("source", "wells")
+    )
     ok = ~outside & in_z
     d_il, d_xl = lateral_spacing(volume)
     h_il, h_xl = halo_cells(spec, d_xl, d_il)
@@ -318,19 +378,28 @@ def features_at_samples(volume: xr.Dataset, spec: FeatureSpec, wells: pd.DataFra
 
 
 def feature_matrix(features: xr.Dataset, names: list[str]) -> tuple[np.ndarray, np.ndarray]:
-    """Flattened features at every node: (matrix of shape (n_valid, n_features), valid mask of the grid)."""
+    """Flattened features at every node: (matrix of shape (n_valid, n_features), valid mask of the
+    grid)."""
     stack = np.stack([features[n].to_numpy().ravel() for n in names], axis=1)
     valid = np.all(np.isfinite(stack), axis=1)
     return (stack if valid.all() else stack[valid]), valid
 
 
-_FEATURE_WORDS = ((r"(.+)_smooth([\d.]+)m", "{0} smoothed over {1:,.0f} m"),
-                  (r"(.+)_contrast([\d.]+)m", "{0} minus its {1:,.0f} m smoothing"),
-                  (r"(.+)_vsmooth([\d.]+)", "{0} smoothed vertically over {1:g} (z units)"),
-                  (r"(.+)_vcontrast([\d.]+)", "{0} minus its vertical smoothing over {1:g} (z units)"),
-                  (r"(.+)_gradient", "lateral gradient of {0}"))
-_PLAIN = {"x_coord": "easting", "y_coord": "northing", "x_rotated": "rotated easting",
-          "y_rotated": "rotated northing", "z_coord": "z", "kriging_of_wells": "kriging of the wells"}
+_FEATURE_WORDS = (
+    (r"(.+)_smooth([\d.]+)m", "{0} smoothed over {1:,.0f} m"),
+    (r"(.+)_contrast([\d.]+)m", "{0} minus its {1:,.0f} m smoothing"),
+    (r"(.+)_vsmooth([\d.]+)", "{0} smoothed vertically over {1:g} (z units)"),
+    (r"(.+)_vcontrast([\d.]+)", "{0} minus its vertical smoothing over {1:g} (z units)"),
+    (r"(.+)_gradient", "lateral gradient of {0}"),
+)
+_PLAIN = {
+    "x_coord": "easting",
+    "y_coord": "northing",
+    "x_rotated": "rotated easting",
+    "y_rotated": "rotated northing",
+    "z_coord": "z",
+    "kriging_of_wells": "kriging of the wells",
+}
 
 
 def describe_feature(name: str) -> str:

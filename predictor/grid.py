@@ -36,20 +36,27 @@ def _lattice_axis(values: np.ndarray, others: np.ndarray, source: str, column: s
     """Regular axis (ascending) on which all ``values`` lie; error naming rows that do not."""
     unique = np.unique(values)
     if unique.size == 1:
-        raise InputError(f"{source}: column {column!r} has a single value; a map needs at least 2 nodes along x and y")
+        raise InputError(
+            f"{source}: column {column!r} has a single value; a map needs at least 2 nodes along x"
+            " and y"
+        )
     step = _typical_step(values, others)
     span = unique[-1] - unique[0]
     n = int(round(span / step)) + 1
     if n > 200_000:
-        raise InputError(f"{source}: column {column!r} spacing {step:g} gives {n} nodes; the values are not on a lattice")
+        raise InputError(
+            f"{source}: column {column!r} spacing {step:g} gives {n} nodes; the values are not on a"
+            " lattice"
+        )
     k = (values - unique[0]) / step
     off = np.abs(k - np.round(k)) > 1e-3
     if off.any():
         rows = np.flatnonzero(off)
         raise InputError(
-            f"{source}: grid not on a regular lattice: column {column!r} at {list_rows([f'line {i + 2}' for i in rows])} "
-            f"is off the spacing {step:g} from origin {unique[0]:g}; resample the attribute onto a regular grid "
-            "(rotated lattices: give NetCDF with x/y coordinates)"
+            f"{source}: grid not on a regular lattice: column {column!r} at"
+            f" {list_rows([f'line {i + 2}' for i in rows])} is off the spacing {step:g} from origin"
+            f" {unique[0]:g}; resample the attribute onto a regular grid (rotated lattices: give"
+            " NetCDF with x/y coordinates)"
         )
     return unique[0] + step * np.arange(n)
 
@@ -64,10 +71,16 @@ def grid_from_table(frame: pd.DataFrame, x: str | None = None, y: str | None = N
     for col, v in ((xc, xs), (yc, ys)):
         bad = np.flatnonzero(~np.isfinite(v))
         if bad.size:
-            raise InputError(f"{source}: column {col!r} is infinite at {list_rows([f'line {i + 2}' for i in bad])}")
+            raise InputError(
+                f"{source}: column {col!r} is infinite at"
+                f" {list_rows([f'line {i + 2}' for i in bad])}"
+            )
     attributes = [c for c in frame.columns if c not in (xc, yc)]
     if not attributes:
-        raise InputError(f"{source}: no attribute columns besides {xc!r} and {yc!r}; add at least one (e.g. impedance)")
+        raise InputError(
+            f"{source}: no attribute columns besides {xc!r} and {yc!r}; add at least one (e.g."
+            " impedance)"
+        )
     xaxis = _lattice_axis(xs, ys, source, xc)
     yaxis = _lattice_axis(ys, xs, source, yc)
     ix = np.round((xs - xaxis[0]) / (xaxis[1] - xaxis[0])).astype(int)
@@ -76,8 +89,8 @@ def grid_from_table(frame: pd.DataFrame, x: str | None = None, y: str | None = N
     dup = pd.Series(flat).duplicated(keep="first").to_numpy()
     if dup.any():
         raise InputError(
-            f"{source}: {dup.sum()} nodes appear twice, at {list_rows([f'line {i + 2}' for i in np.flatnonzero(dup)])}; "
-            "keep one row per (x, y)"
+            f"{source}: {dup.sum()} nodes appear twice, at"
+            f" {list_rows([f'line {i + 2}' for i in np.flatnonzero(dup)])}; keep one row per (x, y)"
         )
     data = {}
     for col in attributes:
@@ -91,7 +104,8 @@ def grid_from_table(frame: pd.DataFrame, x: str | None = None, y: str | None = N
 
 
 def check_grid(ds: xr.Dataset, source: str = "grid") -> xr.Dataset:
-    """Normalise a grid: dims (y, x), ascending coordinates, float attributes; clear errors otherwise."""
+    """Normalise a grid: dims (y, x), ascending coordinates, float attributes; clear errors
+    otherwise."""
     if not ds.data_vars:
         raise InputError(f"{source}: no attribute variables on the grid")
     for name in ("x", "y"):
@@ -107,7 +121,9 @@ def check_grid(ds: xr.Dataset, source: str = "grid") -> xr.Dataset:
             ds = ds.isel({name: slice(None, None, -1)})
             step = -step[::-1]
         if not (np.all(step > 0) and np.allclose(step, step[0], rtol=1e-6)):
-            raise InputError(f"{source}: coordinate {name!r} is not evenly spaced; resample onto a regular grid")
+            raise InputError(
+                f"{source}: coordinate {name!r} is not evenly spaced; resample onto a regular grid"
+            )
     for var in list(ds.data_vars):
         if ds[var].dims != ("y", "x"):
             ds = ds.drop_vars(var)
@@ -119,7 +135,9 @@ def check_grid(ds: xr.Dataset, source: str = "grid") -> xr.Dataset:
     return ds
 
 
-def read_grid(path: str | Path, x: str | None = None, y: str | None = None, lazy: bool = False) -> xr.Dataset:
+def read_grid(
+    path: str | Path, x: str | None = None, y: str | None = None, lazy: bool = False
+) -> xr.Dataset:
     """Read a grid from a CSV/Parquet long table, a NetCDF file, a Zarr store or a GeoTIFF
     (by the file's signature, else its extension: :func:`predictor.io.formats.file_format`).
 
@@ -137,14 +155,23 @@ def read_grid(path: str | Path, x: str | None = None, y: str | None = None, lazy
 
         return check_grid(read_geotiff(path, classes=False), str(path))
     if kind == "segy":
-        raise InputError(f"{path}: a SEG-Y file holds a volume; read it with read_seismic or read_volume")
+        raise InputError(
+            f"{path}: a SEG-Y file holds a volume; read it with read_seismic or read_volume"
+        )
     return grid_from_table(read_table(path), x=x, y=y)
 
 
 ATTRIBUTE_KINDS = ("impedance", "velocity", "density", "amplitude", "other")
 POSITIVE_KINDS = ("impedance", "velocity", "density")
-_KIND_HINTS = (("imped", "impedance"), ("velocity", "velocity"), ("vp", "velocity"), ("vs", "velocity"),
-               ("density", "density"), ("rho", "density"), ("ampl", "amplitude"))
+_KIND_HINTS = (
+    ("imped", "impedance"),
+    ("velocity", "velocity"),
+    ("vp", "velocity"),
+    ("vs", "velocity"),
+    ("density", "density"),
+    ("rho", "density"),
+    ("ampl", "amplitude"),
+)
 
 
 def attribute_kind(grid: xr.Dataset, var: str) -> str:
@@ -161,17 +188,29 @@ def set_attribute_kinds(grid: xr.Dataset, kinds: dict[str, str] | None) -> xr.Da
     source = grid.attrs.get("source", "grid")
     for var, kind in (kinds or {}).items():
         if var not in grid.data_vars:
-            raise InputError(f"{source}: --attribute-kind names {var!r}, which is not an attribute of the grid; the "
-                             f"attributes are {', '.join(map(str, grid.data_vars))}")
+            raise InputError(
+                f"{source}: --attribute-kind names {var!r}, which is not an attribute of the grid;"
+                f" the attributes are {', '.join(map(str, grid.data_vars))}"
+            )
         if kind not in ATTRIBUTE_KINDS:
-            raise InputError(f"--attribute-kind {var}={kind}: the kind must be one of {', '.join(ATTRIBUTE_KINDS)} "
-                             "(impedance, velocity and density must be positive; amplitude is signed)")
+            raise InputError(
+                f"--attribute-kind {var}={kind}: the kind must be one of"
+                f" {', '.join(ATTRIBUTE_KINDS)} (impedance, velocity and density must be positive;"
+                " amplitude is signed)"
+            )
         grid[var].attrs["kind"] = kind
     return grid
 
 
-def read_seismic(path: str | Path, lazy: bool = False, z_domain: str | None = None, name: str | None = None,
-                 x: str | None = None, y: str | None = None, kinds: dict[str, str] | None = None) -> xr.Dataset:
+def read_seismic(
+    path: str | Path,
+    lazy: bool = False,
+    z_domain: str | None = None,
+    name: str | None = None,
+    x: str | None = None,
+    y: str | None = None,
+    kinds: dict[str, str] | None = None,
+) -> xr.Dataset:
     """Read a map (CSV/Parquet long table, NetCDF, Zarr) or a volume (SEG-Y, or NetCDF/Zarr with
     a ``z`` dimension), whichever the file holds; see :mod:`predictor.volume` for volumes.
 
@@ -191,7 +230,9 @@ def _read_seismic(path, lazy, z_domain, name, x, y) -> xr.Dataset:
         return read_volume(path, lazy=lazy, z_domain=z_domain, name=name or "amplitude")
     if kind in ("netcdf", "zarr") and path.exists():
         try:
-            with (xr.open_zarr(path) if kind == "zarr" else xr.open_dataset(path, engine="h5netcdf")) as peek:
+            with (
+                xr.open_zarr(path) if kind == "zarr" else xr.open_dataset(path, engine="h5netcdf")
+            ) as peek:
                 volume = "z" in peek.dims
         except Exception:  # unreadable: the grid reader below names the problem
             volume = False
@@ -208,7 +249,8 @@ def spacing(ds: xr.Dataset) -> tuple[float, float]:
 
 
 def node_table(ds: xr.Dataset) -> pd.DataFrame:
-    """The grid as a long table: one row per node, columns x, y and each variable (row-major, y outer)."""
+    """The grid as a long table: one row per node, columns x, y and each variable (row-major, y
+    outer)."""
     xx, yy = np.meshgrid(ds.x.to_numpy(), ds.y.to_numpy())
     table = {"x": xx.ravel(), "y": yy.ravel()}
     for var in ds.data_vars:
@@ -222,8 +264,14 @@ def _geographic(x, y) -> bool:
     return bool(np.nanmax(np.abs(x)) <= 180 and np.nanmax(np.abs(y)) <= 90)
 
 
-def sample_at(ds: xr.Dataset, x: np.ndarray, y: np.ndarray, labels=None,
-              method: SampleMethod = "bilinear", drop_outside: bool = False) -> tuple[pd.DataFrame, np.ndarray]:
+def sample_at(
+    ds: xr.Dataset,
+    x: np.ndarray,
+    y: np.ndarray,
+    labels=None,
+    method: SampleMethod = "bilinear",
+    drop_outside: bool = False,
+) -> tuple[pd.DataFrame, np.ndarray]:
     """Sample every grid variable at points (x, y).
 
     Bilinear interpolation uses the valid nodes among the four around a point (weights
@@ -255,17 +303,23 @@ def sample_at(ds: xr.Dataset, x: np.ndarray, y: np.ndarray, labels=None,
     kept = ~(outside | gap)
     if problems:
         message = "; ".join(problems)
-        if outside.all():  # every well off the map: most often the two are in different coordinate systems
-            message += (f"; the wells span x {np.nanmin(x):.6g} to {np.nanmax(x):.6g}, y {np.nanmin(y):.6g} to "
-                        f"{np.nanmax(y):.6g}, the grid x {float(ds.x.min()):.6g} to {float(ds.x.max()):.6g}, y "
-                        f"{float(ds.y.min()):.6g} to {float(ds.y.max()):.6g}")
+        if (
+            outside.all()
+        ):  # every well off the map: most often the two are in different coordinate systems
+            message += (
+                f"; the wells span x {np.nanmin(x):.6g} to {np.nanmax(x):.6g}, y {np.nanmin(y):.6g}"
+                f" to {np.nanmax(y):.6g}, the grid x {float(ds.x.min()):.6g} to"
+                f" {float(ds.x.max()):.6g}, y {float(ds.y.min()):.6g} to {float(ds.y.max()):.6g}"
+            )
             if _geographic(x, y) != _geographic(ds.x.to_numpy(), ds.y.to_numpy()):
-                message += ("; one of them looks like longitude/latitude in degrees and the other like projected "
-                            "metres: give both in the same projected CRS")
+                message += (
+                    "; one of them looks like longitude/latitude in degrees and the other like"
+                    " projected metres: give both in the same projected CRS"
+                )
         if not drop_outside:
             raise InputError(
-                f"wells {message} (grid {ds.attrs.get('source', '')}); fix the coordinates, or pass "
-                "--drop-outside to leave them out"
+                f"wells {message} (grid {ds.attrs.get('source', '')}); fix the coordinates, or pass"
+                " --drop-outside to leave them out"
             )
         warnings.warn(f"left out wells {message}", PredictorWarning, stacklevel=2)
     return values[kept].reset_index(drop=True), kept

@@ -9,8 +9,8 @@ masses w_i / (sum w + w_test) and the test point's own mass w_test / (sum w + w_
 +infinity (at -infinity for the lower bound); leaving it out would break coverage.  The
 weights are normalised to the effective number of calibration points (samples), so the test
 point, one node or one volume sample, counts as one.  With ``spread`` the residuals are first
-divided by a local spread, so intervals are wider where the model errs more.  ``bounds`` keeps a target in its physical range (porosity
-in [0, 1]).
+divided by a local spread, so intervals are wider where the model errs more.  ``bounds`` keeps
+a target in its physical range (porosity in [0, 1]).
 """
 
 from __future__ import annotations
@@ -20,9 +20,13 @@ from dataclasses import asdict, dataclass
 import numpy as np
 
 LOW, HIGH = 0.1, 0.9
-RESIDUAL_LEVELS = np.linspace(0.0, 1.0, 101)  # where the residual distribution is kept (min, percentiles, max)
+RESIDUAL_LEVELS = np.linspace(
+    0.0, 1.0, 101
+)  # where the residual distribution is kept (min, percentiles, max)
 LOCAL_POINTS = 25  # prediction values at which the local residual distributions are tabulated
-PHYSICAL_BOUNDS = {"porosity": (0.0, 1.0)}  # a fraction (common practice); permeability is mapped as log10
+PHYSICAL_BOUNDS = {
+    "porosity": (0.0, 1.0)
+}  # a fraction (common practice); permeability is mapped as log10
 
 
 @dataclass
@@ -37,8 +41,11 @@ class IntervalCalibration:
     method: str = "weighted split-conformal"
     n_effective_wells: float = 0.0
     residual_quantiles: list[float] | None = None  # at RESIDUAL_LEVELS: the predictive distribution
-    held_out_coverage: float | None = None  # wells inside [q10, q90] when calibrated without their fold
-    # the residual distribution of the wells predicted near each of these values (see local_quantiles)
+    held_out_coverage: float | None = (
+        None  # wells inside [q10, q90] when calibrated without their fold
+    )
+    # the residual distribution of the wells predicted near each of these values (see
+    # local_quantiles)
     local_predictions: list[float] | None = None
     local_quantiles: list[list[float]] | None = None
 
@@ -54,15 +61,25 @@ class IntervalCalibration:
             below = np.interp(z, self.residual_quantiles, RESIDUAL_LEVELS, left=0.0, right=1.0)
             return 1.0 - below
         # linear in q50 between the two nearest tabulated distributions
-        table, at = np.asarray(self.local_quantiles, float), np.asarray(self.local_predictions, float)
+        table, at = (
+            np.asarray(self.local_quantiles, float),
+            np.asarray(self.local_predictions, float),
+        )
         t = np.interp(q50, at, np.arange(at.size))
-        lower = np.minimum(np.floor(t).astype(int), at.size - 2) if at.size > 1 else np.zeros(q50.shape, int)
+        lower = (
+            np.minimum(np.floor(t).astype(int), at.size - 2)
+            if at.size > 1
+            else np.zeros(q50.shape, int)
+        )
         share = t - lower
         below = np.empty(q50.shape)
         for row in np.unique(lower):
             nodes = lower == row
             upper_row = min(row + 1, at.size - 1)
-            cdf = [np.interp(z[nodes], table[r], RESIDUAL_LEVELS, left=0.0, right=1.0) for r in (row, upper_row)]
+            cdf = [
+                np.interp(z[nodes], table[r], RESIDUAL_LEVELS, left=0.0, right=1.0)
+                for r in (row, upper_row)
+            ]
             below[nodes] = (1.0 - share[nodes]) * cdf[0] + share[nodes] * cdf[1]
         return 1.0 - below
 
@@ -101,7 +118,8 @@ def conformal_quantile(scores, weights, level: float, test_mass: float) -> float
 
 
 def _quantile_function(r: np.ndarray, mass: np.ndarray) -> np.ndarray:
-    """Weighted quantiles at RESIDUAL_LEVELS, interpolated between residuals, ends at min and max."""
+    """Weighted quantiles at RESIDUAL_LEVELS, interpolated between residuals, ends at min and
+    max."""
     order = np.argsort(r)
     cdf = (np.cumsum(mass[order]) - 0.5 * mass[order]) / mass.sum()
     quantiles = np.interp(RESIDUAL_LEVELS, cdf, r[order])
@@ -109,7 +127,9 @@ def _quantile_function(r: np.ndarray, mass: np.ndarray) -> np.ndarray:
     return quantiles
 
 
-def local_quantiles(predicted, r, mass, points: int = LOCAL_POINTS) -> tuple[np.ndarray, np.ndarray]:
+def local_quantiles(
+    predicted, r, mass, points: int = LOCAL_POINTS
+) -> tuple[np.ndarray, np.ndarray]:
     """Residual distributions of the wells predicted near each of ``points`` prediction values.
 
     Between facies the error is skewed: a node predicted at the mixture's mean porosity is
@@ -124,13 +144,22 @@ def local_quantiles(predicted, r, mass, points: int = LOCAL_POINTS) -> tuple[np.
     mean = np.average(predicted, weights=mass)
     bandwidth = max(float(np.sqrt(np.average((predicted - mean) ** 2, weights=mass))), 1e-12)
     at = np.unique(np.quantile(predicted, np.linspace(0.0, 1.0, points)))
-    table = [_quantile_function(r, mass * np.exp(-0.5 * ((predicted - a) / bandwidth) ** 2))
-             for a in at]
+    table = [
+        _quantile_function(r, mass * np.exp(-0.5 * ((predicted - a) / bandwidth) ** 2)) for a in at
+    ]
     return at, np.array(table)
 
 
-def calibrate(residuals, weights=None, low: float = LOW, high: float = HIGH, spread=None, units=None,
-              bounds: tuple[float, float] | None = None, predicted=None) -> IntervalCalibration:
+def calibrate(
+    residuals,
+    weights=None,
+    low: float = LOW,
+    high: float = HIGH,
+    spread=None,
+    units=None,
+    bounds: tuple[float, float] | None = None,
+    predicted=None,
+) -> IntervalCalibration:
     """Offsets from out-of-fold residuals (observed minus predicted); with ``predicted`` (the
     out-of-fold predictions) also the local residual distributions for exceedance."""
     r = np.asarray(residuals, float)
@@ -148,16 +177,30 @@ def calibrate(residuals, weights=None, low: float = LOW, high: float = HIGH, spr
     upper = float(np.max(r)) if not np.isfinite(upper) else upper
     lower = float(np.min(r)) if not np.isfinite(lower) else lower
     local = (None, None) if predicted is None else local_quantiles(predicted, r, mass)
-    return IntervalCalibration(min(lower, 0.0), max(upper, 0.0), low, high, scaled, n,
-                               None if bounds is None else tuple(bounds),
-                               n_effective_wells=effective_size(w, units) if units is not None else n,
-                               residual_quantiles=[float(v) for v in _quantile_function(r, mass)],
-                               local_predictions=None if predicted is None else [float(v) for v in local[0]],
-                               local_quantiles=None if predicted is None else local[1].tolist())
+    return IntervalCalibration(
+        min(lower, 0.0),
+        max(upper, 0.0),
+        low,
+        high,
+        scaled,
+        n,
+        None if bounds is None else tuple(bounds),
+        n_effective_wells=effective_size(w, units) if units is not None else n,
+        residual_quantiles=[float(v) for v in _quantile_function(r, mass)],
+        local_predictions=None if predicted is None else [float(v) for v in local[0]],
+        local_quantiles=None if predicted is None else local[1].tolist(),
+    )
 
 
-def held_out_coverage(observed, predicted, weights, splits, spread=None, units=None,
-                      bounds: tuple[float, float] | None = None) -> float:
+def held_out_coverage(
+    observed,
+    predicted,
+    weights,
+    splits,
+    spread=None,
+    units=None,
+    bounds: tuple[float, float] | None = None,
+) -> float:
     """Declustering-weighted share of wells inside [q10, q90] when the offsets were calibrated
     on the other folds' residuals only (a cross-conformal check; Vovk 2015, Annals of
     Mathematics and Artificial Intelligence 74:9-28, recalled from memory). The calibration
@@ -168,9 +211,13 @@ def held_out_coverage(observed, predicted, weights, splits, spread=None, units=N
     units = None if units is None else np.asarray(units)
     inside = np.zeros(len(observed), bool)
     for train, test in splits:
-        cal = calibrate(observed[train] - predicted[train], weights[train],
-                        spread=None if spread is None else spread[train],
-                        units=None if units is None else units[train], bounds=bounds)
+        cal = calibrate(
+            observed[train] - predicted[train],
+            weights[train],
+            spread=None if spread is None else spread[train],
+            units=None if units is None else units[train],
+            bounds=bounds,
+        )
         q10, q90 = cal.apply(cal.clip(predicted[test]), None if spread is None else spread[test])
         inside[test] = (q10 <= observed[test]) & (observed[test] <= q90)
     return float(np.average(inside, weights=weights))
@@ -194,7 +241,13 @@ class SpreadModel:
         floor = max(float(np.median(r)) * 0.05, 1e-12)
         target = np.log(r + floor)
         n = len(r)
-        data = FitData(X.reset_index(drop=True), target, np.asarray(weights, float), np.zeros((n, 2)), np.zeros(n, int))
+        data = FitData(
+            X.reset_index(drop=True),
+            target,
+            np.asarray(weights, float),
+            np.zeros((n, 2)),
+            np.zeros(n, int),
+        )
         self.linear_ = Linear(self.features, "spread").fit(data)
         return self
 

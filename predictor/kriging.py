@@ -24,9 +24,12 @@ from .errors import ModelError
 from .variogram import VariogramModel, auto_variogram
 
 CELLS_PER_CHUNK = 4_000_000  # nodes x wells of covariances held at once (32 MB)
-GLOBAL_WELLS = 1500  # above this many wells, a moving neighbourhood (the global system grows as n^3)
+GLOBAL_WELLS = (
+    1500  # above this many wells, a moving neighbourhood (the global system grows as n^3)
+)
 NEIGHBOURS = 100  # wells per moving neighbourhood
-WELLS_PER_TILE = 10  # a tile's side holds about this many wells' share of the area: well inside its neighbourhood
+# a tile's side holds about this many wells' share of the area: well inside its neighbourhood
+WELLS_PER_TILE = 10
 VARIOGRAM_WELLS = 3000  # the semivariogram of more wells is estimated from a seeded sample of them
 # some OpenBLAS builds give wrong results when called from several Python threads at once
 # (seen here in tiled prediction); kriging's solves are serialised, the rest runs in parallel
@@ -86,8 +89,11 @@ class OrdinaryKriging:
         self.values_ = v
         same = _coincident(self.points_)
         if same:
-            raise ModelError(f"wells {same[0]} and {same[1]} (rows, 0-based) have identical coordinates, which makes "
-                             "the kriging system singular; merge them (average their values) or remove one")
+            raise ModelError(
+                f"wells {same[0]} and {same[1]} (rows, 0-based) have identical coordinates, which"
+                " makes the kriging system singular; merge them (average their values) or"
+                " remove one"
+            )
         if self.variogram is not None:
             self.variogram_ = self.variogram
         elif np.ptp(v) == 0 or v.size < 6:
@@ -123,7 +129,7 @@ class OrdinaryKriging:
         for index, points, lu, dual in groups:
             step = max(1, CELLS_PER_CHUNK // len(points))
             for start in range(0, len(index), step):
-                rows = index[start:start + step]
+                rows = index[start : start + step]
                 cov = self.variogram_.covariance(cdist(points, q[rows]))
                 est[rows] = _combine(cov, dual)
                 if return_variance:
@@ -143,14 +149,20 @@ class OrdinaryKriging:
                 near = np.sort(self.tree_.query(centre, k=self.neighbours_)[1])
                 lu = _system(self.points_[near], self.variogram_)
                 found = (near, lu if with_lu else None, _dual(lu, self.values_[near]))
-                self._tiles[key] = found  # a small cache: the same tiles come back chunk after chunk
+                self._tiles[key] = (
+                    found  # a small cache: the same tiles come back chunk after chunk
+                )
             near, lu, dual = found
-            yield order[bounds[k]:bounds[k + 1]], self.points_[near], lu, dual
+            yield order[bounds[k] : bounds[k + 1]], self.points_[near], lu, dual
 
     def to_dict(self) -> dict:
-        return {"variogram": self.variogram_.to_dict(), "x": self.points_[:, 0].tolist(),
-                "y": self.points_[:, 1].tolist(), "values": self.values_.tolist(),
-                "neighbours": self.neighbours_ if self.local_ else None}
+        return {
+            "variogram": self.variogram_.to_dict(),
+            "x": self.points_[:, 0].tolist(),
+            "y": self.points_[:, 1].tolist(),
+            "values": self.values_.tolist(),
+            "neighbours": self.neighbours_ if self.local_ else None,
+        }
 
     @classmethod
     def from_dict(cls, data: dict) -> OrdinaryKriging:

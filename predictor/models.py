@@ -77,10 +77,23 @@ class FitData:
         self.rows = np.arange(n) if self.rows is None else np.asarray(self.rows)
 
     def subset(self, index) -> FitData:
-        return FitData(self.X.iloc[index].reset_index(drop=True), self.y[index], self.weights[index], self.xy[index],
-                       self.groups[index], self.classes, None if self.facies is None else self.facies[index],
-                       self.facies_classes, self.seed, self.n_threads, self.units[index], self.map_distances,
-                       self.rows[index], self.n_splits, self.kriging_neighbours)
+        return FitData(
+            self.X.iloc[index].reset_index(drop=True),
+            self.y[index],
+            self.weights[index],
+            self.xy[index],
+            self.groups[index],
+            self.classes,
+            None if self.facies is None else self.facies[index],
+            self.facies_classes,
+            self.seed,
+            self.n_threads,
+            self.units[index],
+            self.map_distances,
+            self.rows[index],
+            self.n_splits,
+            self.kriging_neighbours,
+        )
 
     def inner_splits(self) -> list[tuple[np.ndarray, np.ndarray]]:
         """Folds over these rows for a nested CV: matched to the map's distances when known
@@ -90,7 +103,9 @@ class FitData:
         heads, heads_index = unit_heads(self.xy, self.units)
         k = max(2, min(self.n_splits, len(heads)))
         if self.map_distances is not None and len(heads) >= 2 * k:
-            return design_folds("matched", heads, heads_index, self.map_distances, k, 1.0, seed=self.seed).splits
+            return design_folds(
+                "matched", heads, heads_index, self.map_distances, k, 1.0, seed=self.seed
+            ).splits
         k = max(2, min(k, np.unique(self.groups).size))
         return list(GroupKFold(n_splits=k).split(np.zeros(len(self.y)), None, self.groups))
 
@@ -102,7 +117,8 @@ def _softmax(z: np.ndarray) -> np.ndarray:
 
 
 def _standardise(model, data: FitData) -> np.ndarray:
-    """Store the training mean and scale of the model's features on it; return the standardised matrix."""
+    """Store the training mean and scale of the model's features on it; return the standardised
+    matrix."""
     X = data.X[model.features].to_numpy(float)
     model.mean_ = X.mean(axis=0)
     model.scale_ = np.where(X.std(axis=0) > 0, X.std(axis=0), 1.0)
@@ -129,8 +145,14 @@ class Candidate(BaseEstimator):
     def predict(self, X: pd.DataFrame, xy: np.ndarray | None = None) -> np.ndarray:
         raise NotImplementedError
 
-    def contributions(self, X: pd.DataFrame, xy: np.ndarray, names: list[str], background: pd.DataFrame | None = None,
-                      seed: int = 0) -> tuple[np.ndarray, np.ndarray]:
+    def contributions(
+        self,
+        X: pd.DataFrame,
+        xy: np.ndarray,
+        names: list[str],
+        background: pd.DataFrame | None = None,
+        seed: int = 0,
+    ) -> tuple[np.ndarray, np.ndarray]:
         """Additive contributions of each of ``names`` plus the kriging column (last) to the raw
         output, and the base they add to: ``base + values.sum(-1) == raw_output(X, xy)``."""
         raise NotImplementedError
@@ -172,16 +194,26 @@ class Linear(Candidate):
 
     def contributions(self, X, xy, names, background=None, seed=0):
         # exact interventional SHAP with the training mean as background: coef * (x - mean)
-        return place(self._z(X) * self.coef_[1:], self.features, names), np.full(len(X), self.coef_[0])
+        return place(self._z(X) * self.coef_[1:], self.features, names), np.full(
+            len(X), self.coef_[0]
+        )
 
     def save(self, folder: Path, stem: str) -> dict:
-        return {"type": self.kind, "name": self.name, "features": self.features, "mean": self.mean_.tolist(),
-                "scale": self.scale_.tolist(), "coef": self.coef_.tolist()}
+        return {
+            "type": self.kind,
+            "name": self.name,
+            "features": self.features,
+            "mean": self.mean_.tolist(),
+            "scale": self.scale_.tolist(),
+            "coef": self.coef_.tolist(),
+        }
 
     @classmethod
     def load(cls, desc: dict, folder: Path) -> Linear:
         model = cls(desc["features"], desc["name"])
-        model.mean_, model.scale_, model.coef_ = (np.array(desc[k]) for k in ("mean", "scale", "coef"))
+        model.mean_, model.scale_, model.coef_ = (
+            np.array(desc[k]) for k in ("mean", "scale", "coef")
+        )
         return model
 
 
@@ -228,8 +260,15 @@ class Logistic(Candidate):
         return place(per_class, self.features, names), np.tile(self.intercept_, (len(X), 1))
 
     def save(self, folder: Path, stem: str) -> dict:
-        return {"type": self.kind, "name": self.name, "features": self.features, "mean": self.mean_.tolist(),
-                "scale": self.scale_.tolist(), "coef": self.coef_.tolist(), "intercept": self.intercept_.tolist()}
+        return {
+            "type": self.kind,
+            "name": self.name,
+            "features": self.features,
+            "mean": self.mean_.tolist(),
+            "scale": self.scale_.tolist(),
+            "coef": self.coef_.tolist(),
+            "intercept": self.intercept_.tolist(),
+        }
 
     @classmethod
     def load(cls, desc: dict, folder: Path) -> Logistic:
@@ -239,7 +278,9 @@ class Logistic(Candidate):
         return model
 
 
-def lightgbm_params(task: str, n: int, n_classes: int, seed: int, n_threads: int, monotone=None) -> dict:
+def lightgbm_params(
+    task: str, n: int, n_classes: int, seed: int, n_threads: int, monotone=None
+) -> dict:
     """Defaults sized for tens to hundreds of wells: shallow trees, large leaves, shrinkage."""
     params = {
         "objective": "regression" if task == "regression" else "multiclass",
@@ -269,12 +310,19 @@ def lightgbm_params(task: str, n: int, n_classes: int, seed: int, n_threads: int
 
 
 class LightGBM(Candidate):
-    """LightGBM regressor or classifier with early stopping on held-out blocks of the training wells."""
+    """LightGBM regressor or classifier with early stopping on held-out blocks of the training
+    wells."""
 
     kind = "lightgbm"
 
-    def __init__(self, task: str, features: list[str], name: str = "lightgbm", monotone: dict | None = None,
-                 max_rounds: int = 400):
+    def __init__(
+        self,
+        task: str,
+        features: list[str],
+        name: str = "lightgbm",
+        monotone: dict | None = None,
+        max_rounds: int = 400,
+    ):
         self.task = task
         self.features = features
         self.name = name
@@ -283,7 +331,9 @@ class LightGBM(Candidate):
 
     def _params(self, data: FitData) -> dict:
         mono = [int(self.monotone.get(f, 0)) for f in self.features] if self.monotone else None
-        return lightgbm_params(self.task, len(data.y), max(len(data.classes), 1), data.seed, data.n_threads, mono)
+        return lightgbm_params(
+            self.task, len(data.y), max(len(data.classes), 1), data.seed, data.n_threads, mono
+        )
 
     def fit(self, data: FitData) -> LightGBM:
         params = self._params(data)
@@ -295,10 +345,19 @@ class LightGBM(Candidate):
             rng = np.random.default_rng(data.seed)
             held = rng.choice(blocks, size=max(1, blocks.size // 5), replace=False)
             val = np.isin(data.groups, held)
-            train_set = lgb.Dataset(X[~val], data.y[~val], weight=data.weights[~val], params={"verbose": -1})
-            val_set = lgb.Dataset(X[val], data.y[val], weight=data.weights[val], reference=train_set)
-            probe = lgb.train(params, train_set, num_boost_round=self.max_rounds, valid_sets=[val_set],
-                              callbacks=[lgb.early_stopping(30, verbose=False)])
+            train_set = lgb.Dataset(
+                X[~val], data.y[~val], weight=data.weights[~val], params={"verbose": -1}
+            )
+            val_set = lgb.Dataset(
+                X[val], data.y[val], weight=data.weights[val], reference=train_set
+            )
+            probe = lgb.train(
+                params,
+                train_set,
+                num_boost_round=self.max_rounds,
+                valid_sets=[val_set],
+                callbacks=[lgb.early_stopping(30, verbose=False)],
+            )
             rounds = max(20, probe.best_iteration or self.max_rounds)
         else:
             rounds = 150
@@ -330,8 +389,15 @@ class LightGBM(Candidate):
         # the same data and seed give byte-identical files whatever the thread count
         text = re.sub(r"\[num_threads: \d+\]", "[num_threads: 0]", self.booster_.model_to_string())
         (folder / name).write_text(text, encoding="utf-8")
-        return {"type": self.kind, "task": self.task, "name": self.name, "features": self.features,
-                "monotone": self.monotone or {}, "rounds": self.rounds_, "file": name}
+        return {
+            "type": self.kind,
+            "task": self.task,
+            "name": self.name,
+            "features": self.features,
+            "monotone": self.monotone or {},
+            "rounds": self.rounds_,
+            "file": name,
+        }
 
     @classmethod
     def load(cls, desc: dict, folder: Path) -> LightGBM:
@@ -361,7 +427,9 @@ class Kriging(Candidate):
         return []
 
     def fit(self, data: FitData) -> Kriging:
-        self.kriging_ = OrdinaryKriging(neighbours=data.kriging_neighbours).fit(data.xy[:, 0], data.xy[:, 1], data.y)
+        self.kriging_ = OrdinaryKriging(neighbours=data.kriging_neighbours).fit(
+            data.xy[:, 0], data.xy[:, 1], data.y
+        )
         return self
 
     def predict(self, X, xy) -> np.ndarray:
@@ -392,7 +460,9 @@ class RegressionKriging(Candidate):
     def fit(self, data: FitData) -> RegressionKriging:
         self.drift_ = Linear(self.features).fit(data)
         resid = data.y - self.drift_.predict(data.X)
-        self.kriging_ = OrdinaryKriging(neighbours=data.kriging_neighbours).fit(data.xy[:, 0], data.xy[:, 1], resid)
+        self.kriging_ = OrdinaryKriging(neighbours=data.kriging_neighbours).fit(
+            data.xy[:, 0], data.xy[:, 1], resid
+        )
         return self
 
     def predict(self, X, xy) -> np.ndarray:
@@ -404,8 +474,13 @@ class RegressionKriging(Candidate):
         return values, base
 
     def save(self, folder: Path, stem: str) -> dict:
-        return {"type": self.kind, "name": self.name, "features": self.features,
-                "drift": self.drift_.save(folder, stem), "kriging": self.kriging_.to_dict()}
+        return {
+            "type": self.kind,
+            "name": self.name,
+            "features": self.features,
+            "drift": self.drift_.save(folder, stem),
+            "kriging": self.kriging_.to_dict(),
+        }
 
     @classmethod
     def load(cls, desc: dict, folder: Path) -> RegressionKriging:
@@ -430,29 +505,50 @@ class FaciesMixture(Candidate):
     kind = "facies_mixture"
     MIN_PER_FEATURE = 5
 
-    def __init__(self, features: list[str], name: str = "facies_mixture", member_features: list[str] | None = None):
+    def __init__(
+        self,
+        features: list[str],
+        name: str = "facies_mixture",
+        member_features: list[str] | None = None,
+    ):
         self.features = features
         self.name = name
         self.member_features = member_features
 
     def fit(self, data: FitData) -> FaciesMixture:
         known = data.facies >= 0
-        classifier_data = FitData(data.X[known].reset_index(drop=True), data.facies[known], data.weights[known],
-                                  data.xy[known], data.groups[known], data.facies_classes, seed=data.seed,
-                                  n_threads=data.n_threads)
-        self.classifier_ = LightGBM("classification", self.features, "facies_classifier").fit(classifier_data)
+        classifier_data = FitData(
+            data.X[known].reset_index(drop=True),
+            data.facies[known],
+            data.weights[known],
+            data.xy[known],
+            data.groups[known],
+            data.facies_classes,
+            seed=data.seed,
+            n_threads=data.n_threads,
+        )
+        self.classifier_ = LightGBM("classification", self.features, "facies_classifier").fit(
+            classifier_data
+        )
         self.members_, self.limits_ = [], []
         for code in range(len(data.facies_classes)):
             sel = data.facies == code
             values = data.y[sel] if sel.any() else data.y
             spread = 0.25 * float(np.ptp(values))
             self.limits_.append([float(values.min()) - spread, float(values.max()) + spread])
-            usable = [f for f in (self.features, self.member_features)
-                      if f and sel.sum() >= self.MIN_PER_FEATURE * (len(f) + 1)]
+            usable = [
+                f
+                for f in (self.features, self.member_features)
+                if f and sel.sum() >= self.MIN_PER_FEATURE * (len(f) + 1)
+            ]
             if usable:
                 self.members_.append(Linear(usable[0]).fit(data.subset(np.flatnonzero(sel))))
             else:
-                mean = float(np.average(data.y[sel], weights=data.weights[sel])) if sel.any() else float(data.y.mean())
+                mean = (
+                    float(np.average(data.y[sel], weights=data.weights[sel]))
+                    if sel.any()
+                    else float(data.y.mean())
+                )
                 self.members_.append(mean)
         return self
 
@@ -469,16 +565,25 @@ class FaciesMixture(Candidate):
         return permutation_contributions(self.predict, self.features, X, names, background, seed)
 
     def save(self, folder: Path, stem: str) -> dict:
-        return {"type": self.kind, "name": self.name, "features": self.features,
-                "member_features": self.member_features, "limits": self.limits_,
-                "classifier": self.classifier_.save(folder, f"{stem}.classifier"),
-                "members": [m.save(folder, stem) if isinstance(m, Linear) else m for m in self.members_]}
+        return {
+            "type": self.kind,
+            "name": self.name,
+            "features": self.features,
+            "member_features": self.member_features,
+            "limits": self.limits_,
+            "classifier": self.classifier_.save(folder, f"{stem}.classifier"),
+            "members": [
+                m.save(folder, stem) if isinstance(m, Linear) else m for m in self.members_
+            ],
+        }
 
     @classmethod
     def load(cls, desc: dict, folder: Path) -> FaciesMixture:
         model = cls(desc["features"], desc["name"], desc.get("member_features"))
         model.classifier_ = LightGBM.load(desc["classifier"], folder)
-        model.members_ = [Linear.load(m, folder) if isinstance(m, dict) else float(m) for m in desc["members"]]
+        model.members_ = [
+            Linear.load(m, folder) if isinstance(m, dict) else float(m) for m in desc["members"]
+        ]
         model.limits_ = desc.get("limits") or [[-np.inf, np.inf]] * len(model.members_)
         return model
 
@@ -507,7 +612,9 @@ class WellTies(Candidate):
     def fit(self, data: FitData) -> WellTies:
         oof = out_of_fold(self.base, data)
         self.base_ = clone(self.base).fit(data)
-        self.kriging_ = OrdinaryKriging(neighbours=data.kriging_neighbours).fit(data.xy[:, 0], data.xy[:, 1], data.y - oof)
+        self.kriging_ = OrdinaryKriging(neighbours=data.kriging_neighbours).fit(
+            data.xy[:, 0], data.xy[:, 1], data.y - oof
+        )
         return self
 
     def _ties(self, xy) -> np.ndarray:
@@ -525,8 +632,12 @@ class WellTies(Candidate):
         return self.kriging_.predict(xy[:, 0], xy[:, 1], return_variance=True)[1]
 
     def save(self, folder: Path, stem: str) -> dict:
-        return {"type": self.kind, "name": self.name, "base": self.base_.save(folder, stem),
-                "kriging": self.kriging_.to_dict()}
+        return {
+            "type": self.kind,
+            "name": self.name,
+            "base": self.base_.save(folder, stem),
+            "kriging": self.kriging_.to_dict(),
+        }
 
     @classmethod
     def load(cls, desc: dict, folder: Path) -> WellTies:
@@ -551,7 +662,9 @@ class Blend(Candidate):
 
     kind = "blend"
 
-    def __init__(self, members: list[Candidate], weights, name: str = "blend", member_oof=None, y_all=None):
+    def __init__(
+        self, members: list[Candidate], weights, name: str = "blend", member_oof=None, y_all=None
+    ):
         self.members = members
         self.weights = weights
         self.name = name
@@ -568,7 +681,9 @@ class Blend(Candidate):
 
     def fit(self, data: FitData) -> Blend:
         if self.member_oof is not None:
-            self.weights_ = blend_weights(self.member_oof[data.rows], self.y_all[data.rows], data.weights)
+            self.weights_ = blend_weights(
+                self.member_oof[data.rows], self.y_all[data.rows], data.weights
+            )
         else:
             self.weights_ = np.asarray(self.weights, float)
         self.members_ = [clone(m).fit(data) for m in self.members]
@@ -584,25 +699,37 @@ class Blend(Candidate):
         return sum(self._weighted(lambda m: m.raw_output(X, xy)))
 
     def contributions(self, X, xy, names, background=None, seed=0):
-        parts = [(w, m.contributions(X, xy, names, background, seed))
-                 for w, m in zip(self.weights_, self.members_, strict=True) if w > 0]
+        parts = [
+            (w, m.contributions(X, xy, names, background, seed))
+            for w, m in zip(self.weights_, self.members_, strict=True)
+            if w > 0
+        ]
         return sum(w * v for w, (v, _) in parts), sum(w * b for w, (_, b) in parts)
 
     def save(self, folder: Path, stem: str) -> dict:
-        return {"type": self.kind, "name": self.name, "weights": self.weights_.tolist(),
-                "members": [m.save(folder, f"{stem}.member{i}") for i, m in enumerate(self.members_)]}
+        return {
+            "type": self.kind,
+            "name": self.name,
+            "weights": self.weights_.tolist(),
+            "members": [m.save(folder, f"{stem}.member{i}") for i, m in enumerate(self.members_)],
+        }
 
     @classmethod
     def load(cls, desc: dict, folder: Path) -> Blend:
-        model = cls([load_candidate(m, folder) for m in desc["members"]], desc["weights"], desc["name"])
+        model = cls(
+            [load_candidate(m, folder) for m in desc["members"]], desc["weights"], desc["name"]
+        )
         model.members_, model.weights_ = model.members, np.asarray(desc["weights"], float)
         return model
 
 
 def combine(predictions: np.ndarray, weights: np.ndarray) -> np.ndarray:
     """Weighted sum over the member axis (1) of (n, m) values or (n, m, k) class probabilities."""
-    return np.tensordot(predictions, weights, axes=([1], [0])) if predictions.ndim == 2 else \
-        np.einsum("nmk,m->nk", predictions, weights)
+    return (
+        np.tensordot(predictions, weights, axes=([1], [0]))
+        if predictions.ndim == 2
+        else np.einsum("nmk,m->nk", predictions, weights)
+    )
 
 
 def blend_weights(predictions: np.ndarray, y: np.ndarray, sample_weight: np.ndarray) -> np.ndarray:
@@ -621,8 +748,13 @@ def blend_weights(predictions: np.ndarray, y: np.ndarray, sample_weight: np.ndar
         return float(-np.sum(sw * np.log(p)))
 
     start = np.full(m, 1.0 / m)
-    result = minimize(loss, start, method="SLSQP", bounds=[(0.0, 1.0)] * m,
-                      constraints=[{"type": "eq", "fun": lambda w: np.sum(w) - 1.0}])
+    result = minimize(
+        loss,
+        start,
+        method="SLSQP",
+        bounds=[(0.0, 1.0)] * m,
+        constraints=[{"type": "eq", "fun": lambda w: np.sum(w) - 1.0}],
+    )
     w = np.clip(result.x if result.success else start, 0.0, None)
     w[w < 1e-3] = 0.0
     return w / w.sum()
@@ -653,11 +785,20 @@ def out_of_fold(candidate, data: FitData, splits=None) -> np.ndarray:
 
 
 BASELINES = ("linear", "logistic", "ordinary_kriging", "regression_kriging")
-MAP_ONLY = ("ordinary_kriging", "regression_kriging")  # kriging of a 2-D map; not offered for volumes
+MAP_ONLY = (
+    "ordinary_kriging",
+    "regression_kriging",
+)  # kriging of a 2-D map; not offered for volumes
 
 
-def leaderboard_candidates(task: str, attrs: list[str], names: list[str], volume: bool = False,
-                           facies_mixture: bool = False, monotone: dict[str, int] | None = None) -> list[Candidate]:
+def leaderboard_candidates(
+    task: str,
+    attrs: list[str],
+    names: list[str],
+    volume: bool = False,
+    facies_mixture: bool = False,
+    monotone: dict[str, int] | None = None,
+) -> list[Candidate]:
     """The candidates cross-validated for one target, baselines first.
 
     ``attrs`` are the grid's attributes and ``names`` every feature; the candidates on the
@@ -668,8 +809,10 @@ def leaderboard_candidates(task: str, attrs: list[str], names: list[str], volume
     if task == "classification":
         out = [Logistic(attrs), LightGBM("classification", names)]
         if names != attrs:
-            out += [Logistic(names, "logistic_all_features"),
-                    LightGBM("classification", attrs, "lightgbm_attributes_only")]
+            out += [
+                Logistic(names, "logistic_all_features"),
+                LightGBM("classification", attrs, "lightgbm_attributes_only"),
+            ]
     else:
         out = [Linear(attrs), Kriging(), RegressionKriging(attrs), LightGBM("regression", names)]
         if names != attrs:

@@ -28,8 +28,10 @@ def monotone_pair(text: str) -> tuple[str, int]:
     """``ATTR:-1`` or ``ATTR:1`` (the --monotone option) as (attribute, direction)."""
     name, _, direction = text.rpartition(":")
     if not name or direction not in ("-1", "1", "+1"):
-        raise argparse.ArgumentTypeError(f"{text!r}: give an attribute and a direction, e.g. impedance:-1 "
-                                         "(non-increasing) or impedance:1 (non-decreasing)")
+        raise argparse.ArgumentTypeError(
+            f"{text!r}: give an attribute and a direction, e.g. impedance:-1 "
+            "(non-increasing) or impedance:1 (non-decreasing)"
+        )
     return name, int(direction)
 
 
@@ -93,4 +95,6 @@ def check_choices(obj) -> None:
         if choices and value not in choices:
             flag = f.metadata.get("flag")
             where = f"{flag} / {f.name}" if flag else f.name
-            raise InputError(f"{where} = {value!r} is not known; choose one of {', '.join(choices)}")
+            raise InputError(
+                f"{where} = {value!r} is not known; choose one of {', '.join(choices)}"
+            )

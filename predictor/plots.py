@@ -33,13 +33,20 @@ def save(fig, path: str | Path) -> Path:
 def _extent(grid: xr.Dataset) -> list[float]:
     dx = float(grid.x[1] - grid.x[0])
     dy = float(grid.y[1] - grid.y[0])
-    return [float(grid.x[0]) - dx / 2, float(grid.x[-1]) + dx / 2, float(grid.y[0]) - dy / 2, float(grid.y[-1]) + dy / 2]
+    return [
+        float(grid.x[0]) - dx / 2,
+        float(grid.x[-1]) + dx / 2,
+        float(grid.y[0]) - dy / 2,
+        float(grid.y[-1]) + dy / 2,
+    ]
 
 
 def _background(ax, grid: xr.Dataset, var: str, cmap="Greys", **kw):
     im = ax.imshow(grid[var].to_numpy(), origin="lower", extent=_extent(grid), cmap=cmap, **kw)
     ax.set_aspect("equal")
-    xlabel, ylabel = grid.attrs.get("axis_labels", ("x (m)", "y (m)"))  # a volume's map view is in line numbers
+    xlabel, ylabel = grid.attrs.get(
+        "axis_labels", ("x (m)", "y (m)")
+    )  # a volume's map view is in line numbers
     ax.set_xlabel(xlabel)
     ax.set_ylabel(ylabel)
     ax.ticklabel_format(useOffset=False, style="plain")
@@ -48,16 +55,29 @@ def _background(ax, grid: xr.Dataset, var: str, cmap="Greys", **kw):
     return im
 
 
-KNOWN_FACIES = {"sand": "#f2d95c", "sandstone": "#f2d95c", "silt": "#b8a27a", "siltstone": "#b8a27a",
-                "shale": "#5b4a3c", "mudstone": "#5b4a3c", "carbonate": "#7fa7c9", "limestone": "#7fa7c9"}
+KNOWN_FACIES = {
+    "sand": "#f2d95c",
+    "sandstone": "#f2d95c",
+    "silt": "#b8a27a",
+    "siltstone": "#b8a27a",
+    "shale": "#5b4a3c",
+    "mudstone": "#5b4a3c",
+    "carbonate": "#7fa7c9",
+    "limestone": "#7fa7c9",
+}
 
 
 def _category_colours(labels) -> dict:
     classes = sorted(set(map(str, labels)))
-    return {c: KNOWN_FACIES.get(c.lower(), FACIES_COLOURS[i % len(FACIES_COLOURS)]) for i, c in enumerate(classes)}
+    return {
+        c: KNOWN_FACIES.get(c.lower(), FACIES_COLOURS[i % len(FACIES_COLOURS)])
+        for i, c in enumerate(classes)
+    }
 
 
-def location_maps(wells: pd.DataFrame, grid: xr.Dataset, attribute: str, properties: list[str], path) -> Path:
+def location_maps(
+    wells: pd.DataFrame, grid: xr.Dataset, attribute: str, properties: list[str], path
+) -> Path:
     """One panel per well property, wells coloured by it over the attribute map."""
     n = max(len(properties), 1)
     fig, axes = plt.subplots(1, n, figsize=(5.0 * n, 4.4), squeeze=False, layout="constrained")
@@ -100,8 +120,14 @@ def _names_on(ax, wells: pd.DataFrame) -> None:
     if np.median(gaps) < NAMES_SPACING * width:
         return
     for name, (x, y) in heads.iterrows():
-        ax.annotate(str(name), (x, y), xytext=(3, 3), textcoords="offset points", fontsize=6,
-                    bbox={"boxstyle": "round,pad=0.1", "fc": "white", "ec": "none", "alpha": 0.6})
+        ax.annotate(
+            str(name),
+            (x, y),
+            xytext=(3, 3),
+            textcoords="offset points",
+            fontsize=6,
+            bbox={"boxstyle": "round,pad=0.1", "fc": "white", "ec": "none", "alpha": 0.6},
+        )
 
 
 def bias_figure(at_wells, over_map, attribute: str, verdict: str, path) -> Path:
@@ -116,7 +142,10 @@ def bias_figure(at_wells, over_map, attribute: str, verdict: str, path) -> Path:
     h.set_xlabel(attribute)
     h.set_ylabel("density")
     h.legend(fontsize=8)
-    for ax in (h, c):  # impedance values are five digits wide: a few ticks, so the labels never touch
+    for ax in (
+        h,
+        c,
+    ):  # impedance values are five digits wide: a few ticks, so the labels never touch
         ax.xaxis.set_major_locator(matplotlib.ticker.MaxNLocator(5))
     for values, colour, name in ((b, "grey", "map"), (a, "tab:red", "wells")):
         s = np.sort(values)
@@ -153,7 +182,12 @@ def declustering_figure(decl, path) -> Path:
     fig, ax = plt.subplots(figsize=(5.5, 3.8))
     ax.plot(decl.sizes, decl.curve, "o-", ms=3, label="declustered mean")
     ax.axhline(decl.naive_mean, color="grey", ls="--", label="naive mean")
-    ax.axvline(decl.cell_size, color="tab:red", ls=":", label=f"chosen {decl.cell_size:.0f} m ({decl.direction})")
+    ax.axvline(
+        decl.cell_size,
+        color="tab:red",
+        ls=":",
+        label=f"chosen {decl.cell_size:.0f} m ({decl.direction})",
+    )
     ax.set_xlabel("cell size (m)")
     ax.set_ylabel(f"mean {decl.variable or ''}")
     ax.legend(fontsize=8)
@@ -167,16 +201,36 @@ def weighted_histograms(values, weights, name: str, path, truth=None) -> Path:
     fig, ax = plt.subplots(figsize=(5.5, 3.8))
     bins = np.linspace(np.nanmin(v), np.nanmax(v), 25)
     ax.hist(v[ok], bins=bins, density=True, alpha=0.45, label="naive (wells)")
-    ax.hist(v[ok], bins=bins, weights=np.asarray(weights)[ok], density=True, alpha=0.45, label="declustered")
+    ax.hist(
+        v[ok],
+        bins=bins,
+        weights=np.asarray(weights)[ok],
+        density=True,
+        alpha=0.45,
+        label="declustered",
+    )
     if truth is not None:
-        ax.hist(np.asarray(truth).ravel(), bins=bins, density=True, histtype="step", color="k", label="map truth")
+        ax.hist(
+            np.asarray(truth).ravel(),
+            bins=bins,
+            density=True,
+            histtype="step",
+            color="k",
+            label="map truth",
+        )
     ax.set_xlabel(name)
     ax.legend(fontsize=8)
     return save(fig, path)
 
 
-def _wells_on(ax, wells: pd.DataFrame | None, column: str | None = None, image=None, colours: dict | None = None,
-              log: bool = False):
+def _wells_on(
+    ax,
+    wells: pd.DataFrame | None,
+    column: str | None = None,
+    image=None,
+    colours: dict | None = None,
+    log: bool = False,
+):
     """Wells on a map panel with a dark edge; with ``column``, filled with their own logged value
     on the panel's colour scale (``image``) or class colour (``colours``), so a misfit shows."""
     if wells is None:
@@ -209,12 +263,21 @@ def facies_maps(maps: xr.Dataset, target: str, wells: pd.DataFrame | None, path)
     codes[codes < 0] = np.nan
     cmap = matplotlib.colors.ListedColormap([colours[c] for c in classes])
     ax = axes[0][0]
-    im = _background(ax, maps.assign(_codes=(("y", "x"), codes)), "_codes", cmap=cmap, vmin=-0.5,
-                     vmax=len(classes) - 0.5)
+    im = _background(
+        ax,
+        maps.assign(_codes=(("y", "x"), codes)),
+        "_codes",
+        cmap=cmap,
+        vmin=-0.5,
+        vmax=len(classes) - 0.5,
+    )
     bar = fig.colorbar(im, ax=ax, shrink=0.7, ticks=range(len(classes)), location="bottom")
     bar.ax.set_xticklabels(classes, fontsize=8)
     _wells_on(ax, wells, target, colours=colours)  # each well in the colour of its logged class
-    ax.set_title("\n".join(_wrap(maps[target].attrs.get("long_name", f"most probable {target}"), 40)), fontsize=9)
+    ax.set_title(
+        "\n".join(_wrap(maps[target].attrs.get("long_name", f"most probable {target}"), 40)),
+        fontsize=9,
+    )
     for ax, cls in zip(axes[0][1:], classes, strict=True):
         im = _background(ax, maps, f"{target}_prob_{cls}", cmap="magma", vmin=0, vmax=1)
         fig.colorbar(im, ax=ax, shrink=0.7, location="bottom", label="probability")
@@ -223,7 +286,9 @@ def facies_maps(maps: xr.Dataset, target: str, wells: pd.DataFrame | None, path)
     return save(fig, path)
 
 
-def property_maps(maps: xr.Dataset, target: str, wells: pd.DataFrame | None, path, log: bool = False) -> Path:
+def property_maps(
+    maps: xr.Dataset, target: str, wells: pd.DataFrame | None, path, log: bool = False
+) -> Path:
     """Median (q50) map and interval width (q90 - q10), wells on top."""
     fig, axes = plt.subplots(1, 2, figsize=(10.5, 4.3), layout="constrained")
     q50 = maps[target]
@@ -235,12 +300,20 @@ def property_maps(maps: xr.Dataset, target: str, wells: pd.DataFrame | None, pat
     unit = " (log10 mD)" if log else ""
     im = _background(axes[0], shown, "_q50", cmap="viridis")
     fig.colorbar(im, ax=axes[0], shrink=0.7, location="bottom", label=f"{target} q50{unit}")
-    _wells_on(axes[0], wells, target, image=im, log=log)  # the wells' logged values on the map's scale
+    _wells_on(
+        axes[0], wells, target, image=im, log=log
+    )  # the wells' logged values on the map's scale
     im = _background(axes[1], shown, "_width", cmap="cividis")
     fig.colorbar(im, ax=axes[1], shrink=0.7, location="bottom", label=f"q90 - q10{unit}")
     _wells_on(axes[1], wells)
-    for ax, title in zip(axes, (f"{target}: median (q50), wells filled with their logged value",
-                                f"{target}: 80 % interval width"), strict=True):
+    for ax, title in zip(
+        axes,
+        (
+            f"{target}: median (q50), wells filled with their logged value",
+            f"{target}: 80 % interval width",
+        ),
+        strict=True,
+    ):
         ax.set_title(title, fontsize=10)
     return save(fig, path)
 
@@ -252,12 +325,23 @@ def distance_cdfs(design: dict, target: str, path) -> Path:
     levels = np.asarray(cdf["levels"])
     fig, ax = plt.subplots(figsize=(6.5, 3.8), layout="constrained")
     ax.plot(cdf["map"], levels, color="black", lw=2.5, label="map nodes to nearest well (target)")
-    styles = {"matched": "tab:blue", "nndm": "tab:cyan", "blocks": "tab:orange", "buffered": "tab:purple",
-              "random": "tab:gray"}
+    styles = {
+        "matched": "tab:blue",
+        "nndm": "tab:cyan",
+        "blocks": "tab:orange",
+        "buffered": "tab:purple",
+        "random": "tab:gray",
+    }
     for name, info in design["designs"].items():
         chosen = " (used)" if name == design["chosen"] else ""
-        ax.plot(cdf[name], levels, color=styles.get(name, "tab:green"), lw=2 if chosen else 1.2,
-                ls="-" if chosen else "--", label=f"{name} CV: held-out well to training, W = {info['w']:.0f} m{chosen}")
+        ax.plot(
+            cdf[name],
+            levels,
+            color=styles.get(name, "tab:green"),
+            lw=2 if chosen else 1.2,
+            ls="-" if chosen else "--",
+            label=f"{name} CV: held-out well to training, W = {info['w']:.0f} m{chosen}",
+        )
     ax.set_xlabel("distance to the nearest well (m)")
     ax.set_ylabel("share of locations (cumulative)")
     ax.set_ylim(0, 1)
@@ -283,7 +367,9 @@ def leaderboard_chart(leaderboard: list[dict], metric: str, target: str, path) -
     ax.set_yticks(pos, names, fontsize=8)
     ax.invert_yaxis()
     ax.set_xlabel(f"{metric} (declustering-weighted)")
-    ax.set_title(f"{target}: cross-validation leaderboard (* chosen, hatched = baseline)", fontsize=10)
+    ax.set_title(
+        f"{target}: cross-validation leaderboard (* chosen, hatched = baseline)", fontsize=10
+    )
     ax.legend(fontsize=8, loc="upper center", bbox_to_anchor=(0.5, -0.18), ncol=2)
     return save(fig, path)
 
@@ -293,35 +379,53 @@ def importance_chart(imp: pd.Series, target: str, path, unit: str = "") -> Path:
     imp = imp[imp > 0].sort_values()
     fig, ax = plt.subplots(figsize=(6.5, 0.35 * len(imp) + 1.5), layout="constrained")
     ax.barh([describe_feature(n) for n in imp.index], imp.to_numpy(), color="tab:blue")
-    ax.set_xlabel("mean |contribution| at the wells" + (f", in {unit}" if unit else "") + " (declustering-weighted)")
+    ax.set_xlabel(
+        "mean |contribution| at the wells"
+        + (f", in {unit}" if unit else "")
+        + " (declustering-weighted)"
+    )
     ax.set_title(f"{target}: what the model leans on", fontsize=10)
     return save(fig, path)
 
 
-def shap_summary(values: np.ndarray, X: pd.DataFrame, names: list[str], title: str, path, max_display: int = 8) -> Path:
+def shap_summary(
+    values: np.ndarray, X: pd.DataFrame, names: list[str], title: str, path, max_display: int = 8
+) -> Path:
     """Beeswarm summary drawn by the shap package."""
     import shap
 
-    explanation = shap.Explanation(values=values, data=X[names].to_numpy(float), feature_names=names)
-    shap.plots.beeswarm(explanation, max_display=max_display, show=False, plot_size=(7, 0.4 * min(len(names),
-                                                                                            max_display) + 2))
+    explanation = shap.Explanation(
+        values=values, data=X[names].to_numpy(float), feature_names=names
+    )
+    shap.plots.beeswarm(
+        explanation,
+        max_display=max_display,
+        show=False,
+        plot_size=(7, 0.4 * min(len(names), max_display) + 2),
+    )
     fig = plt.gcf()
     fig.suptitle(title, fontsize=10)
     return save(fig, path)
 
 
-def shap_dependence(values: np.ndarray, X: pd.DataFrame, names: list[str], feature: str, title: str, path) -> Path:
+def shap_dependence(
+    values: np.ndarray, X: pd.DataFrame, names: list[str], feature: str, title: str, path
+) -> Path:
     """Dependence (scatter) plot of one feature's contribution, drawn by the shap package."""
     import shap
 
-    explanation = shap.Explanation(values=values, data=X[names].to_numpy(float), feature_names=names)
+    explanation = shap.Explanation(
+        values=values, data=X[names].to_numpy(float), feature_names=names
+    )
     fig, ax = plt.subplots(figsize=(5.5, 4))
     shap.plots.scatter(explanation[:, names.index(feature)], ax=ax, show=False)
     ax.set_title(title, fontsize=10)
     return save(fig, path)
 
 
-def shap_maps(maps: xr.Dataset, variables: list[str], wells: pd.DataFrame | None, path, unit: str = "") -> Path:
+def shap_maps(
+    maps: xr.Dataset, variables: list[str], wells: pd.DataFrame | None, path, unit: str = ""
+) -> Path:
     """Contribution maps of the top features (diverging colours around zero), in ``unit`` (the
     model's raw output: a fraction, log10 mD or log-odds)."""
     n = len(variables)
@@ -329,20 +433,29 @@ def shap_maps(maps: xr.Dataset, variables: list[str], wells: pd.DataFrame | None
     for ax, var in zip(axes[0], variables, strict=True):
         limit = float(np.nanmax(np.abs(maps[var].to_numpy()))) or 1.0
         im = _background(ax, maps, var, cmap="RdBu_r", vmin=-limit, vmax=limit)
-        fig.colorbar(im, ax=ax, shrink=0.7, location="bottom", label=f"contribution ({unit})" if unit else
-                     "contribution")
+        fig.colorbar(
+            im,
+            ax=ax,
+            shrink=0.7,
+            location="bottom",
+            label=f"contribution ({unit})" if unit else "contribution",
+        )
         _wells_on(ax, wells)
         ax.set_title("\n".join(_wrap(maps[var].attrs.get("long_name", var), 42)), fontsize=9)
     return save(fig, path)
 
 
-def applicability_map(maps: xr.Dataset, target: str, wells: pd.DataFrame | None, path, log: bool = False) -> Path:
+def applicability_map(
+    maps: xr.Dataset, target: str, wells: pd.DataFrame | None, path, log: bool = False
+) -> Path:
     """The target's map with the nodes outside the area of applicability shaded (facies: the
     probability of the most probable class; permeability with ``log``: log10 mD)."""
     fig, ax = plt.subplots(figsize=(5.8, 4.6), layout="constrained")
     if "flag_meanings" in maps[target].attrs:  # classes: how sure the model is, not which class
         probs = [f"{target}_prob_{c}" for c in maps[target].attrs["flag_meanings"].split(" ")]
-        shown = maps.assign(_top=(("y", "x"), np.nanmax(np.stack([maps[p].to_numpy() for p in probs]), axis=0)))
+        shown = maps.assign(
+            _top=(("y", "x"), np.nanmax(np.stack([maps[p].to_numpy() for p in probs]), axis=0))
+        )
         im = _background(ax, shown, "_top", cmap="magma", vmin=0, vmax=1)
         label = f"{target}: probability of the most probable class"
     else:
@@ -350,10 +463,20 @@ def applicability_map(maps: xr.Dataset, target: str, wells: pd.DataFrame | None,
         im = _background(ax, maps.assign(_v=values), "_v", **style)
     fig.colorbar(im, ax=ax, shrink=0.7, location="bottom", label=label)
     outside = (maps[f"{target}_applicable"].to_numpy() == 0).astype(float)
-    ax.imshow(np.where(outside > 0, 1.0, np.nan), origin="lower", extent=_extent(maps), cmap="Greys",
-              vmin=0, vmax=1.2, alpha=0.65)
+    ax.imshow(
+        np.where(outside > 0, 1.0, np.nan),
+        origin="lower",
+        extent=_extent(maps),
+        cmap="Greys",
+        vmin=0,
+        vmax=1.2,
+        alpha=0.65,
+    )
     _wells_on(ax, wells)
-    ax.set_title(f"{target}: outside the area of applicability shaded ({outside.mean():.1%} of nodes)", fontsize=9)
+    ax.set_title(
+        f"{target}: outside the area of applicability shaded ({outside.mean():.1%} of nodes)",
+        fontsize=9,
+    )
     return save(fig, path)
 
 
@@ -363,17 +486,31 @@ def field_wide_cdfs(summary: dict, target: str, path, log: bool = False) -> Path
     dist = summary["distribution"]
     levels = np.asarray(dist["levels"])
     fig, ax = plt.subplots(figsize=(6.5, 3.8), layout="constrained")
-    styles = {"naive": ("tab:gray", "raw wells"), "declustered_nearest_node": ("tab:orange", "declustered"),
-              "debiased_seismic": ("tab:blue", "debiased with the seismic")}
+    styles = {
+        "naive": ("tab:gray", "raw wells"),
+        "declustered_nearest_node": ("tab:orange", "declustered"),
+        "debiased_seismic": ("tab:blue", "debiased with the seismic"),
+    }
     for key, (colour, label) in styles.items():
         if key in dist:
-            ax.plot(dist[key], levels, color=colour, lw=2 if key == "debiased_seismic" else 1.3, marker=".",
-                    label=label)
+            ax.plot(
+                dist[key],
+                levels,
+                color=colour,
+                lw=2 if key == "debiased_seismic" else 1.3,
+                marker=".",
+                label=label,
+            )
     for key, est in summary["estimates"].items():
         colour = styles.get(key, ("tab:green", ""))[0]
         ax.axvline(est["mean"], color=colour, lw=0.8, ls=":" if key != summary["method"] else "-")
-    ax.axvspan(summary["interval"]["q10"], summary["interval"]["q90"], color="tab:green", alpha=0.15,
-               label="recommended field-wide mean: q10-q90 (bootstrap)")
+    ax.axvspan(
+        summary["interval"]["q10"],
+        summary["interval"]["q90"],
+        color="tab:green",
+        alpha=0.15,
+        label="recommended field-wide mean: q10-q90 (bootstrap)",
+    )
     if log:
         ax.set_xscale("log")
     ax.set_xlabel(f"{target} (mD, log scale)" if log else target)
@@ -384,8 +521,15 @@ def field_wide_cdfs(summary: dict, target: str, path, log: bool = False) -> Path
     return save(fig, path)
 
 
-def reliability_diagram(observed: np.ndarray, proba: np.ndarray, weights: np.ndarray, classes: list[str],
-                        target: str, path, n_bins: int = 5) -> Path:
+def reliability_diagram(
+    observed: np.ndarray,
+    proba: np.ndarray,
+    weights: np.ndarray,
+    classes: list[str],
+    target: str,
+    path,
+    n_bins: int = 5,
+) -> Path:
     """Out-of-fold predicted probability of each class against the (declustering-weighted)
     observed frequency in bins of the prediction: on the diagonal when the probabilities are
     calibrated."""
@@ -396,9 +540,15 @@ def reliability_diagram(observed: np.ndarray, proba: np.ndarray, weights: np.nda
     for k, cls in enumerate(classes):
         b = np.clip(np.digitize(proba[:, k], edges) - 1, 0, n_bins - 1)
         hit = (np.asarray(observed) == cls).astype(float)
-        shown = [(np.average(proba[b == i, k], weights=weights[b == i]),
-                  np.average(hit[b == i], weights=weights[b == i]), int(np.sum(b == i)))
-                 for i in range(n_bins) if np.sum(b == i) >= 3]
+        shown = [
+            (
+                np.average(proba[b == i, k], weights=weights[b == i]),
+                np.average(hit[b == i], weights=weights[b == i]),
+                int(np.sum(b == i)),
+            )
+            for i in range(n_bins)
+            if np.sum(b == i) >= 3
+        ]
         if shown:
             px, fy, n = map(np.asarray, zip(*shown, strict=True))
             ax.plot(px, fy, color=colours[cls], marker="o", lw=1.5, label=cls, markeredgecolor="k")
@@ -430,12 +580,20 @@ def _property(wells: pd.DataFrame, col: str) -> tuple[np.ndarray, str]:
     return v, "porosity (fraction)" if col == "porosity" else col
 
 
-def crossplot(wells: pd.DataFrame, attribute: str, at_wells: np.ndarray, properties: list[str], path) -> Path:
+def crossplot(
+    wells: pd.DataFrame, attribute: str, at_wells: np.ndarray, properties: list[str], path
+) -> Path:
     """The attribute at the wells against each property, wells coloured by facies, with the
     least-squares line of each facies (3 wells or more) and of all wells (dashed)."""
-    fig, axes = plt.subplots(1, len(properties), figsize=(5.2 * len(properties), 4.0), squeeze=False)
+    fig, axes = plt.subplots(
+        1, len(properties), figsize=(5.2 * len(properties), 4.0), squeeze=False
+    )
     a = np.asarray(at_wells, float)
-    facies = wells["facies"].astype(str).to_numpy() if "facies" in wells else np.full(len(wells), "all wells")
+    facies = (
+        wells["facies"].astype(str).to_numpy()
+        if "facies" in wells
+        else np.full(len(wells), "all wells")
+    )
     colours = _category_colours(facies)
     for ax, col in zip(axes[0], properties, strict=True):
         v, label = _property(wells, col)
@@ -444,12 +602,20 @@ def crossplot(wells: pd.DataFrame, attribute: str, at_wells: np.ndarray, propert
         for name, sel in groups:
             whole = name == "all wells"
             if not whole:
-                ax.scatter(a[sel], v[sel], s=22, c=colours[name], edgecolor="k", linewidths=0.5, label=name)
+                ax.scatter(
+                    a[sel], v[sel], s=22, c=colours[name], edgecolor="k", linewidths=0.5, label=name
+                )
             if sel.sum() >= 3 and np.ptp(a[sel]) > 0:
                 slope, icept = np.polyfit(a[sel], v[sel], 1)
                 xs = np.array([a[sel].min(), a[sel].max()])
-                ax.plot(xs, icept + slope * xs, linestyle="--" if whole else "-", color="k" if whole else colours[name],
-                        linewidth=1.2, label=f"{name}: fit" if whole else None)
+                ax.plot(
+                    xs,
+                    icept + slope * xs,
+                    linestyle="--" if whole else "-",
+                    color="k" if whole else colours[name],
+                    linewidth=1.2,
+                    label=f"{name}: fit" if whole else None,
+                )
         ax.set_xlabel(f"{attribute} at the wells")
         ax.set_ylabel(label)
         ax.legend(fontsize=7)
@@ -463,35 +629,76 @@ def semivariograms(wells: pd.DataFrame, properties: list[str], path) -> Path:
     from .variogram import along_wells, auto_variogram, experimental, fit_variogram
 
     vertical = "z" in wells and wells["well_id"].duplicated().any()
-    fig, axes = plt.subplots(1 + vertical, len(properties), figsize=(5.0 * len(properties), 3.8 * (1 + vertical)),
-                             squeeze=False, layout="constrained")
+    fig, axes = plt.subplots(
+        1 + vertical,
+        len(properties),
+        figsize=(5.0 * len(properties), 3.8 * (1 + vertical)),
+        squeeze=False,
+        layout="constrained",
+    )
     x, y = wells["x"].to_numpy(float), wells["y"].to_numpy(float)
-    if vertical:  # lateral pairs at about the same z: within half the median sample step along the wells
-        step = float(np.median(np.abs(np.diff(wells.sort_values(["well_id", "z"])["z"].to_numpy()))))
+    if (
+        vertical
+    ):  # lateral pairs at about the same z: within half the median sample step along the wells
+        step = float(
+            np.median(np.abs(np.diff(wells.sort_values(["well_id", "z"])["z"].to_numpy())))
+        )
     for k, col in enumerate(properties):
         v, label = _property(wells, col)
         ok = np.isfinite(v)
         if vertical:
-            exp = experimental(x[ok], y[ok], v[ok], n_lags=12, z=wells["z"].to_numpy(float)[ok], z_tolerance=step / 2)
+            exp = experimental(
+                x[ok],
+                y[ok],
+                v[ok],
+                n_lags=12,
+                z=wells["z"].to_numpy(float)[ok],
+                z_tolerance=step / 2,
+            )
             model = fit_variogram(exp)
         else:
             exp = experimental(x[ok], y[ok], v[ok], n_lags=12)
             model = auto_variogram(x[ok], y[ok], v[ok])
-        _semivariogram_panel(axes[0, k], exp, model, label, "lag distance (m)" + (", pairs at the same z" if vertical
-                                                                                  else ""), " m")
+        _semivariogram_panel(
+            axes[0, k],
+            exp,
+            model,
+            label,
+            "lag distance (m)" + (", pairs at the same z" if vertical else ""),
+            " m",
+        )
         if vertical:
             exp = along_wells(wells["z"].to_numpy(float), v, wells["well_id"].to_numpy())
-            _semivariogram_panel(axes[1, k], exp, fit_variogram(exp), label,
-                                 "lag along the wells (z units), pairs within one well", "")
+            _semivariogram_panel(
+                axes[1, k],
+                exp,
+                fit_variogram(exp),
+                label,
+                "lag along the wells (z units), pairs within one well",
+                "",
+            )
     return save(fig, path)
 
 
 def _semivariogram_panel(ax, exp, model, label: str, xlabel: str, unit: str) -> None:
-    ax.scatter(exp.lags, exp.gamma, s=10 + 40 * exp.counts / exp.counts.max(), c="tab:blue", label="experimental")
+    ax.scatter(
+        exp.lags,
+        exp.gamma,
+        s=10 + 40 * exp.counts / exp.counts.max(),
+        c="tab:blue",
+        label="experimental",
+    )
     h = np.linspace(0, exp.lags.max() * 1.05, 200)
     reach = f"{model.range:.0f}{unit}" if unit else f"{model.range:.3g}"
-    ax.plot(h, model(h), "k-", label=f"{model.kind}: nugget {model.nugget:.3g}, sill {model.nugget + model.sill:.3g}, "
-            f"range {reach}")
+    ax.plot(
+        h,
+        model(h),
+        "k-",
+        label=(
+            f"{model.kind}: nugget {model.nugget:.3g}, sill {model.nugget + model.sill:.3g}, "
+            f"range {reach}"
+        ),
+    )
     ax.set_xlabel(xlabel)
     ax.set_ylabel(f"semivariance of {label}")
     ax.set_ylim(bottom=0)
@@ -518,38 +725,55 @@ def _shown(maps: xr.Dataset, target: str, log: bool) -> tuple[xr.DataArray, dict
 def _class_ticks(bar, colours: dict | None, horizontal: bool = True) -> None:
     if colours is not None:
         bar.set_ticks(range(len(colours)))
-        (bar.ax.set_xticklabels if horizontal else bar.ax.set_yticklabels)(list(colours), fontsize=8)
+        (bar.ax.set_xticklabels if horizontal else bar.ax.set_yticklabels)(
+            list(colours), fontsize=8
+        )
 
 
-def depth_slices(slices: list[xr.Dataset], wells: list[pd.DataFrame], target: str, path, log: bool = False) -> Path:
+def depth_slices(
+    slices: list[xr.Dataset], wells: list[pd.DataFrame], target: str, path, log: bool = False
+) -> Path:
     """Map views of a predicted volume at several z on one colour scale, each well filled with its
     logged value (or class) at its sample nearest to that z."""
-    fig, axes = plt.subplots(1, len(slices), figsize=(4.3 * len(slices), 4.3), squeeze=False, layout="constrained")
+    fig, axes = plt.subplots(
+        1, len(slices), figsize=(4.3 * len(slices), 4.3), squeeze=False, layout="constrained"
+    )
     for ax, part, near in zip(axes[0], slices, wells, strict=True):
         values, style, label, colours = _shown(part, target, log)
         im = _background(ax, part.assign(_v=values), "_v", **style)
         _wells_on(ax, near, target, image=None if colours else im, colours=colours, log=log)
-        ax.set_title(f"z = {part.attrs['z_shown']:g} ({part.attrs.get('z_domain', 'unknown')})", fontsize=10)
+        ax.set_title(
+            f"z = {part.attrs['z_shown']:g} ({part.attrs.get('z_domain', 'unknown')})", fontsize=10
+        )
     bar = fig.colorbar(im, ax=list(axes[0]), shrink=0.6, location="bottom", label=label)
     _class_ticks(bar, colours)
     return save(fig, path)
 
 
-def well_section(section: xr.Dataset, on_section: pd.DataFrame, target: str, path, log: bool = False) -> Path:
+def well_section(
+    section: xr.Dataset, on_section: pd.DataFrame, target: str, path, log: bool = False
+) -> Path:
     """The predicted volume along a path through wells (z down), with each well's logged values
     as a column of squares on the same colour scale, so a misfit along the well shows."""
     values, style, label, colours = _shown(section, target, log)
     distance, z = section.distance.to_numpy(), section.z.to_numpy()
     step = float(distance[1] - distance[0]) if distance.size > 1 else 1.0
     fig, ax = plt.subplots(figsize=(10.5, 4.2), layout="constrained")
-    im = ax.imshow(values.transpose("z", "distance").to_numpy(), aspect="auto", interpolation="nearest",
-                   extent=[distance[0] - step / 2, distance[-1] + step / 2, z[-1], z[0]], **style)
+    im = ax.imshow(
+        values.transpose("z", "distance").to_numpy(),
+        aspect="auto",
+        interpolation="nearest",
+        extent=[distance[0] - step / 2, distance[-1] + step / 2, z[-1], z[0]],
+        **style,
+    )
     width = max(step * 1.5, (distance[-1] - distance[0]) / 120)
     for well, rows in on_section.groupby("well_id", sort=False):
         d = float(rows["distance"].iloc[0])
         fill = _fill(rows[target], im, colours, log)
         column = np.full(len(rows), d)
-        ax.scatter(column, rows["z"], c="white", marker="s", s=34, linewidths=0)  # sets the well apart
+        ax.scatter(
+            column, rows["z"], c="white", marker="s", s=34, linewidths=0
+        )  # sets the well apart
         ax.scatter(column, rows["z"], c=fill, marker="s", s=14, edgecolor="k", linewidths=0.3)
         ax.plot([d - width / 2, d + width / 2], [z[0], z[0]], color="k", linewidth=2)
         ax.text(d, z[0], str(well), ha="center", va="bottom", fontsize=8)

@@ -32,10 +32,18 @@ if TYPE_CHECKING:
     from .training import TrainedModels
 
 CHUNK_ROWS = 250_000
-FORMAT_LIBRARIES = {".tif": "rasterio", ".tiff": "rasterio", ".sgy": "segyio", ".segy": "segyio", ".zarr": "zarr"}
-RULE_LABELS = {"most-probable": "most probable class",
-               "balanced": "largest probability relative to the class's field-wide share",
-               "proportions": "class thresholds that reproduce the field-wide proportions"}
+FORMAT_LIBRARIES = {
+    ".tif": "rasterio",
+    ".tiff": "rasterio",
+    ".sgy": "segyio",
+    ".segy": "segyio",
+    ".zarr": "zarr",
+}
+RULE_LABELS = {
+    "most-probable": "most probable class",
+    "balanced": "largest probability relative to the class's field-wide share",
+    "proportions": "class thresholds that reproduce the field-wide proportions",
+}
 
 
 class NoValidNodes(InputError):
@@ -43,7 +51,8 @@ class NoValidNodes(InputError):
 
 
 def local_spread(spread, model, X: pd.DataFrame, xy: np.ndarray) -> np.ndarray:
-    """The local error spread that scales the intervals: a feature model, or the well-tie kriging sd."""
+    """The local error spread that scales the intervals: a feature model, or the well-tie kriging
+    sd."""
     if spread == "kriging":
         return np.sqrt(model.residual_variance(xy))
     return spread.predict(X)
@@ -55,7 +64,8 @@ def exceedance_name(target: str, cutoff: float) -> str:
 
 
 def parse_exceedance(specs: list[str] | None) -> dict[str, list[float]]:
-    """``["porosity:0.15", "permeability:100"]`` -> {target: [cutoffs]}; a class name is kept as text."""
+    """``["porosity:0.15", "permeability:100"]`` -> {target: [cutoffs]}; a class name is kept as
+    text."""
     out: dict[str, list] = {}
     for spec in specs or []:
         target, sep, value = str(spec).partition(":")
@@ -74,30 +84,47 @@ def check_exceedance(card: dict, exceed: dict[str, list] | None) -> None:
     targets = card["targets"]
     for target, cutoffs in (exceed or {}).items():
         if target not in targets:
-            raise InputError(f"--exceed {target}: the bundle has no target {target!r}; it has "
-                             f"{', '.join(targets)} (e.g. --exceed {next(iter(targets))}:...)")
+            raise InputError(
+                f"--exceed {target}: the bundle has no target {target!r}; it has "
+                f"{', '.join(targets)} (e.g. --exceed {next(iter(targets))}:...)"
+            )
         info = targets[target]
         for cutoff in cutoffs:
             if info["task"] == "classification":
                 if str(cutoff) not in info["classes"]:
-                    raise InputError(f"--exceed {target}:{cutoff}: {target} has no class {cutoff!r}; its classes are "
-                                     f"{', '.join(info['classes'])} (their probabilities are always written as "
-                                     f"{target}_prob_<class>)")
+                    raise InputError(
+                        f"--exceed {target}:{cutoff}: {target} has no class {cutoff!r}; its classes"
+                        f" are {', '.join(info['classes'])} (their probabilities are always written"
+                        f" as {target}_prob_<class>)"
+                    )
                 continue
             if isinstance(cutoff, str):
-                raise InputError(f"--exceed {target}:{cutoff}: the cutoff of a numeric target must be a number")
+                raise InputError(
+                    f"--exceed {target}:{cutoff}: the cutoff of a numeric target must be a number"
+                )
             bounds = PHYSICAL_BOUNDS.get(target)
             if bounds and not bounds[0] < cutoff < bounds[1]:
-                raise InputError(f"--exceed {target}:{cutoff:g}: {target} lies between {bounds[0]:g} and "
-                                 f"{bounds[1]:g} (a fraction); give a cutoff inside that range, e.g. 0.15")
+                raise InputError(
+                    f"--exceed {target}:{cutoff:g}: {target} lies between {bounds[0]:g} and "
+                    f"{bounds[1]:g} (a fraction); give a cutoff inside that range, e.g. 0.15"
+                )
             if info.get("transform") == "log10" and cutoff <= 0:
-                raise InputError(f"--exceed {target}:{cutoff:g}: {target} is positive (mD); give a cutoff above 0")
+                raise InputError(
+                    f"--exceed {target}:{cutoff:g}: {target} is positive (mD); give a cutoff"
+                    " above 0"
+                )
 
 
-def predict_maps(bundle: Bundle | TrainedModels | str | Path, grid: xr.Dataset, chunk_rows: int = CHUNK_ROWS,
-                 warn: bool = True, interior: dict | None = None,
-                 exceed: dict[str, list] | None = None, threads: int | None = None,
-                 smoothed: xr.Dataset | None = None) -> xr.Dataset:
+def predict_maps(
+    bundle: Bundle | TrainedModels | str | Path,
+    grid: xr.Dataset,
+    chunk_rows: int = CHUNK_ROWS,
+    warn: bool = True,
+    interior: dict | None = None,
+    exceed: dict[str, list] | None = None,
+    threads: int | None = None,
+    smoothed: xr.Dataset | None = None,
+) -> xr.Dataset:
     """Predict every target of the bundle (a folder, a loaded bundle, or the result of
     ``train`` held in memory) on every valid node of ``grid``.
 
@@ -123,7 +150,9 @@ def predict_maps(bundle: Bundle | TrainedModels | str | Path, grid: xr.Dataset, 
     names = card["features"]["names"]
     matrix, valid = feature_matrix(features, names)
     if not valid.any():
-        raise NoValidNodes(f"grid {grid.attrs.get('source', '')}: no node has every feature the model needs")
+        raise NoValidNodes(
+            f"grid {grid.attrs.get('source', '')}: no node has every feature the model needs"
+        )
     X = pd.DataFrame(matrix, columns=names)
     xx, yy = node_xy(grid)
     xy = np.column_stack([xx[valid], yy[valid]])
@@ -135,9 +164,16 @@ def predict_maps(bundle: Bundle | TrainedModels | str | Path, grid: xr.Dataset, 
         share[name] = float(out.mean())
         outside |= out
     if outside.any() and warn:
-        worst = ", ".join(f"{n} {v:.1%}" for n, v in sorted(share.items(), key=lambda kv: -kv[1])[:3] if v > 0)
-        warnings.warn(f"{outside.mean():.1%} of the {'volume samples' if is_volume(grid) else 'map nodes'} have feature values outside the range seen at the "
-                      f"wells (most: {worst}); predictions there are extrapolations", PredictorWarning, stacklevel=2)
+        worst = ", ".join(
+            f"{n} {v:.1%}" for n, v in sorted(share.items(), key=lambda kv: -kv[1])[:3] if v > 0
+        )
+        warnings.warn(
+            f"{outside.mean():.1%} of the {'volume samples' if is_volume(grid) else 'map nodes'}"
+            f" have feature values outside the range seen at the wells (most: {worst}); predictions"
+            " there are extrapolations",
+            PredictorWarning,
+            stacklevel=2,
+        )
     dims = features[names[0]].dims
     shape = features[names[0]].shape
     del features  # the matrix holds what the models need; a large map should not keep both
@@ -146,69 +182,116 @@ def predict_maps(bundle: Bundle | TrainedModels | str | Path, grid: xr.Dataset, 
     work = lambda rows: _node_values(bundle, X.iloc[rows].reset_index(drop=True), xy[rows], exceed)  # noqa: E731
     n_threads = max(1, threads or os.cpu_count() or 1)
     node_of_row = np.flatnonzero(valid)
-    full: dict[str, np.ndarray] = {}  # each output on the whole grid, filled chunk by chunk (codes: -1 empty)
-    with ThreadPoolExecutor(max_workers=n_threads) as pool:  # the models release the GIL: chunks side by side
-        for rows, part in zip(chunks, pool.map(work, chunks) if n_threads > 1 else map(work, chunks), strict=True):
+    full: dict[
+        str, np.ndarray
+    ] = {}  # each output on the whole grid, filled chunk by chunk (codes: -1 empty)
+    with ThreadPoolExecutor(
+        max_workers=n_threads
+    ) as pool:  # the models release the GIL: chunks side by side
+        for rows, part in zip(
+            chunks, pool.map(work, chunks) if n_threads > 1 else map(work, chunks), strict=True
+        ):
             for key, v in part.items():
                 if key not in full:
-                    full[key] = np.full(valid.size, -1, v.dtype) if v.dtype.kind == "i" else np.full(valid.size, np.nan)
+                    full[key] = (
+                        np.full(valid.size, -1, v.dtype)
+                        if v.dtype.kind == "i"
+                        else np.full(valid.size, np.nan)
+                    )
                 full[key][node_of_row[rows]] = v
 
     def on_grid(key) -> np.ndarray:  # class codes and flags keep their integer dtype
         return full.pop(key).reshape(shape)
 
-    out = xr.Dataset(coords={c: grid.coords[c] for c in grid.coords if set(grid.coords[c].dims) <= set(dims)})
+    out = xr.Dataset(
+        coords={c: grid.coords[c] for c in grid.coords if set(grid.coords[c].dims) <= set(dims)}
+    )
     for target, info in card["targets"].items():
         applicable = None
         if f"{target}_applicable" in full:
-            applicable = xr.DataArray(on_grid(f"{target}_applicable"), dims=dims, attrs={
-                "long_name": f"inside the area of applicability of the {target} model (1) or not (0)",
-                "flag_values": np.array([0, 1], dtype=np.int8), "flag_meanings": "outside inside",
-                "_FillValue": np.int8(-1),
-                "comment": "Meyer & Pebesma (2021) dissimilarity index against the training wells"})
+            applicable = xr.DataArray(
+                on_grid(f"{target}_applicable"),
+                dims=dims,
+                attrs={
+                    "long_name": (
+                        f"inside the area of applicability of the {target} model (1) or not (0)"
+                    ),
+                    "flag_values": np.array([0, 1], dtype=np.int8),
+                    "flag_meanings": "outside inside",
+                    "_FillValue": np.int8(-1),
+                    "comment": (
+                        "Meyer & Pebesma (2021) dissimilarity index against the training wells"
+                    ),
+                },
+            )
         if info["task"] == "classification":
             classes = info["classes"]
             rule = info.get("facies_map")
             out[target] = (dims, on_grid(target))
-            out[target].attrs.update(flag_values=np.arange(len(classes), dtype=np.int16),
-                                     flag_meanings=" ".join(c.replace(" ", "_") for c in classes),
-                                     _FillValue=np.int16(-1),
-                                     long_name=f"{target} ({RULE_LABELS[rule['rule'] if rule else 'most-probable']})")
+            out[target].attrs.update(
+                flag_values=np.arange(len(classes), dtype=np.int16),
+                flag_meanings=" ".join(c.replace(" ", "_") for c in classes),
+                _FillValue=np.int16(-1),
+                long_name=f"{target} ({RULE_LABELS[rule['rule'] if rule else 'most-probable']})",
+            )
             for cls in classes:
                 out[f"{target}_prob_{cls}"] = (dims, on_grid(f"{target}_prob_{cls}"))
-                out[f"{target}_prob_{cls}"].attrs.update(units="1", long_name=f"probability of {target} {cls}")
+                out[f"{target}_prob_{cls}"].attrs.update(
+                    units="1", long_name=f"probability of {target} {cls}"
+                )
             if applicable is not None:
                 out[f"{target}_applicable"] = applicable
             continue
         log = info.get("transform") == "log10"
         # UDUNITS spells mD "millidarcy" ("mD" is not a unit there; "md" would be millidays)
         units = "millidarcy" if target == "permeability" else ("1" if target == "porosity" else "")
-        point = "10 to the mean of log10 (about the median)" if log else "mean (least-squares prediction)"
-        for suffix, label in (("", point), ("_q10", "10th percentile (q10)"), ("_q90", "90th percentile (q90)")):
+        point = (
+            "10 to the mean of log10 (about the median)"
+            if log
+            else "mean (least-squares prediction)"
+        )
+        for suffix, label in (
+            ("", point),
+            ("_q10", "10th percentile (q10)"),
+            ("_q90", "90th percentile (q90)"),
+        ):
             out[f"{target}{suffix}"] = (dims, on_grid(f"{target}{suffix}"))
-            out[f"{target}{suffix}"].attrs.update(units=units, long_name=f"{target} {label}" + (" in mD" if log else ""))
+            out[f"{target}{suffix}"].attrs.update(
+                units=units, long_name=f"{target} {label}" + (" in mD" if log else "")
+            )
         for cutoff in (exceed or {}).get(target, []):
             name = exceedance_name(target, cutoff)
             out[name] = (dims, on_grid(name))
-            out[name].attrs.update(units="1", long_name=f"probability that {target} exceeds {cutoff:g}{' mD' if log else ''}",
-                                   cutoff=float(cutoff), comment="from the matched CV's out-of-fold residuals of "
-                                   "the wells predicted near this node's value; in experiments/field_wide.py values in the "
-                                   "lower middle ran up to about 0.1 above the observed frequency")
+            out[name].attrs.update(
+                units="1",
+                long_name=f"probability that {target} exceeds {cutoff:g}{' mD' if log else ''}",
+                cutoff=float(cutoff),
+                comment=(
+                    "from the matched CV's out-of-fold residuals of the wells predicted near this"
+                    " node's value; in experiments/field_wide.py values in the lower middle ran up"
+                    " to about 0.1 above the observed frequency"
+                ),
+            )
         if applicable is not None:
             out[f"{target}_applicable"] = applicable
     # file names, not absolute paths: a shared file should not disclose the folders it was made in
-    out.attrs.update(source="predictor", bundle=Path(bundle.folder).name if bundle.folder else "in memory",
-                     grid=Path(str(grid.attrs.get("source", ""))).name,
-                     caution="a predicted map is a model, not a measurement",
-                     percentiles="q10/q90 are non-exceedance percentiles",
-                     extrapolated_share=float(outside.mean()))
+    out.attrs.update(
+        source="predictor",
+        bundle=Path(bundle.folder).name if bundle.folder else "in memory",
+        grid=Path(str(grid.attrs.get("source", ""))).name,
+        caution="a predicted map is a model, not a measurement",
+        percentiles="q10/q90 are non-exceedance percentiles",
+        extrapolated_share=float(outside.mean()),
+    )
     for key in ("affine", "z_domain", "crs_wkt"):
         if key in grid.attrs:
             out.attrs[key] = grid.attrs[key]
     return out
 
 
-def _node_values(bundle: Bundle, X: pd.DataFrame, xy: np.ndarray, exceed: dict | None) -> dict[str, np.ndarray]:
+def _node_values(
+    bundle: Bundle, X: pd.DataFrame, xy: np.ndarray, exceed: dict | None
+) -> dict[str, np.ndarray]:
     """Every output variable's values at these rows of valid nodes, by variable name."""
     values: dict[str, np.ndarray] = {}
     for target, info in bundle.card["targets"].items():
@@ -220,7 +303,11 @@ def _node_values(bundle: Bundle, X: pd.DataFrame, xy: np.ndarray, exceed: dict |
         if info["task"] == "classification":
             rule = info.get("facies_map")  # the stated rule draws one class per node
             classes = info["classes"]
-            factors = np.array([rule["rule_factors"][c] for c in classes]) if rule else np.ones(len(classes))
+            factors = (
+                np.array([rule["rule_factors"][c] for c in classes])
+                if rule
+                else np.ones(len(classes))
+            )
             values[target] = np.argmax(raw * factors, axis=1).astype(np.int16)
             for i, cls in enumerate(classes):
                 values[f"{target}_prob_{cls}"] = raw[:, i]
@@ -244,27 +331,37 @@ def check_space(card: dict, grid: xr.Dataset) -> None:
     space = card.get("space", {"kind": "map"})
     source = grid.attrs.get("source", "")
     if space["kind"] == "volume" and not is_volume(grid):
-        raise InputError(f"{source}: this model was trained on a volume; give a volume (z, inline, crossline)")
+        raise InputError(
+            f"{source}: this model was trained on a volume; give a volume (z, inline, crossline)"
+        )
     if space["kind"] == "map" and is_volume(grid):
-        raise InputError(f"{source}: this model was trained on a map; give a map (y, x), or train on the volume")
+        raise InputError(
+            f"{source}: this model was trained on a map; give a map (y, x), or train on the volume"
+        )
     if space["kind"] == "volume":
         trained, given = space.get("z_domain", "unknown"), grid.attrs.get("z_domain", "unknown")
         if "unknown" not in (trained, given) and trained != given:
-            raise InputError(f"{source}: the volume is in {given} but the model was trained in {trained}; "
-                             "give a volume in the same z domain")
+            raise InputError(
+                f"{source}: the volume is in {given} but the model was trained in {trained}; "
+                "give a volume in the same z domain"
+            )
         lo, hi = space["z_range"]
         z = grid.z.to_numpy()
         if z[-1] < lo or z[0] > hi:
-            raise InputError(f"{source}: the volume's sample axis ({z[0]:g} to {z[-1]:g}) does not overlap the z of "
-                             f"the training wells ({lo:g} to {hi:g}); check the volume's z domain and units")
+            raise InputError(
+                f"{source}: the volume's sample axis ({z[0]:g} to {z[-1]:g}) does not overlap the z"
+                f" of the training wells ({lo:g} to {hi:g}); check the volume's z domain and units"
+            )
 
 
 def node_xy(grid: xr.Dataset) -> tuple[np.ndarray, np.ndarray]:
     """Map coordinates of every node of a grid or volume, flattened in the variables' order."""
     if is_volume(grid):
         shape = (grid.sizes["z"], grid.sizes["inline"], grid.sizes["crossline"])
-        return (np.broadcast_to(grid.cdp_x.to_numpy(), shape).ravel(),
-                np.broadcast_to(grid.cdp_y.to_numpy(), shape).ravel())
+        return (
+            np.broadcast_to(grid.cdp_x.to_numpy(), shape).ravel(),
+            np.broadcast_to(grid.cdp_y.to_numpy(), shape).ravel(),
+        )
     xx, yy = np.meshgrid(grid.x.to_numpy(), grid.y.to_numpy())
     return xx.ravel(), yy.ravel()
 
@@ -275,18 +372,23 @@ def maps_table(maps: xr.Dataset) -> pd.DataFrame:
     xx, yy = node_xy(maps)
     table = {}
     if is_volume(maps):
-        zz, ii, jj = np.meshgrid(maps.z.to_numpy(), maps.inline.to_numpy(), maps.crossline.to_numpy(),
-                                 indexing="ij")
+        zz, ii, jj = np.meshgrid(
+            maps.z.to_numpy(), maps.inline.to_numpy(), maps.crossline.to_numpy(), indexing="ij"
+        )
         table = {"inline": ii.ravel(), "crossline": jj.ravel(), "z": zz.ravel()}
     table.update(x=xx, y=yy)
     for var in maps.data_vars:
         values = maps[var].to_numpy().ravel()
         meanings = maps[var].attrs.get("flag_meanings")
-        if meanings and maps[var].dtype == np.int16:  # class codes become labels; 0/1 flags (int8) stay numbers
+        if (
+            meanings and maps[var].dtype == np.int16
+        ):  # class codes become labels; 0/1 flags (int8) stay numbers
             labels = np.array(meanings.split(" ") + [""], dtype=object)
             values = labels[np.where(values >= 0, values, len(labels) - 1)]
         elif "_FillValue" in maps[var].attrs:  # integer flags: the fill value becomes an empty cell
-            values = pd.array(np.where(values == maps[var].attrs["_FillValue"], None, values), dtype="Int8")
+            values = pd.array(
+                np.where(values == maps[var].attrs["_FillValue"], None, values), dtype="Int8"
+            )
         table[str(var)] = values
     return pd.DataFrame(table)
 
@@ -295,19 +397,30 @@ def check_format(path: str | Path, volume: bool) -> Path:
     """The output path, if its extension names a format maps (or volumes) can be written in."""
     path = Path(path)
     suffix = path.suffix.lower()
-    formats = (".csv", ".nc", ".zarr", ".sgy", ".segy") if volume else (".csv", ".nc", ".tif", ".tiff")
+    formats = (
+        (".csv", ".nc", ".zarr", ".sgy", ".segy") if volume else (".csv", ".nc", ".tif", ".tiff")
+    )
     if suffix not in formats:
         what = "volume" if volume else "map"
         hint = " (GeoTIFF holds maps, not volumes)" if suffix in (".tif", ".tiff") else ""
-        raise InputError(f"{path}: unknown {what} format {suffix!r}{hint}; use {', '.join(formats)}")
+        raise InputError(
+            f"{path}: unknown {what} format {suffix!r}{hint}; use {', '.join(formats)}"
+        )
     library = FORMAT_LIBRARIES.get(suffix)
-    if library and importlib.util.find_spec(library) is None:  # refused before the prediction, not after it
-        raise InputError(f"{path}: writing {suffix} needs {library}, which is not installed; `pip install {library}` "
-                         "(a dependency of predictor: reinstalling predictor brings it) or choose another format")
+    if (
+        library and importlib.util.find_spec(library) is None
+    ):  # refused before the prediction, not after it
+        raise InputError(
+            f"{path}: writing {suffix} needs {library}, which is not installed; `pip install"
+            f" {library}` (a dependency of predictor: reinstalling predictor brings it) or choose"
+            " another format"
+        )
     return path
 
 
-def write_maps(maps: xr.Dataset, path: str | Path, overwrite: bool = False, crs_wkt: str | None = None) -> Path:
+def write_maps(
+    maps: xr.Dataset, path: str | Path, overwrite: bool = False, crs_wkt: str | None = None
+) -> Path:
     """Write maps to CSV (.csv), CF NetCDF (.nc) or GeoTIFF (.tif), atomically; volumes to
     CSV, NetCDF, Zarr (.zarr) or SEG-Y (.sgy: one file per variable, ``<stem>_<variable>.sgy``)."""
     volume = is_volume(maps)
@@ -329,7 +442,9 @@ def write_maps(maps: xr.Dataset, path: str | Path, overwrite: bool = False, crs_
     if suffix == ".csv":
         table = maps_table(maps)
         n_coords = 5 if volume else 2
-        for col in table.columns[n_coords:]:  # 7 significant digits per value; coordinates kept exact
+        for col in table.columns[
+            n_coords:
+        ]:  # 7 significant digits per value; coordinates kept exact
             if pd.api.types.is_float_dtype(table[col]):
                 values = table[col].to_numpy(float)
                 text = np.char.mod("%.7g", values)  # per value: 0.01503 mD stays 0.01503, not 0.02

@@ -76,7 +76,8 @@ def summarise(wells: pd.DataFrame, columns: list[str], facies: str | None = "fac
 
 
 def tukey_fences(values, k: float = 1.5) -> tuple[float, float]:
-    """Lower and upper Tukey fences Q1 - k IQR and Q3 + k IQR (quartiles by linear interpolation)."""
+    """Lower and upper Tukey fences Q1 - k IQR and Q3 + k IQR (quartiles by linear
+    interpolation)."""
     v = np.asarray(values, dtype=float)
     v = v[np.isfinite(v)]
     q1, q3 = np.percentile(v, [25, 75])
@@ -91,8 +92,15 @@ def physical_findings(wells: pd.DataFrame, source: str = "wells") -> list[Findin
 
     def flag(mask, column, message, severity: Severity = "error"):
         if np.any(mask):
-            found.append(Finding(severity, "non-physical", column, f"{source}: column {column!r} {message} at "
-                                 f"{list_rows(ids[mask])}", list(ids[mask])))
+            found.append(
+                Finding(
+                    severity,
+                    "non-physical",
+                    column,
+                    f"{source}: column {column!r} {message} at {list_rows(ids[mask])}",
+                    list(ids[mask]),
+                )
+            )
 
     if "porosity" in wells:
         phi = wells["porosity"].to_numpy(dtype=float)
@@ -101,14 +109,24 @@ def physical_findings(wells: pd.DataFrame, source: str = "wells") -> list[Findin
         flag(np.isinf(phi), "porosity", "is infinite")
     if "permeability" in wells:
         k = wells["permeability"].to_numpy(dtype=float)
-        flag(k <= 0, "permeability", "is zero or negative (permeability in mD must be > 0: log10 of it is "
-             "modelled; a value below detection is best given as the detection limit, e.g. 0.001)")
+        flag(
+            k <= 0,
+            "permeability",
+            "is zero or negative (permeability in mD must be > 0: log10 of it is "
+            "modelled; a value below detection is best given as the detection limit, e.g. 0.001)",
+        )
         flag(np.isinf(k), "permeability", "is infinite")
         finite = k[np.isfinite(k) & (k > 0)]
         if finite.size and np.median(finite) < 1e-9:
-            found.append(Finding("error", "units", "permeability",
-                                 f"{source}: permeability median {np.median(finite):.3g} looks like m2, "
-                                 "not mD; convert (1 mD = 9.869e-16 m2)"))
+            found.append(
+                Finding(
+                    "error",
+                    "units",
+                    "permeability",
+                    f"{source}: permeability median {np.median(finite):.3g} looks like m2, "
+                    "not mD; convert (1 mD = 9.869e-16 m2)",
+                )
+            )
     for col in numeric_properties(wells):
         if col in ("porosity", "permeability"):
             continue
@@ -126,14 +144,24 @@ def grid_findings(grid: xr.Dataset) -> list[Finding]:
         finite = v[np.isfinite(v)]
         source = grid.attrs.get("source", "grid")
         if finite.size == 0:
-            found.append(Finding("error", "empty attribute", var, f"{source}: attribute {var!r} has no values"))
+            found.append(
+                Finding(
+                    "error", "empty attribute", var, f"{source}: attribute {var!r} has no values"
+                )
+            )
             continue
         kind = attribute_kind(grid, var)
         if kind in POSITIVE_KINDS and (finite <= 0).any():
-            found.append(Finding("error", "non-physical", var,
-                                 f"{source}: attribute {var!r} ({kind}) has {(finite <= 0).sum()} nodes <= 0 where it "
-                                 f"must be positive; if it is a signed attribute (relative impedance, say), tell "
-                                 f"so with --attribute-kind {var}=amplitude"))
+            found.append(
+                Finding(
+                    "error",
+                    "non-physical",
+                    var,
+                    f"{source}: attribute {var!r} ({kind}) has {(finite <= 0).sum()} nodes <= 0"
+                    " where it must be positive; if it is a signed attribute (relative impedance,"
+                    f" say), tell so with --attribute-kind {var}=amplitude",
+                )
+            )
         if kind == "impedance":
             med = float(np.median(finite))
             if 1e6 <= med <= 3e7:
@@ -142,12 +170,21 @@ def grid_findings(grid: xr.Dataset) -> list[Finding]:
                 unit = "m/s x g/cm3 (or ft/s x g/cm3)"
             else:
                 unit = None
-            msg = (f"attribute {var!r} median {med:.4g} suggests units of {unit}" if unit else
-                   f"attribute {var!r} median {med:.4g} is unusual for impedance; check the units")
+            msg = (
+                f"attribute {var!r} median {med:.4g} suggests units of {unit}"
+                if unit
+                else f"attribute {var!r} median {med:.4g} is unusual for impedance; check the units"
+            )
             found.append(Finding("note" if unit else "warning", "units", var, msg))
         if np.nanstd(finite) == 0:
-            found.append(Finding("error", "constant attribute", var,
-                                 f"{source}: attribute {var!r} is constant; it cannot inform a model"))
+            found.append(
+                Finding(
+                    "error",
+                    "constant attribute",
+                    var,
+                    f"{source}: attribute {var!r} is constant; it cannot inform a model",
+                )
+            )
     return found
 
 
@@ -157,15 +194,29 @@ def duplicate_findings(wells: pd.DataFrame, tolerance: float = 1.0) -> list[Find
     ids = wells["well_id"].astype(str)
     dup = ids[ids.duplicated(keep=False)]
     if len(dup):
-        found.append(Finding("warning", "duplicates", "well_id",
-                             f"well ids used more than once: {list_rows(sorted(set(dup)))}", sorted(set(dup))))
+        found.append(
+            Finding(
+                "warning",
+                "duplicates",
+                "well_id",
+                f"well ids used more than once: {list_rows(sorted(set(dup)))}",
+                sorted(set(dup)),
+            )
+        )
     pts = wells[["x", "y"]].to_numpy(dtype=float)
     pairs = sorted(cKDTree(pts).query_pairs(r=tolerance)) if len(pts) > 1 else []
     if pairs:
         names = [f"{ids.iloc[i]}={ids.iloc[j]}" for i, j in pairs]
-        found.append(Finding("warning", "duplicates", "x,y",
-                             f"wells within {tolerance:g} m of each other: {list_rows(names)}; "
-                             "merge them or check the coordinates", names))
+        found.append(
+            Finding(
+                "warning",
+                "duplicates",
+                "x,y",
+                f"wells within {tolerance:g} m of each other: {list_rows(names)}; "
+                "merge them or check the coordinates",
+                names,
+            )
+        )
     return found
 
 
@@ -175,18 +226,32 @@ def sample_duplicate_findings(wells: pd.DataFrame, tolerance: float = 1.0) -> li
     found = []
     twice = wells[wells.duplicated(["well_id", "z"], keep=False)]
     if len(twice):
-        names = [f"{w} at z {z:g}" for w, z in twice[["well_id", "z"]].drop_duplicates().itertuples(index=False)]
-        found.append(Finding("warning", "duplicates", "well_id,z", f"samples given twice: {list_rows(names)}; "
-                             "keep one row per well and z", names))
-    return found + [f for f in duplicate_findings(well_heads(wells)[0], tolerance) if f.column == "x,y"]
+        names = [
+            f"{w} at z {z:g}"
+            for w, z in twice[["well_id", "z"]].drop_duplicates().itertuples(index=False)
+        ]
+        found.append(
+            Finding(
+                "warning",
+                "duplicates",
+                "well_id,z",
+                f"samples given twice: {list_rows(names)}; keep one row per well and z",
+                names,
+            )
+        )
+    return found + [
+        f for f in duplicate_findings(well_heads(wells)[0], tolerance) if f.column == "x,y"
+    ]
 
 
-def outlier_findings(wells: pd.DataFrame, columns: list[str], facies: str | None = "facies",
-                     k: float = 1.5) -> list[Finding]:
+def outlier_findings(
+    wells: pd.DataFrame, columns: list[str], facies: str | None = "facies", k: float = 1.5
+) -> list[Finding]:
     """Values outside the Tukey fences of their own facies (flagged, not removed)."""
     found = []
-    groups = (wells.groupby(wells[facies].astype(str)) if facies and facies in wells
-              else [("all", wells)])
+    groups = (
+        wells.groupby(wells[facies].astype(str)) if facies and facies in wells else [("all", wells)]
+    )
     for label, frame in groups:
         for col in columns:
             v = frame[col].to_numpy(dtype=float)
@@ -199,11 +264,21 @@ def outlier_findings(wells: pd.DataFrame, columns: list[str], facies: str | None
             if out.any():
                 names = list(frame["well_id"].astype(str).to_numpy()[out])
                 if "z" in frame:  # samples along wells: say where along the well
-                    names = [f"{n} at z {z:g}" for n, z in zip(names, frame["z"].to_numpy()[out], strict=True)]
+                    names = [
+                        f"{n} at z {z:g}"
+                        for n, z in zip(names, frame["z"].to_numpy()[out], strict=True)
+                    ]
                 scale = " (log10)" if col == "permeability" else ""
-                found.append(Finding("warning", "outliers", col,
-                                     f"{col}{scale} outside the Tukey fences [{lo:.4g}, {hi:.4g}] of facies "
-                                     f"{label}: {list_rows(names)}; review, they are kept", names))
+                found.append(
+                    Finding(
+                        "warning",
+                        "outliers",
+                        col,
+                        f"{col}{scale} outside the Tukey fences [{lo:.4g}, {hi:.4g}] of facies "
+                        f"{label}: {list_rows(names)}; review, they are kept",
+                        names,
+                    )
+                )
     return found
 
 
@@ -216,7 +291,9 @@ def pooled_t_from_moments(n1, mean1, sd1, n2, mean2, sd2) -> tuple[float, float,
     return float(t), float(dof), float(p)
 
 
-def bias_test(at_wells, over_map, attribute: str = "attribute", alpha: float = 0.05, groups=None) -> dict:
+def bias_test(
+    at_wells, over_map, attribute: str = "attribute", alpha: float = 0.05, groups=None
+) -> dict:
     """Compare an attribute at the wells with its values over the whole map.
 
     Pooled-variance two-sample t-test, two-sample Kolmogorov-Smirnov test (scipy), effect
@@ -231,35 +308,64 @@ def bias_test(at_wells, over_map, attribute: str = "attribute", alpha: float = 0
     ok = np.isfinite(a)
     a, b = a[ok], b[np.isfinite(b)]
     if a.size < 3:
-        raise InputError(f"the bias test needs at least 3 wells with a value of {attribute!r}; got {a.size}")
+        raise InputError(
+            f"the bias test needs at least 3 wells with a value of {attribute!r}; got {a.size}"
+        )
     deff, icc = design_effect(a, np.asarray(groups)[ok]) if groups is not None else (1.0, 0.0)
     n = a.size / deff  # effective number of independent samples at the wells
     t, dof, p_t = pooled_t_from_moments(n, a.mean(), a.std(ddof=1), b.size, b.mean(), b.std(ddof=1))
     ks = sps.ks_2samp(a, b)
-    # the asymptotic two-sample KS p-value, as scipy's ks_2samp(method="asymp") computes it, with n effective
-    p_ks = float(sps.kstwo.sf(ks.statistic, np.round(n * b.size / (n + b.size)))) if deff > 1 else float(ks.pvalue)
-    sp = np.sqrt(((a.size - 1) * a.var(ddof=1) + (b.size - 1) * b.var(ddof=1)) / (a.size + b.size - 2))
+    # the asymptotic two-sample KS p-value, as scipy's ks_2samp(method="asymp") computes it, with n
+    # effective
+    p_ks = (
+        float(sps.kstwo.sf(ks.statistic, np.round(n * b.size / (n + b.size))))
+        if deff > 1
+        else float(ks.pvalue)
+    )
+    sp = np.sqrt(
+        ((a.size - 1) * a.var(ddof=1) + (b.size - 1) * b.var(ddof=1)) / (a.size + b.size - 2)
+    )
     d = float((a.mean() - b.mean()) / sp) if sp > 0 else 0.0
     biased = (p_t < alpha or p_ks < alpha) and abs(d) >= 0.2
     side = "lower" if d < 0 else "higher"
-    counted = (f"; {a.size} samples of {np.unique(np.asarray(groups)[ok]).size} wells counted as {n:.0f} "
-               f"independent ones (design effect {deff:.2g} from the within-well correlation {icc:.2f})"
-               if deff > 1 else "")
+    counted = (
+        f"; {a.size} samples of {np.unique(np.asarray(groups)[ok]).size} wells counted as {n:.0f} "
+        f"independent ones (design effect {deff:.2g} from the within-well correlation {icc:.2f})"
+        if deff > 1
+        else ""
+    )
     if biased:
-        verdict = (f"The wells sample {side} {attribute} than the map (well mean {a.mean():.4g} vs map mean "
-                   f"{b.mean():.4g}; effect size d = {d:+.2f}; t-test p = {p_t:.2g}; KS p = {p_ks:.2g}{counted}): "
-                   "drilling was preferential, so raw well statistics are biased; use declustering weights.")
+        verdict = (
+            f"The wells sample {side} {attribute} than the map (well mean {a.mean():.4g} vs map"
+            f" mean {b.mean():.4g}; effect size d = {d:+.2f}; t-test p = {p_t:.2g}; KS p ="
+            f" {p_ks:.2g}{counted}): drilling was preferential, so raw well statistics are biased;"
+            " use declustering weights."
+        )
     else:
-        verdict = (f"No clear difference between {attribute} at the wells and over the map (d = {d:+.2f}; "
-                   f"t-test p = {p_t:.2g}; KS p = {p_ks:.2g}{counted}); the wells look representative of this "
-                   "attribute.")
+        verdict = (
+            f"No clear difference between {attribute} at the wells and over the map (d = {d:+.2f};"
+            f" t-test p = {p_t:.2g}; KS p = {p_ks:.2g}{counted}); the wells look representative of"
+            " this attribute."
+        )
     return {
-        "attribute": attribute, "n_wells": int(a.size), "n_map": int(b.size),
-        "n_effective": float(n), "design_effect": float(deff), "within_well_correlation": icc,
-        "mean_wells": float(a.mean()), "mean_map": float(b.mean()),
-        "sd_wells": float(a.std(ddof=1)), "sd_map": float(b.std(ddof=1)),
-        "t": t, "dof": dof, "p_t": p_t, "ks_d": float(ks.statistic), "p_ks": p_ks,
-        "effect_size_d": d, "biased": bool(biased), "verdict": verdict,
+        "attribute": attribute,
+        "n_wells": int(a.size),
+        "n_map": int(b.size),
+        "n_effective": float(n),
+        "design_effect": float(deff),
+        "within_well_correlation": icc,
+        "mean_wells": float(a.mean()),
+        "mean_map": float(b.mean()),
+        "sd_wells": float(a.std(ddof=1)),
+        "sd_map": float(b.std(ddof=1)),
+        "t": t,
+        "dof": dof,
+        "p_t": p_t,
+        "ks_d": float(ks.statistic),
+        "p_ks": p_ks,
+        "effect_size_d": d,
+        "biased": bool(biased),
+        "verdict": verdict,
     }
 
 
@@ -275,8 +381,12 @@ class QCReport:
         return [f for f in self.findings if f.severity == "error"]
 
     def to_dict(self) -> dict:
-        return {"findings": [asdict(f) for f in self.findings], "summary": self.summary,
-                "bias": self.bias, "columns_taken": self.columns_taken}
+        return {
+            "findings": [asdict(f) for f in self.findings],
+            "summary": self.summary,
+            "bias": self.bias,
+            "columns_taken": self.columns_taken,
+        }
 
     def lines(self) -> list[str]:
         out = [f"columns taken: {self.columns_taken}"]
@@ -290,29 +400,64 @@ def run_qc(wells: pd.DataFrame, grid: xr.Dataset, tolerance: float = 1.0) -> QCR
     source = wells.attrs.get("source", "wells")
     columns = numeric_properties(wells)
     volume = is_volume(grid)
-    duplicates = sample_duplicate_findings(wells, tolerance) if volume else duplicate_findings(wells, tolerance)
+    duplicates = (
+        sample_duplicate_findings(wells, tolerance)
+        if volume
+        else duplicate_findings(wells, tolerance)
+    )
     findings = physical_findings(wells, source) + grid_findings(grid) + duplicates
     findings += outlier_findings(wells, columns)
     if "facies" in wells:
         counts = wells["facies"].dropna().astype(str).value_counts()
         if len(counts) == 1:
-            findings.append(Finding("warning", "facies", "facies",
-                                    f"only one facies ({counts.index[0]}) in {source}; a facies model needs two or more"))
+            findings.append(
+                Finding(
+                    "warning",
+                    "facies",
+                    "facies",
+                    f"only one facies ({counts.index[0]}) in {source}; a facies model needs two or"
+                    " more",
+                )
+            )
         if volume:  # samples along one well are one piece of evidence: count wells per facies
-            counts = wells.dropna(subset=["facies"]).astype({"facies": str}).groupby("facies")["well_id"].nunique()
+            counts = (
+                wells.dropna(subset=["facies"])
+                .astype({"facies": str})
+                .groupby("facies")["well_id"]
+                .nunique()
+            )
         rare = counts[counts < 3]
         if len(rare) and len(counts) > 1:
-            findings.append(Finding("warning", "facies", "facies",
-                                    f"facies with fewer than 3 wells: {', '.join(f'{k} ({v})' for k, v in rare.items())}; "
-                                    "spatial CV cannot score them reliably"))
+            findings.append(
+                Finding(
+                    "warning",
+                    "facies",
+                    "facies",
+                    "facies with fewer than 3 wells:"
+                    f" {', '.join(f'{k} ({v})' for k, v in rare.items())}; spatial CV cannot score"
+                    " them reliably",
+                )
+            )
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", PredictorWarning)
         if volume:
-            sampled, kept = sample_volume(grid, wells["x"], wells["y"], wells["z"], wells["well_id"],
-                                          drop_outside=True, wells_domain=wells_z_domain(wells))
+            sampled, kept = sample_volume(
+                grid,
+                wells["x"],
+                wells["y"],
+                wells["z"],
+                wells["well_id"],
+                drop_outside=True,
+                wells_domain=wells_z_domain(wells),
+            )
         else:
-            sampled, _ = sample_at(grid, wells["x"], wells["y"], wells["well_id"], drop_outside=True)
+            sampled, _ = sample_at(
+                grid, wells["x"], wells["y"], wells["well_id"], drop_outside=True
+            )
     findings += [Finding("warning", "wells vs grid", None, str(w.message)) for w in caught]
     groups = wells["well_id"].to_numpy()[kept] if volume else None  # samples of one well are alike
-    bias = {var: bias_test(sampled[var], grid[var].to_numpy().ravel(), var, groups=groups) for var in grid.data_vars}
+    bias = {
+        var: bias_test(sampled[var], grid[var].to_numpy().ravel(), var, groups=groups)
+        for var in grid.data_vars
+    }
     return QCReport(findings, summarise(wells, columns), bias, wells.attrs.get("columns_taken", {}))

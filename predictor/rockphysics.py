@@ -15,7 +15,8 @@ def wyllie_velocity(porosity, v_matrix: float = 5850.0, v_fluid: float = 1550.0)
 
 
 def raymer_velocity(porosity, v_matrix: float = 5850.0, v_fluid: float = 1550.0):
-    """Raymer-Hunt-Gardner: V = (1 - phi)^2 V_matrix + phi V_fluid, valid for phi < 0.37 (Raymer et al. 1980)."""
+    """Raymer-Hunt-Gardner: V = (1 - phi)^2 V_matrix + phi V_fluid, valid for phi < 0.37 (Raymer et
+    al. 1980)."""
     phi = np.asarray(porosity, dtype=float)
     return (1.0 - phi) ** 2 * v_matrix + phi * v_fluid
 

@@ -14,8 +14,9 @@ import pandas as pd
 import xarray as xr
 
 
-def interpolate(ds: xr.Dataset, dims: tuple[str, ...], fractions: list[np.ndarray], nearest: bool = False
-                ) -> tuple[pd.DataFrame, np.ndarray]:
+def interpolate(
+    ds: xr.Dataset, dims: tuple[str, ...], fractions: list[np.ndarray], nearest: bool = False
+) -> tuple[pd.DataFrame, np.ndarray]:
     """Every variable of ``ds`` at fractional node indices (one array per dim of ``dims``, clipped
     to the nodes): multilinear over the valid nodes around each point, or the ``nearest`` node.
 
@@ -23,7 +24,9 @@ def interpolate(ds: xr.Dataset, dims: tuple[str, ...], fractions: list[np.ndarra
     holds no value (a gap).
     """
     sizes = [ds.sizes[d] for d in dims]
-    fractions = [np.clip(np.asarray(f, float), 0, n - 1) for f, n in zip(fractions, sizes, strict=True)]
+    fractions = [
+        np.clip(np.asarray(f, float), 0, n - 1) for f, n in zip(fractions, sizes, strict=True)
+    ]
     near = tuple(np.round(f).astype(int) for f in fractions)
     out, gap = {}, np.zeros(fractions[0].size, bool)
     for var in ds.data_vars:
@@ -34,8 +37,12 @@ def interpolate(ds: xr.Dataset, dims: tuple[str, ...], fractions: list[np.ndarra
 
 
 def multilinear(arr: np.ndarray, fractions: list[np.ndarray]) -> np.ndarray:
-    """Linear interpolation of ``arr`` at fractional indices along each of its axes, over valid nodes."""
-    lower = [np.clip(np.floor(f).astype(int), 0, max(n - 2, 0)) for f, n in zip(fractions, arr.shape, strict=True)]
+    """Linear interpolation of ``arr`` at fractional indices along each of its axes, over valid
+    nodes."""
+    lower = [
+        np.clip(np.floor(f).astype(int), 0, max(n - 2, 0))
+        for f, n in zip(fractions, arr.shape, strict=True)
+    ]
     offsets = [f - i0 for f, i0 in zip(fractions, lower, strict=True)]
     total = np.zeros(fractions[0].size)
     weight = np.zeros(fractions[0].size)
@@ -43,7 +50,10 @@ def multilinear(arr: np.ndarray, fractions: list[np.ndarray]) -> np.ndarray:
         w = np.ones(fractions[0].size)
         for step, t in zip(corner, offsets, strict=True):
             w = w * (t if step else 1 - t)
-        index = tuple(np.minimum(i0 + step, n - 1) for i0, step, n in zip(lower, corner, arr.shape, strict=True))
+        index = tuple(
+            np.minimum(i0 + step, n - 1)
+            for i0, step, n in zip(lower, corner, arr.shape, strict=True)
+        )
         v = arr[index]
         ok = ~np.isnan(v)
         total += np.where(ok, v * w, 0.0)

@@ -10,15 +10,22 @@ BACKGROUND = 8  # background wells for the permutation explainer
 
 
 def place(values: np.ndarray, member_features: list[str], names: list[str]) -> np.ndarray:
-    """Spread a model's feature columns into the full feature list (plus the kriging column, last)."""
+    """Spread a model's feature columns into the full feature list (plus the kriging column,
+    last)."""
     out = np.zeros(values.shape[:-1] + (len(names) + 1,))
     for j, f in enumerate(member_features):
         out[..., names.index(f)] = values[..., j]
     return out
 
 
-def permutation_contributions(predict, features: list[str], X: pd.DataFrame, names: list[str],
-                              background: pd.DataFrame | None, seed: int) -> tuple[np.ndarray, np.ndarray]:
+def permutation_contributions(
+    predict,
+    features: list[str],
+    X: pd.DataFrame,
+    names: list[str],
+    background: pd.DataFrame | None,
+    seed: int,
+) -> tuple[np.ndarray, np.ndarray]:
     """:func:`permutation_shap` of ``predict`` over ``features``, against a small spread-out
     background of ``background`` rows (sorted by the first feature), placed into ``names``."""
     bg = (background if background is not None else X)[features]
@@ -29,7 +36,9 @@ def permutation_contributions(predict, features: list[str], X: pd.DataFrame, nam
     def f(values):
         return predict(pd.DataFrame(values, columns=features), None)
 
-    values, base = permutation_shap(f, np.asarray(X[features], float), bg.to_numpy(float), seed=seed)
+    values, base = permutation_shap(
+        f, np.asarray(X[features], float), bg.to_numpy(float), seed=seed
+    )
     return place(values, features, names), base
 
 

@@ -17,8 +17,11 @@ from sklearn.model_selection import BaseCrossValidator, GroupKFold
 from .errors import ModelError
 
 
-def block_labels(x, y, block_size: float, angle: float = 0.0, origin: tuple[float, float] | None = None) -> np.ndarray:
-    """Integer label of the square block (side ``block_size``, rotated by ``angle`` degrees) of each point.
+def block_labels(
+    x, y, block_size: float, angle: float = 0.0, origin: tuple[float, float] | None = None
+) -> np.ndarray:
+    """Integer label of the square block (side ``block_size``, rotated by ``angle`` degrees) of each
+    point.
 
     A standalone function so the labels can also feed scikit-learn's ``GroupKFold``.
     """
@@ -77,8 +80,8 @@ class BlockKFold(BaseCrossValidator):
         n_blocks = np.unique(labels).size
         if n_blocks < self.n_splits:
             raise ModelError(
-                f"only {n_blocks} blocks of {self.block_size:.0f} m hold wells, fewer than the {self.n_splits} folds; "
-                "use a smaller block size or fewer folds"
+                f"only {n_blocks} blocks of {self.block_size:.0f} m hold wells, fewer than the"
+                f" {self.n_splits} folds; use a smaller block size or fewer folds"
             )
         yield from GroupKFold(n_splits=self.n_splits).split(np.zeros(len(labels)), None, labels)
 
@@ -111,7 +114,9 @@ class BufferedLeaveOneOut(BaseCrossValidator):
         everyone = np.arange(len(coords))
         for unit in np.unique(units):
             test = np.flatnonzero(units == unit)
-            near = np.unique(np.concatenate([tree.query_ball_point(coords[i], self.radius) for i in test]))
+            near = np.unique(
+                np.concatenate([tree.query_ball_point(coords[i], self.radius) for i in test])
+            )
             train = np.setdiff1d(everyone, np.union1d(near, test))
             yield train, test
 
@@ -130,7 +135,8 @@ def regression_scores(y, pred, weights=None) -> dict[str, float]:
 
 
 def classification_scores(y, proba, classes, weights=None) -> dict[str, float]:
-    """Balanced accuracy, log-loss and (multi-class) Brier score, weighted when weights are given."""
+    """Balanced accuracy, log-loss and (multi-class) Brier score, weighted when weights are
+    given."""
     y = np.asarray(y).astype(str)
     classes = [str(c) for c in classes]
     proba = np.clip(np.asarray(proba, float), 1e-15, 1.0)

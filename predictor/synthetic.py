@@ -56,13 +56,19 @@ class FieldSpec:
 
 
 def _random_field(rng, shape, length_cells):
-    field = gaussian_filter(rng.standard_normal(shape), sigma=max(length_cells / 2.0, 0.5), mode="wrap")
+    field = gaussian_filter(
+        rng.standard_normal(shape), sigma=max(length_cells / 2.0, 0.5), mode="wrap"
+    )
     return (field - field.mean()) / field.std()
 
 
 def _rock(codes: np.ndarray, texture: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Porosity (facies mean + sd x texture), matrix velocity and grain density at every cell."""
-    porosity, v_matrix, rho_matrix = np.zeros(codes.shape), np.zeros(codes.shape), np.zeros(codes.shape)
+    porosity, v_matrix, rho_matrix = (
+        np.zeros(codes.shape),
+        np.zeros(codes.shape),
+        np.zeros(codes.shape),
+    )
     for code, name in enumerate(FACIES):
         mean, sd, vm, rm = ROCK[name]
         here = codes == code
@@ -119,26 +125,40 @@ def make_field(spec: FieldSpec | None = None) -> tuple[xr.Dataset, xr.Dataset, p
     blurred = gaussian_filter(impedance_true, sigma=spec.seismic_blur, mode="nearest")
     noise = gaussian_filter(rng.standard_normal(xx.shape), sigma=1.0)
     noise = noise / noise.std() * spec.seismic_noise * impedance_true.mean()
-    ramp = spec.trend * impedance_true.mean() * ((xx - xs.mean()) / np.ptp(xs) + 0.5 * (yy - ys.mean()) / np.ptp(ys))
+    ramp = (
+        spec.trend
+        * impedance_true.mean()
+        * ((xx - xs.mean()) / np.ptp(xs) + 0.5 * (yy - ys.mean()) / np.ptp(ys))
+    )
     impedance = blurred + noise + ramp
-    log_perm = -1.3 + 13.0 * porosity - 0.4 * (codes == 0) + 0.25 * _random_field(rng, xx.shape, 2.0)
-    permeability = 10.0 ** log_perm
+    log_perm = (
+        -1.3 + 13.0 * porosity - 0.4 * (codes == 0) + 0.25 * _random_field(rng, xx.shape, 2.0)
+    )
+    permeability = 10.0**log_perm
 
     wells = _drill(spec, rng, xs, ys, porosity)
     iy = np.round((wells["y"].to_numpy() - spec.y0) / spec.spacing).astype(int)
     ix = np.round((wells["x"].to_numpy() - spec.x0) / spec.spacing).astype(int)
     wells["facies"] = [FACIES[c] for c in codes[iy, ix]]
     # core-plug scale measurements scatter a little around the cell value
-    wells["porosity"] = np.round(np.clip(porosity[iy, ix] + rng.normal(0, 0.005, iy.size), 0.005, 0.4), 4)
+    wells["porosity"] = np.round(
+        np.clip(porosity[iy, ix] + rng.normal(0, 0.005, iy.size), 0.005, 0.4), 4
+    )
     wells["permeability"] = np.round(permeability[iy, ix] * 10 ** rng.normal(0, 0.05, iy.size), 3)
 
     coords = {"x": xs, "y": ys}
-    attrs = {"field": "Tarnwick (synthetic)", "generator": "predictor.synthetic.make_field",
-             "spec": str(asdict(spec))}
-    seismic = xr.Dataset({"impedance": (("y", "x"), np.round(impedance, 2))}, coords=coords, attrs=attrs)
+    attrs = {
+        "field": "Tarnwick (synthetic)",
+        "generator": "predictor.synthetic.make_field",
+        "spec": str(asdict(spec)),
+    }
+    seismic = xr.Dataset(
+        {"impedance": (("y", "x"), np.round(impedance, 2))}, coords=coords, attrs=attrs
+    )
     seismic["impedance"].attrs.update(units="m/s*g/cm3", long_name="acoustic impedance (inverted)")
     if spec.second_attribute:
-        # Vp/Vs falls from shale to sand (common practice); an independent inversion, blurred and noisy
+        # Vp/Vs falls from shale to sand (common practice); an independent inversion, blurred and
+        # noisy
         vp_vs = 1.95 - 0.9 * (porosity - 0.07) - 0.05 * (codes == 2)
         vp_vs = gaussian_filter(vp_vs, sigma=spec.seismic_blur * 1.5, mode="nearest")
         vp_vs = vp_vs + 0.025 * gaussian_filter(rng.standard_normal(xx.shape), sigma=1.5) / 0.2
@@ -154,13 +174,17 @@ def make_field(spec: FieldSpec | None = None) -> tuple[xr.Dataset, xr.Dataset, p
         coords=coords,
         attrs=attrs,
     )
-    truth["facies"].attrs.update(flag_values=np.arange(len(FACIES), dtype=np.int8), flag_meanings=" ".join(FACIES))
+    truth["facies"].attrs.update(
+        flag_values=np.arange(len(FACIES), dtype=np.int8), flag_meanings=" ".join(FACIES)
+    )
     truth["porosity"].attrs.update(units="1")
     truth["permeability"].attrs.update(units="mD")
     return seismic, truth, wells
 
 
-def _preferential(rng, smooth: np.ndarray, n: int, strength: float) -> tuple[np.ndarray, np.ndarray]:
+def _preferential(
+    rng, smooth: np.ndarray, n: int, strength: float
+) -> tuple[np.ndarray, np.ndarray]:
     """Indices of ``n`` distinct cells drawn with probability growing as exp(strength x the
     standardised smoothed porosity): wells crowd the best rock."""
     score = (smooth - smooth.mean()) / smooth.std()
@@ -171,7 +195,9 @@ def _preferential(rng, smooth: np.ndarray, n: int, strength: float) -> tuple[np.
 
 def _drill(spec: FieldSpec, rng, xs, ys, porosity) -> pd.DataFrame:
     """Preferential wells where (smoothed) porosity is high, plus a sparse regular pattern."""
-    iy, ix = _preferential(rng, gaussian_filter(porosity, sigma=3), spec.n_preferential, spec.drilling_strength)
+    iy, ix = _preferential(
+        rng, gaussian_filter(porosity, sigma=3), spec.n_preferential, spec.drilling_strength
+    )
     px = xs[ix] + rng.uniform(-0.4, 0.4, ix.size) * spec.spacing
     py = ys[iy] + rng.uniform(-0.4, 0.4, iy.size) * spec.spacing
     nrx, nry = spec.regular_pattern
@@ -229,7 +255,10 @@ class VolumeSpec:
     drilling_strength: float = 1.5
     regular_pattern: tuple[int, int] = (3, 3)
     deviated_share: float = 0.3  # share of wells that drift sideways with depth
-    seismic_blur: tuple[float, float] = (1.5, 1.0)  # vertical, lateral blur of the impedance, in samples/traces
+    seismic_blur: tuple[float, float] = (
+        1.5,
+        1.0,
+    )  # vertical, lateral blur of the impedance, in samples/traces
     seismic_noise: float = 0.03
 
 
@@ -238,7 +267,9 @@ def _field3d(rng, shape, sigma) -> np.ndarray:
     return (field - field.mean()) / field.std()
 
 
-def make_volume_field(spec: VolumeSpec | None = None) -> tuple[xr.Dataset, xr.Dataset, pd.DataFrame]:
+def make_volume_field(
+    spec: VolumeSpec | None = None,
+) -> tuple[xr.Dataset, xr.Dataset, pd.DataFrame]:
     """Build one 3-D field.
 
     Returns
@@ -261,14 +292,17 @@ def make_volume_field(spec: VolumeSpec | None = None) -> tuple[xr.Dataset, xr.Da
     z = spec.z0 + spec.z_step * np.arange(spec.n_samples)
     porosity, v_matrix, rho_matrix = _rock(codes, texture)
     porosity = np.clip(porosity - spec.compaction * (z - spec.z0)[:, None, None], 0.01, 0.35)
-    impedance_true = raymer_velocity(porosity, v_matrix, V_BRINE) * mass_balance_density(porosity, rho_matrix,
-                                                                                          RHO_BRINE)
+    impedance_true = raymer_velocity(porosity, v_matrix, V_BRINE) * mass_balance_density(
+        porosity, rho_matrix, RHO_BRINE
+    )
     vb, lb = spec.seismic_blur
     blurred = gaussian_filter(impedance_true, sigma=(vb, lb, lb), mode="nearest")
     noise = gaussian_filter(rng.standard_normal(shape), sigma=(1.0, 1.0, 1.0))
     impedance = blurred + noise / noise.std() * spec.seismic_noise * impedance_true.mean()
-    log_perm = -1.3 + 13.0 * porosity - 0.4 * (codes == 0) + 0.25 * _field3d(rng, shape, (1.0, 1.0, 1.0))
-    permeability = 10.0 ** log_perm
+    log_perm = (
+        -1.3 + 13.0 * porosity - 0.4 * (codes == 0) + 0.25 * _field3d(rng, shape, (1.0, 1.0, 1.0))
+    )
+    permeability = 10.0**log_perm
 
     theta = np.deg2rad(spec.rotation)
     s = spec.trace_spacing
@@ -280,30 +314,61 @@ def make_volume_field(spec: VolumeSpec | None = None) -> tuple[xr.Dataset, xr.Da
     y0 = spec.y0 - dyi * il[0] - dyx * xl[0]
     affine = [float(v) for v in (x0, dxi, dxx, y0, dyi, dyx)]
     gi, gj = np.meshgrid(il, xl, indexing="ij")
-    coords = {"z": z, "inline": il, "crossline": xl,
-              "cdp_x": (("inline", "crossline"), x0 + dxi * gi + dxx * gj),
-              "cdp_y": (("inline", "crossline"), y0 + dyi * gi + dyx * gj)}
-    attrs = {"field": "Tarnwick lower sands (synthetic)", "generator": "predictor.synthetic.make_volume_field",
-             "spec": str(asdict(spec)), "affine": affine, "z_domain": "depth"}
+    coords = {
+        "z": z,
+        "inline": il,
+        "crossline": xl,
+        "cdp_x": (("inline", "crossline"), x0 + dxi * gi + dxx * gj),
+        "cdp_y": (("inline", "crossline"), y0 + dyi * gi + dyx * gj),
+    }
+    attrs = {
+        "field": "Tarnwick lower sands (synthetic)",
+        "generator": "predictor.synthetic.make_volume_field",
+        "spec": str(asdict(spec)),
+        "affine": affine,
+        "z_domain": "depth",
+    }
     dims = ("z", "inline", "crossline")
-    seismic = xr.Dataset({"impedance": (dims, np.round(impedance, 2))}, coords=coords, attrs=dict(attrs))
+    seismic = xr.Dataset(
+        {"impedance": (dims, np.round(impedance, 2))}, coords=coords, attrs=dict(attrs)
+    )
     seismic["impedance"].attrs.update(units="m/s*g/cm3", long_name="acoustic impedance (inverted)")
     seismic.z.attrs.update(units="m", long_name="depth")
-    truth = xr.Dataset({"facies": (dims, codes), "porosity": (dims, porosity), "permeability": (dims, permeability)},
-                       coords=coords, attrs=dict(attrs))
-    truth["facies"].attrs.update(flag_values=np.arange(len(FACIES), dtype=np.int8), flag_meanings=" ".join(FACIES))
+    truth = xr.Dataset(
+        {
+            "facies": (dims, codes),
+            "porosity": (dims, porosity),
+            "permeability": (dims, permeability),
+        },
+        coords=coords,
+        attrs=dict(attrs),
+    )
+    truth["facies"].attrs.update(
+        flag_values=np.arange(len(FACIES), dtype=np.int8), flag_meanings=" ".join(FACIES)
+    )
     wells = _drill_volume(spec, rng, porosity, codes, permeability, affine, il, xl, z)
     return seismic, truth, wells
 
 
-def _drill_volume(spec: VolumeSpec, rng, porosity, codes, permeability, affine, il, xl, z) -> pd.DataFrame:
+def _drill_volume(
+    spec: VolumeSpec, rng, porosity, codes, permeability, affine, il, xl, z
+) -> pd.DataFrame:
     """Wells preferentially where the column's porosity is high, plus a regular pattern; a share
     of them deviated; one sample per ``z_step`` along each well with a little measurement noise."""
     column = gaussian_filter(porosity.mean(axis=0), sigma=2)
-    ii, jj = (a.astype(float) for a in _preferential(rng, column, spec.n_preferential, spec.drilling_strength))
+    ii, jj = (
+        a.astype(float)
+        for a in _preferential(rng, column, spec.n_preferential, spec.drilling_strength)
+    )
     ri, rj = spec.regular_pattern
-    gi, gj = (a.ravel() for a in np.meshgrid(np.linspace(0, il.size - 1, ri + 2)[1:-1],
-                                             np.linspace(0, xl.size - 1, rj + 2)[1:-1], indexing="ij"))
+    gi, gj = (
+        a.ravel()
+        for a in np.meshgrid(
+            np.linspace(0, il.size - 1, ri + 2)[1:-1],
+            np.linspace(0, xl.size - 1, rj + 2)[1:-1],
+            indexing="ij",
+        )
+    )
     ii, jj = np.concatenate([ii, gi]), np.concatenate([jj, gj])
     x0, dxi, dxx, y0, dyi, dyx = affine
     rows = []
@@ -317,15 +382,23 @@ def _drill_volume(spec: VolumeSpec, rng, porosity, codes, permeability, affine, 
         lines_i, lines_j = il[0] + fi, xl[0] + fj
         ni, nj = np.round(fi).astype(int), np.round(fj).astype(int)
         k = np.arange(n)
-        rows.append(pd.DataFrame({
-            "well_id": f"TL-{w + 1:02d}",
-            "x": np.round(x0 + dxi * lines_i + dxx * lines_j, 1),
-            "y": np.round(y0 + dyi * lines_i + dyx * lines_j, 1),
-            "depth": z,
-            "facies": [FACIES[c] for c in codes[k, ni, nj]],
-            "porosity": np.round(np.clip(porosity[k, ni, nj] + rng.normal(0, 0.005, n), 0.005, 0.4), 4),
-            "permeability": np.round(permeability[k, ni, nj] * 10 ** rng.normal(0, 0.05, n), 3),
-        }))
+        rows.append(
+            pd.DataFrame(
+                {
+                    "well_id": f"TL-{w + 1:02d}",
+                    "x": np.round(x0 + dxi * lines_i + dxx * lines_j, 1),
+                    "y": np.round(y0 + dyi * lines_i + dyx * lines_j, 1),
+                    "depth": z,
+                    "facies": [FACIES[c] for c in codes[k, ni, nj]],
+                    "porosity": np.round(
+                        np.clip(porosity[k, ni, nj] + rng.normal(0, 0.005, n), 0.005, 0.4), 4
+                    ),
+                    "permeability": np.round(
+                        permeability[k, ni, nj] * 10 ** rng.normal(0, 0.05, n), 3
+                    ),
+                }
+            )
+        )
     return pd.concat(rows, ignore_index=True)
 
 
@@ -341,8 +414,10 @@ def volume_demo_files(folder, spec: VolumeSpec | None = None) -> dict[str, str]:
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
     seismic, truth, wells = make_volume_field(spec)
-    paths = {name: folder / name for name in ("well_samples.csv", "impedance.sgy", "impedance.nc",
-                                              "truth_volume.nc")}
+    paths = {
+        name: folder / name
+        for name in ("well_samples.csv", "impedance.sgy", "impedance.nc", "truth_volume.nc")
+    }
     with atomic_file(paths["well_samples.csv"]) as tmp:
         wells.to_csv(tmp, index=False, lineterminator="\n")
     write_segy(seismic, "impedance", paths["impedance.sgy"])

@@ -105,46 +105,103 @@ class TrainOptions:
     help (see :mod:`predictor.options`), and ``Literal`` fields their allowed values.
     """
 
-    targets: list[str] = option(MISSING, "--target", "well column to model (repeat for several: --target porosity "
-                                "--target facies)", action="append", required=True)
-    features: FeatureSpec | None = None  # None: the default set; the CLI builds it from the feature flags
+    targets: list[str] = option(
+        MISSING,
+        "--target",
+        "well column to model (repeat for several: --target porosity --target facies)",
+        action="append",
+        required=True,
+    )
+    features: FeatureSpec | None = (
+        None  # None: the default set; the CLI builds it from the feature flags
+    )
     n_splits: int = option(5, "--folds", "number of spatial CV folds")
-    block_size: float | None = option(None, "--block-size", "CV block side in metres (default: fitted variogram "
-                                      "range)", type=float)
+    block_size: float | None = option(
+        None,
+        "--block-size",
+        "CV block side in metres (default: fitted variogram range)",
+        type=float,
+    )
     block_angle: float = option(0.0, "--block-angle", "rotation of the CV blocks in degrees")
-    cv: DesignName = option("matched", "--cv", "fold design: matched to the map's prediction distances (default, "
-                            "kNNDM), nndm (leave-one-out matched to the map, for small well sets), blocks (block "
-                            "k-fold), buffered (leave-one-out with the block size as exclusion radius) or random "
-                            "(contrast only)")
-    declustering: Declustering = option("cell", "--declustering", "declustering weights used as sample weights and "
-                                        "score weights (default cell); declustered statistics always use "
-                                        "nearest-node weights")
-    monotone: dict[str, int] | None = option(None, "--monotone", "also try LightGBM constrained in this attribute: "
-                                             "-1 non-increasing, 1 non-decreasing (e.g. --monotone impedance:-1; "
-                                             "repeatable)", action="append", type=monotone_pair, metavar="ATTR:DIR")
-    well_ties: WellTiesRule = option("auto", "--well-ties", "krige out-of-fold residuals onto the map: when CV shows "
-                                     "it helps (auto, the default), always, never")
-    interval_spread: IntervalSpread = option("features", "--interval-spread", "scale intervals by a local error "
-                                             "spread: learnt from the attributes (default), the well-tie kriging "
-                                             "standard deviation (narrow near wells), or none (constant width)")
+    cv: DesignName = option(
+        "matched",
+        "--cv",
+        "fold design: matched to the map's prediction distances (default, "
+        "kNNDM), nndm (leave-one-out matched to the map, for small well sets), blocks (block "
+        "k-fold), buffered (leave-one-out with the block size as exclusion radius) or random "
+        "(contrast only)",
+    )
+    declustering: Declustering = option(
+        "cell",
+        "--declustering",
+        "declustering weights used as sample weights and "
+        "score weights (default cell); declustered statistics always use "
+        "nearest-node weights",
+    )
+    monotone: dict[str, int] | None = option(
+        None,
+        "--monotone",
+        "also try LightGBM constrained in this attribute: "
+        "-1 non-increasing, 1 non-decreasing (e.g. --monotone impedance:-1; "
+        "repeatable)",
+        action="append",
+        type=monotone_pair,
+        metavar="ATTR:DIR",
+    )
+    well_ties: WellTiesRule = option(
+        "auto",
+        "--well-ties",
+        "krige out-of-fold residuals onto the map: when CV shows "
+        "it helps (auto, the default), always, never",
+    )
+    interval_spread: IntervalSpread = option(
+        "features",
+        "--interval-spread",
+        "scale intervals by a local error "
+        "spread: learnt from the attributes (default), the well-tie kriging "
+        "standard deviation (narrow near wells), or none (constant width)",
+    )
     sample_method: SampleMethod = option("bilinear", None, "how features are read at the wells")
-    drop_outside: bool = option(False, "--drop-outside", "leave out wells off the grid, with a warning")
+    drop_outside: bool = option(
+        False, "--drop-outside", "leave out wells off the grid, with a warning"
+    )
     seed: int = option(0, "--seed", "random seed")
-    n_threads: int | None = option(None, "--threads", "LightGBM threads, used above a few thousand training rows "
-                                   "where they pay off (default: all cores; results do not depend on it)", type=int)
-    candidates: list[str] | None = option(None, "--candidate", "only these candidates (repeatable, e.g. --candidate "
-                                          "lightgbm --candidate linear); the baselines are among the names",
-                                          action="append")
-    facies_map: MapRule = option("balanced", "--facies-map", "how the facies map draws one class per node from the "
-                                 "probabilities: balanced (largest probability relative to the class's field-wide "
-                                 "share; default, see the README), proportions (class thresholds that reproduce the "
-                                 "field-wide proportions) or most-probable")
-    kriging_neighbours: int | None = option(None, "--kriging-neighbours", f"wells each map tile is kriged from "
-                                            f"(default: every well up to {GLOBAL_WELLS} wells, above that the "
-                                            f"nearest {NEIGHBOURS})", type=int, metavar="N")
+    n_threads: int | None = option(
+        None,
+        "--threads",
+        "LightGBM threads, used above a few thousand training rows "
+        "where they pay off (default: all cores; results do not depend on it)",
+        type=int,
+    )
+    candidates: list[str] | None = option(
+        None,
+        "--candidate",
+        "only these candidates (repeatable, e.g. --candidate "
+        "lightgbm --candidate linear); the baselines are among the names",
+        action="append",
+    )
+    facies_map: MapRule = option(
+        "balanced",
+        "--facies-map",
+        "how the facies map draws one class per node from the "
+        "probabilities: balanced (largest probability relative to the class's field-wide "
+        "share; default, see the README), proportions (class thresholds that reproduce the "
+        "field-wide proportions) or most-probable",
+    )
+    kriging_neighbours: int | None = option(
+        None,
+        "--kriging-neighbours",
+        "wells each map tile is kriged from "
+        f"(default: every well up to {GLOBAL_WELLS} wells, above that the "
+        f"nearest {NEIGHBOURS})",
+        type=int,
+        metavar="N",
+    )
 
     def __post_init__(self):
-        if isinstance(self.monotone, list | tuple):  # the command line gives (attribute, direction) pairs
+        if isinstance(
+            self.monotone, list | tuple
+        ):  # the command line gives (attribute, direction) pairs
             self.monotone = dict(self.monotone)
 
     def to_dict(self) -> dict:
@@ -156,10 +213,15 @@ class TrainOptions:
         """Option values checked once, with the allowed values named."""
         check_choices(self)
         if not (isinstance(self.n_splits, int) and self.n_splits >= 2):
-            raise InputError(f"the number of CV folds (--folds, n_splits) must be an integer of 2 or more, got {self.n_splits!r}")
+            raise InputError(
+                "the number of CV folds (--folds, n_splits) must be an integer of 2 or more, got"
+                f" {self.n_splits!r}"
+            )
         k = self.kriging_neighbours
         if k is not None and not (isinstance(k, int) and k >= 3):
-            raise InputError(f"--kriging-neighbours {k!r}: a kriging neighbourhood needs 3 wells or more")
+            raise InputError(
+                f"--kriging-neighbours {k!r}: a kriging neighbourhood needs 3 wells or more"
+            )
 
 
 @dataclass
@@ -187,12 +249,18 @@ class TargetModel:
     applicability: Applicability | None = None
     applicability_cv: dict = field(default_factory=dict)
     trust: dict = field(default_factory=dict)
-    units: np.ndarray | None = None  # the well of each training row (volumes: several samples per well)
-    design: FoldDesign | None = None  # the fold design that scored, selected and calibrated this model
+    units: np.ndarray | None = (
+        None  # the well of each training row (volumes: several samples per well)
+    )
+    design: FoldDesign | None = (
+        None  # the fold design that scored, selected and calibrated this model
+    )
     distances: dict = field(default_factory=dict)  # prediction distances: map vs each design (W)
     folds: np.ndarray | None = None  # the test fold of every training row
     notes: list[str] = field(default_factory=list)
-    representative_weights: np.ndarray | None = None  # score weights raked to the map (see cv_design)
+    representative_weights: np.ndarray | None = (
+        None  # score weights raked to the map (see cv_design)
+    )
     field_wide: FieldWide | None = None  # field-wide mean or proportions, debiased with the seismic
     map_factors: np.ndarray | None = None  # classes: argmax(p * map_factors) draws the facies map
     rows: np.ndarray | None = None  # the rows of TrainedModels.wells this target was trained on
@@ -217,10 +285,13 @@ class TargetModel:
         return table
 
     def refit(self, candidate: str):
-        """Fit the named leaderboard candidate (a baseline, say) on all wells, for comparison maps."""
+        """Fit the named leaderboard candidate (a baseline, say) on all wells, for comparison
+        maps."""
         if candidate not in self.candidates:
-            raise ModelError(f"no candidate {candidate!r} for {self.name}; the leaderboard has "
-                             f"{', '.join(self.candidates)}")
+            raise ModelError(
+                f"no candidate {candidate!r} for {self.name}; the leaderboard has "
+                f"{', '.join(self.candidates)}"
+            )
         return clone(self.candidates[candidate]).fit(self.data)
 
 
@@ -236,9 +307,15 @@ class TrainedModels:
     statistics: dict
     targets: dict[str, TargetModel]
     warnings: list[str] = field(default_factory=list)
-    well_features: pd.DataFrame | None = None  # features at the kept wells, same row order as ``wells``
-    space: dict = field(default_factory=lambda: {"kind": "map"})  # map, or volume with its z domain and range
-    attribute_kinds: dict[str, str] = field(default_factory=dict)  # attribute -> impedance, amplitude, ...
+    well_features: pd.DataFrame | None = (
+        None  # features at the kept wells, same row order as ``wells``
+    )
+    space: dict = field(
+        default_factory=lambda: {"kind": "map"}
+    )  # map, or volume with its z domain and range
+    attribute_kinds: dict[str, str] = field(
+        default_factory=dict
+    )  # attribute -> impedance, amplitude, ...
 
 
 def task_of(wells: pd.DataFrame, target: str) -> Task:
@@ -248,7 +325,8 @@ def task_of(wells: pd.DataFrame, target: str) -> Task:
 
 
 def _targets_by_role(wells: pd.DataFrame, options: TrainOptions) -> TrainOptions:
-    """A target named by its file column (``PHIT``) trains as the role the reader gave it (porosity)."""
+    """A target named by its file column (``PHIT``) trains as the role the reader gave it
+    (porosity)."""
     taken = wells.attrs.get("columns_taken", {})
     renamed = {col: role for role, col in taken.items() if role in ROLE_NAMES and col != role}
     if not any(t in renamed for t in options.targets):
@@ -259,26 +337,48 @@ def _targets_by_role(wells: pd.DataFrame, options: TrainOptions) -> TrainOptions
 def _check_inputs(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> None:
     source = wells.attrs.get("source", "wells")
     if not options.targets:
-        raise InputError("no target given; name at least one well column with --target (e.g. porosity)")
+        raise InputError(
+            "no target given; name at least one well column with --target (e.g. porosity)"
+        )
     for target in options.targets:
         if target not in wells:
-            raise InputError(f"{source}: no column {target!r} to train on; columns are {', '.join(wells.columns)}")
+            raise InputError(
+                f"{source}: no column {target!r} to train on; columns are"
+                f" {', '.join(wells.columns)}"
+            )
         values = wells[target]
         if values.isna().all() or (values.astype("string").str.strip() == "").all():
-            raise InputError(f"{source}: target column {target!r} is empty (all missing); fill it or drop the target")
+            raise InputError(
+                f"{source}: target column {target!r} is empty (all missing); fill it or drop the"
+                " target"
+            )
     spots = wells[["x", "y"]].round(3).drop_duplicates()
     if len(spots) < 2:
-        raise InputError(f"{source}: all {len(wells)} rows sit at one position (x {spots.x.iloc[0]:g}, y "
-                         f"{spots.y.iloc[0]:g}); spatial CV and mapping need wells at several positions: check the "
-                         "coordinate columns (--x-column, --y-column)")
+        raise InputError(
+            f"{source}: all {len(wells)} rows sit at one position (x {spots.x.iloc[0]:g}, y"
+            f" {spots.y.iloc[0]:g}); spatial CV and mapping need wells at several positions: check"
+            " the coordinate columns (--x-column, --y-column)"
+        )
     if not is_volume(grid) and any(task_of(wells, t) == "regression" for t in options.targets):
-        _check_well_positions(wells, source, options)  # numeric targets bring kriging (baselines, well ties)
+        _check_well_positions(
+            wells, source, options
+        )  # numeric targets bring kriging (baselines, well ties)
     # a property that is not trained on never blocks training (QC still reports it)
-    errors = [f for f in physical_findings(wells, source) + grid_findings(grid) if f.severity == "error"
-              and not (f.column in ("porosity", "permeability") and f.column not in options.targets)]
+    errors = [
+        f
+        for f in physical_findings(wells, source) + grid_findings(grid)
+        if f.severity == "error"
+        and not (f.column in ("porosity", "permeability") and f.column not in options.targets)
+    ]
     if errors:
-        raise InputError(errors[0].message + ("" if len(errors) == 1 else f" (and {len(errors) - 1} more problems; "
-                                              "run `predictor qc` for the full list)"))
+        raise InputError(
+            errors[0].message
+            + (
+                ""
+                if len(errors) == 1
+                else f" (and {len(errors) - 1} more problems; run `predictor qc` for the full list)"
+            )
+        )
 
 
 def _check_well_positions(wells: pd.DataFrame, source: str, options: TrainOptions) -> None:
@@ -287,23 +387,37 @@ def _check_well_positions(wells: pd.DataFrame, source: str, options: TrainOption
     same = wells[wells.duplicated(["x", "y"], keep=False)]
     if len(same):
         ids = same["well_id"].astype(str) if "well_id" in same else same.index.astype(str)
-        groups = same.assign(_id=ids.to_numpy()).groupby(["x", "y"])["_id"].apply(lambda s: "=".join(s))
-        raise InputError(f"{source}: wells at identical coordinates: {list_rows(list(groups))}; kriging cannot "
-                         "tell them apart: merge each group into one row (average its values) or remove one")
+        groups = (
+            same.assign(_id=ids.to_numpy()).groupby(["x", "y"])["_id"].apply(lambda s: "=".join(s))
+        )
+        raise InputError(
+            f"{source}: wells at identical coordinates: {list_rows(list(groups))}; kriging cannot "
+            "tell them apart: merge each group into one row (average its values) or remove one"
+        )
     n = options.kriging_neighbours
     if n is not None and n > len(wells):
-        raise InputError(f"--kriging-neighbours {n}: there are only {len(wells)} wells; give 3 to {len(wells)}, or "
-                         f"leave it out (every well up to {GLOBAL_WELLS} wells, then the nearest {NEIGHBOURS})")
+        raise InputError(
+            f"--kriging-neighbours {n}: there are only {len(wells)} wells; give 3 to {len(wells)},"
+            f" or leave it out (every well up to {GLOBAL_WELLS} wells, then the nearest"
+            f" {NEIGHBOURS})"
+        )
 
 
 def _chosen(cell, nearest: np.ndarray, method: str) -> tuple[np.ndarray, dict]:
     """Model/score weights by ``method`` and the summary the card records."""
     model = {"cell": cell.weights, "nearest_node": nearest, "none": np.ones(len(nearest))}[method]
-    return model, {"model_weights": method, "statistics_weights": "nearest_node", "cell": cell.summary()}
+    return model, {
+        "model_weights": method,
+        "statistics_weights": "nearest_node",
+        "cell": cell.summary(),
+    }
 
 
-def _weights(wells: pd.DataFrame, grid: xr.Dataset, method: str) -> tuple[np.ndarray, np.ndarray, np.ndarray, dict]:
-    """Model/score weights (by ``method``), nearest-node and cell weights for statistics, and a summary."""
+def _weights(
+    wells: pd.DataFrame, grid: xr.Dataset, method: str
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, dict]:
+    """Model/score weights (by ``method``), nearest-node and cell weights for statistics, and a
+    summary."""
     cell, nearest = decluster(wells, grid)
     model, summary = _chosen(cell, nearest, method)
     return model, nearest, cell.weights, summary
@@ -319,9 +433,16 @@ def _volume_weights(wells: pd.DataFrame, volume: xr.Dataset, method: str):
     return model[codes], nearest[codes], cell.weights[codes], summary, codes, head_xy
 
 
-def _block_size(data: FitData, options: TrainOptions, attrs: list[str], baseline_y: np.ndarray,
-                cv_xy: np.ndarray, units: np.ndarray) -> tuple[float, str, dict | None]:
-    """The fitted variogram range of the linear baseline's residuals, shrunk if too few blocks result.
+def _block_size(
+    data: FitData,
+    options: TrainOptions,
+    attrs: list[str],
+    baseline_y: np.ndarray,
+    cv_xy: np.ndarray,
+    units: np.ndarray,
+) -> tuple[float, str, dict | None]:
+    """The fitted variogram range of the linear baseline's residuals, shrunk if too few blocks
+    result.
 
     ``cv_xy`` are the positions the blocks are cut by and ``units`` the well of each row; with
     several samples per well (volumes) the residuals are averaged per well first.
@@ -339,37 +460,56 @@ def _block_size(data: FitData, options: TrainOptions, attrs: list[str], baseline
             # no spatial structure: a range would be noise; blocks four well spacings wide instead
             spacing_ = float(np.median(cKDTree(heads).query(heads, k=2)[0][:, 1]))
             size = 4 * spacing_
-            source = (f"four times the median well spacing ({spacing_:.0f} m): the linear baseline's residuals "
-                      "show no spatial correlation (pure nugget), so no variogram range could size the blocks")
+            source = (
+                f"four times the median well spacing ({spacing_:.0f} m): the linear baseline's"
+                " residuals show no spatial correlation (pure nugget), so no variogram range could"
+                " size the blocks"
+            )
     extent = max(np.ptp(cv_xy[:, 0]), np.ptp(cv_xy[:, 1]))
     shrunk = False
-    while np.unique(block_labels(cv_xy[:, 0], cv_xy[:, 1], size, options.block_angle)).size < 2 * options.n_splits:
+    while (
+        np.unique(block_labels(cv_xy[:, 0], cv_xy[:, 1], size, options.block_angle)).size
+        < 2 * options.n_splits
+    ):
         size *= 0.8
         shrunk = True
         if size < extent / 100:
-            raise ModelError("the wells cannot be split into enough spatial blocks; add wells or use fewer folds")
+            raise ModelError(
+                "the wells cannot be split into enough spatial blocks; add wells or use fewer folds"
+            )
     if shrunk:
-        source += f"; reduced to {size:.0f} m so that at least {2 * options.n_splits} blocks hold wells"
+        source += (
+            f"; reduced to {size:.0f} m so that at least {2 * options.n_splits} blocks hold wells"
+        )
     return float(size), source, vario
 
 
-def monotone_constraints(given: dict[str, int], attrs: list[str], names: list[str]) -> dict[str, int]:
+def monotone_constraints(
+    given: dict[str, int], attrs: list[str], names: list[str]
+) -> dict[str, int]:
     """Per-feature monotone directions from the user's ``{attribute: -1 or +1}``: the attribute and
     its smoothed versions follow the given direction; contrasts and gradients stay free."""
     unknown = [a for a in given if a not in attrs]
     if unknown:
-        raise InputError(f"--monotone names {', '.join(unknown)}, which is not an attribute of the grid; "
-                         f"the attributes are {', '.join(attrs)} (e.g. --monotone {attrs[0]}:-1)")
+        raise InputError(
+            f"--monotone names {', '.join(unknown)}, which is not an attribute of the grid; "
+            f"the attributes are {', '.join(attrs)} (e.g. --monotone {attrs[0]}:-1)"
+        )
     bad = [f"{a}:{d}" for a, d in given.items() if d not in (-1, 1)]
     if bad:
-        raise InputError(f"--monotone {', '.join(bad)}: the direction must be -1 (non-increasing) or 1 "
-                         "(non-decreasing)")
+        raise InputError(
+            f"--monotone {', '.join(bad)}: the direction must be -1 (non-increasing) or 1 "
+            "(non-decreasing)"
+        )
     return {n: d for a, d in given.items() for n in names if n == a or n.startswith(f"{a}_smooth")}
 
 
 def _score(task: Task, y, oof, w, classes) -> dict:
-    return regression_scores(y, oof, w) if task == "regression" else classification_scores(
-        np.asarray(classes)[y], oof, classes, w)
+    return (
+        regression_scores(y, oof, w)
+        if task == "regression"
+        else classification_scores(np.asarray(classes)[y], oof, classes, w)
+    )
 
 
 def train(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> TrainedModels:
@@ -393,10 +533,25 @@ def train(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> Train
         prep.notes += tm.trust.get("warnings", []) + tm.notes
     loc = location_features(prep.names)
     if loc:
-        prep.notes.append(f"location features {', '.join(loc)} are in use: they let a model memorise where the "
-                          "wells are; compare with the attributes-only candidate in the leaderboard")
-    return TrainedModels(options, prep.spec, prep.names, prep.ranges, prep.wells, prep.weights, prep.declustering,
-                         prep.statistics, results, prep.notes, prep.X, prep.space, prep.attribute_kinds)
+        prep.notes.append(
+            f"location features {', '.join(loc)} are in use: they let a model memorise where the "
+            "wells are; compare with the attributes-only candidate in the leaderboard"
+        )
+    return TrainedModels(
+        options,
+        prep.spec,
+        prep.names,
+        prep.ranges,
+        prep.wells,
+        prep.weights,
+        prep.declustering,
+        prep.statistics,
+        results,
+        prep.notes,
+        prep.X,
+        prep.space,
+        prep.attribute_kinds,
+    )
 
 
 @dataclass
@@ -421,33 +576,45 @@ class _Prepared:
     facies_classes: list[str]
     space: dict
     notes: list[str]
-    map_X: pd.DataFrame  # features at a seeded sample of the map's nodes (volumes: of live traces' samples)
+    map_X: (
+        pd.DataFrame
+    )  # features at a seeded sample of the map's nodes (volumes: of live traces' samples)
     map_X_xy: np.ndarray  # their positions
     nearest_weights: np.ndarray  # nearest-node declustering weight of each row
     cell_weights: np.ndarray  # cell declustering weight of each row
-    attribute_kinds: dict[str, str]  # what each attribute is (impedance, amplitude, ...; see grid.attribute_kind)
+    attribute_kinds: dict[
+        str, str
+    ]  # what each attribute is (impedance, amplitude, ...; see grid.attribute_kind)
 
 
 def _prepare(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> _Prepared:
     notes: list[str] = []
     volume = is_volume(grid)
     if volume and "z" not in wells:
-        raise InputError(f"{wells.attrs.get('source', 'wells')}: a volume needs wells as samples with z "
-                         "(depth or two-way time): add a z, depth or twt column, one row per sample")
+        raise InputError(
+            f"{wells.attrs.get('source', 'wells')}: a volume needs wells as samples with z "
+            "(depth or two-way time): add a z, depth or twt column, one row per sample"
+        )
     spec = options.features or default_features(wells, grid, options)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", PredictorWarning)
         if volume:
-            X_all, kept = features_at_samples(grid, spec, wells, options.drop_outside, wells_z_domain(wells))
+            X_all, kept = features_at_samples(
+                grid, spec, wells, options.drop_outside, wells_z_domain(wells)
+            )
         else:
             feature_grid = build_features(grid, spec)
-            X_all, kept = features_at_wells(feature_grid, wells, options.sample_method, options.drop_outside)
+            X_all, kept = features_at_wells(
+                feature_grid, wells, options.sample_method, options.drop_outside
+            )
     notes += [str(w.message) for w in caught]
     names = [str(c) for c in X_all.columns]
     wells = wells.loc[kept].reset_index(drop=True)
     xy = wells[["x", "y"]].to_numpy(float)
     if volume:
-        weights, stat_weights, cell_weights, decl, units, cv_xy = _volume_weights(wells, grid, options.declustering)
+        weights, stat_weights, cell_weights, decl, units, cv_xy = _volume_weights(
+            wells, grid, options.declustering
+        )
         if options.well_ties == "always":
             notes.append("well ties krige a map's residuals; they are not offered for volumes")
         xx, yy, live = trace_footprint(grid)
@@ -460,32 +627,69 @@ def _prepare(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOptions) -> _P
         map_xy = np.column_stack([xx[valid], yy[valid]])
     pick = sample_locations(len(map_xy), options.seed)
     map_xy = map_xy[pick]
-    map_attrs = None if volume else pd.DataFrame({a: grid[a].to_numpy()[valid][pick] for a in spec.attributes})
-    map_X, map_X_xy = (_volume_sample(grid, spec, names, wells, options) if volume
-                       else _map_sample(grid, feature_grid, names, options.seed))
+    map_attrs = (
+        None
+        if volume
+        else pd.DataFrame({a: grid[a].to_numpy()[valid][pick] for a in spec.attributes})
+    )
+    map_X, map_X_xy = (
+        _volume_sample(grid, spec, names, wells, options)
+        if volume
+        else _map_sample(grid, feature_grid, names, options.seed)
+    )
     ranges = {n: [float(np.nanmin(X_all[n])), float(np.nanmax(X_all[n]))] for n in names}
     facies_classes: list[str] = []
     facies_codes = None
     if "facies" in wells:
         labels = wells["facies"].astype("string")
         facies_classes = sorted(labels.dropna().unique().tolist())
-        facies_codes = np.array([facies_classes.index(v) if v in facies_classes else -1
-                                 for v in labels.fillna("\x00")])
+        facies_codes = np.array(
+            [facies_classes.index(v) if v in facies_classes else -1 for v in labels.fillna("\x00")]
+        )
     numeric = [t for t in options.targets if task_of(wells, t) == "regression"]
     categorical = [t for t in options.targets if t not in numeric]
     # statistics use nearest-node weights: the closer map-wide estimate in
     # experiments/declustering_accuracy.py; the cell-weighted ones are kept beside them
     stats = declustered_statistics(wells, stat_weights, numeric, categorical)
-    stats["declustered_cell"] = declustered_statistics(wells, cell_weights, numeric, categorical)["declustered"]
+    stats["declustered_cell"] = declustered_statistics(wells, cell_weights, numeric, categorical)[
+        "declustered"
+    ]
     notes += _attribute_cover(X_all, map_X, spec.attributes)
     space = {"kind": "map"}
     if volume:
-        space = {"kind": "volume", "z_domain": grid.attrs.get("z_domain", "unknown"),
-                 "wells_z_domain": wells_z_domain(wells), "z_range": [float(wells["z"].min()), float(wells["z"].max())],
-                 "samples": int(len(wells)), "wells": int(wells["well_id"].nunique())}
-    return _Prepared(wells, X_all, names, spec, xy, weights, units, cv_xy, map_xy, map_attrs, volume, ranges, decl,
-                     stats, facies_codes, facies_classes, space, notes, map_X, map_X_xy, stat_weights, cell_weights,
-                     {a: attribute_kind(grid, a) for a in spec.attributes})
+        space = {
+            "kind": "volume",
+            "z_domain": grid.attrs.get("z_domain", "unknown"),
+            "wells_z_domain": wells_z_domain(wells),
+            "z_range": [float(wells["z"].min()), float(wells["z"].max())],
+            "samples": int(len(wells)),
+            "wells": int(wells["well_id"].nunique()),
+        }
+    return _Prepared(
+        wells,
+        X_all,
+        names,
+        spec,
+        xy,
+        weights,
+        units,
+        cv_xy,
+        map_xy,
+        map_attrs,
+        volume,
+        ranges,
+        decl,
+        stats,
+        facies_codes,
+        facies_classes,
+        space,
+        notes,
+        map_X,
+        map_X_xy,
+        stat_weights,
+        cell_weights,
+        {a: attribute_kind(grid, a) for a in spec.attributes},
+    )
 
 
 def _attribute_cover(at_wells: pd.DataFrame, on_map: pd.DataFrame, attrs: list[str]) -> list[str]:
@@ -495,35 +699,54 @@ def _attribute_cover(at_wells: pd.DataFrame, on_map: pd.DataFrame, attrs: list[s
         lo, hi = np.nanquantile(on_map[a], [0.005, 0.995])
         seen = max(0.0, min(hi, np.nanmax(at_wells[a])) - max(lo, np.nanmin(at_wells[a])))
         if hi > lo and seen < 0.5 * (hi - lo):
-            out.append(f"the wells sample {a} from {np.nanmin(at_wells[a]):.4g} to {np.nanmax(at_wells[a]):.4g}, "
-                       f"less than half of its range over the map ({lo:.4g} to {hi:.4g}): the models and the "
-                       "field-wide numbers debiased with the seismic extrapolate there; read them as uncertain, "
-                       "or add wells in the unsampled part of the attribute's range")
+            out.append(
+                f"the wells sample {a} from {np.nanmin(at_wells[a]):.4g} to"
+                f" {np.nanmax(at_wells[a]):.4g}, less than half of its range over the map ({lo:.4g}"
+                f" to {hi:.4g}): the models and the field-wide numbers debiased with the seismic"
+                " extrapolate there; read them as uncertain, or add wells in the unsampled part of"
+                " the attribute's range"
+            )
     return out
 
 
 def _map_sample(grid: xr.Dataset, feature_grid: xr.Dataset, names: list[str], seed: int):
-    """Features and positions of a seeded sample of the map's nodes (the field-wide estimates' support)."""
+    """Features and positions of a seeded sample of the map's nodes (the field-wide estimates'
+    support)."""
     matrix, valid = feature_matrix(feature_grid, names)
     xx, yy = np.meshgrid(grid.x.to_numpy(), grid.y.to_numpy())
     pick = sample_locations(len(matrix), seed)
-    return pd.DataFrame(matrix[pick], columns=names), np.column_stack([xx.ravel()[valid], yy.ravel()[valid]])[pick]
+    return (
+        pd.DataFrame(matrix[pick], columns=names),
+        np.column_stack([xx.ravel()[valid], yy.ravel()[valid]])[pick],
+    )
 
 
 VOLUME_SAMPLE_TRACES = 40
 
 
-def _volume_sample(volume: xr.Dataset, spec: FeatureSpec, names: list[str], wells: pd.DataFrame,
-                   options: TrainOptions):
+def _volume_sample(
+    volume: xr.Dataset,
+    spec: FeatureSpec,
+    names: list[str],
+    wells: pd.DataFrame,
+    options: TrainOptions,
+):
     """Features at every sample of a seeded set of live traces, within the wells' z range."""
     xx, yy, live = trace_footprint(volume)
     rng = np.random.default_rng(options.seed)
-    traces = rng.choice(int(live.sum()), size=min(VOLUME_SAMPLE_TRACES, int(live.sum())), replace=False)
+    traces = rng.choice(
+        int(live.sum()), size=min(VOLUME_SAMPLE_TRACES, int(live.sum())), replace=False
+    )
     z = volume.z.to_numpy()
     z = z[(z >= wells["z"].min()) & (z <= wells["z"].max())]
-    pseudo = pd.DataFrame({"well_id": np.repeat([f"trace{t}" for t in traces], z.size),
-                           "x": np.repeat(xx[live][traces], z.size), "y": np.repeat(yy[live][traces], z.size),
-                           "z": np.tile(z, traces.size)})
+    pseudo = pd.DataFrame(
+        {
+            "well_id": np.repeat([f"trace{t}" for t in traces], z.size),
+            "x": np.repeat(xx[live][traces], z.size),
+            "y": np.repeat(yy[live][traces], z.size),
+            "z": np.tile(z, traces.size),
+        }
+    )
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", PredictorWarning)
         X, kept = features_at_samples(volume, spec, pseudo, True, wells_z_domain(wells))
@@ -551,12 +774,21 @@ def default_features(wells: pd.DataFrame, grid: xr.Dataset, options: TrainOption
     if is_volume(grid):
         dz = z_step(grid)
         vertical = [round(3 * dz, 3), round(10 * dz, 3)]
-    return FeatureSpec(attrs, context_radii=[float(r) for r in radii], gradient=True, vertical_radii=vertical,
-                       chosen_by="default: attributes plus context at radii from the grid spacing and the "
-                                 "residual correlation range; the CV compares them with the attributes alone")
+    return FeatureSpec(
+        attrs,
+        context_radii=[float(r) for r in radii],
+        gradient=True,
+        vertical_radii=vertical,
+        chosen_by=(
+            "default: attributes plus context at radii from the grid spacing and the "
+            "residual correlation range; the CV compares them with the attributes alone"
+        ),
+    )
 
 
-def _residual_range(wells: pd.DataFrame, grid: xr.Dataset, attrs: list[str], options: TrainOptions) -> float | None:
+def _residual_range(
+    wells: pd.DataFrame, grid: xr.Dataset, attrs: list[str], options: TrainOptions
+) -> float | None:
     """Correlation range of the first numeric target's residuals from a linear fit on the attributes
     (at the wells' mean positions in a volume), or None when it cannot be fitted."""
     numeric = [t for t in options.targets if t in wells and task_of(wells, t) == "regression"]
@@ -569,7 +801,9 @@ def _residual_range(wells: pd.DataFrame, grid: xr.Dataset, attrs: list[str], opt
             if is_volume(grid):
                 X, kept = features_at_samples(grid, spec, wells, True, wells_z_domain(wells))
             else:
-                X, kept = features_at_wells(build_features(grid, spec), wells, options.sample_method, True)
+                X, kept = features_at_wells(
+                    build_features(grid, spec), wells, options.sample_method, True
+                )
         sub = wells.loc[kept].reset_index(drop=True)
         y = sub[numeric[0]].to_numpy(float)
         ok = np.isfinite(y)
@@ -579,11 +813,18 @@ def _residual_range(wells: pd.DataFrame, grid: xr.Dataset, attrs: list[str], opt
         n = int(ok.sum())
         if n < 6:  # too few wells on the grid to fit anything (the clear error comes later)
             return None
-        data = FitData(X[ok].reset_index(drop=True), y[ok], np.ones(n), sub[["x", "y"]].to_numpy(float)[ok],
-                       np.zeros(n, int))
+        data = FitData(
+            X[ok].reset_index(drop=True),
+            y[ok],
+            np.ones(n),
+            sub[["x", "y"]].to_numpy(float)[ok],
+            np.zeros(n, int),
+        )
         resid = pd.Series(y[ok] - Linear(attrs).fit(data).predict(data.X))
         key = sub["well_id"][ok].to_numpy() if "well_id" in sub else np.arange(n)
-        heads = pd.DataFrame({"x": data.xy[:, 0], "y": data.xy[:, 1], "r": resid}).groupby(key).mean()
+        heads = (
+            pd.DataFrame({"x": data.xy[:, 0], "y": data.xy[:, 1], "r": resid}).groupby(key).mean()
+        )
         return float(auto_variogram(heads.x, heads.y, heads.r).range)
     except (InputError, ModelError, ValueError, np.linalg.LinAlgError):
         return None
@@ -613,8 +854,10 @@ def _target_table(prep: _Prepared, target: str, options: TrainOptions) -> _Targe
     need = 3 * options.n_splits
     n_wells = np.unique(units).size
     if n_wells < need:
-        raise ModelError(f"CV with {options.n_splits} folds needs at least {need} wells with {target!r}; got "
-                         f"{n_wells}; use fewer folds (--folds) or add wells")
+        raise ModelError(
+            f"CV with {options.n_splits} folds needs at least {need} wells with {target!r}; got "
+            f"{n_wells}; use fewer folds (--folds) or add wells"
+        )
     notes: list[str] = []
     classes: list[str] = []
     transform = None
@@ -623,43 +866,79 @@ def _target_table(prep: _Prepared, target: str, options: TrainOptions) -> _Targe
         classes = sorted(set(labels))
         counts = pd.DataFrame({"c": labels, "u": units}).groupby("c")["u"].nunique()
         if len(classes) < 2:
-            raise ModelError(f"target {target!r} has a single class ({classes[0]}); a classifier needs two or more")
+            raise ModelError(
+                f"target {target!r} has a single class ({classes[0]}); a classifier needs two or"
+                " more"
+            )
         rare = counts[counts < 2]
         if len(rare):
-            raise ModelError(f"class(es) {', '.join(rare.index)} of {target!r} have a single well; merge them into "
-                             "a neighbouring class or drop those wells")
+            raise ModelError(
+                f"class(es) {', '.join(rare.index)} of {target!r} have a single well; merge them"
+                " into a neighbouring class or drop those wells"
+            )
         few = counts[counts < options.n_splits]
         if len(few):
-            notes.append(f"class(es) {', '.join(f'{k} ({v} wells)' for k, v in few.items())} of {target!r} have "
-                         f"fewer wells than the {options.n_splits} folds; their scores are unreliable")
+            notes.append(
+                f"class(es) {', '.join(f'{k} ({v} wells)' for k, v in few.items())} of {target!r}"
+                f" have fewer wells than the {options.n_splits} folds; their scores are unreliable"
+            )
         y = np.array([classes.index(v) for v in labels])
         baseline_y = (y == np.argmax(np.bincount(y))).astype(float)
     else:
         y = raw.to_numpy(float)[idx]
         if np.ptp(y) == 0:
-            raise ModelError(f"target {target!r} is {y[0]:g} at every well: a constant has nothing to map; "
-                             "check the column, or drop the target")
+            raise ModelError(
+                f"target {target!r} is {y[0]:g} at every well: a constant has nothing to map; "
+                "check the column, or drop the target"
+            )
         if target in LOG_TARGETS:
             y, transform = np.log10(y), "log10"
         baseline_y = y
     heads, head_of = unit_heads(prep.cv_xy[idx], units)
     if np.ptp(heads[:, 0]) == 0 and np.ptp(heads[:, 1]) == 0:
-        raise ModelError(f"all wells with {target!r} are at one position; spatial CV and mapping need wells at "
-                         "several positions")
+        raise ModelError(
+            f"all wells with {target!r} are at one position; spatial CV and mapping need wells at "
+            "several positions"
+        )
     g_map = map_distances(prep.map_xy, heads)  # prep.map_xy is already a seeded sample
-    data = FitData(prep.X.iloc[idx].reset_index(drop=True), y, prep.weights[idx], prep.xy[idx],
-                   np.zeros(idx.size, int), classes, None if prep.facies_codes is None else prep.facies_codes[idx],
-                   prep.facies_classes, options.seed, options.n_threads, units=head_of, map_distances=g_map,
-                   n_splits=options.n_splits, kriging_neighbours=options.kriging_neighbours)
+    data = FitData(
+        prep.X.iloc[idx].reset_index(drop=True),
+        y,
+        prep.weights[idx],
+        prep.xy[idx],
+        np.zeros(idx.size, int),
+        classes,
+        None if prep.facies_codes is None else prep.facies_codes[idx],
+        prep.facies_classes,
+        options.seed,
+        options.n_threads,
+        units=head_of,
+        map_distances=g_map,
+        n_splits=options.n_splits,
+        kriging_neighbours=options.kriging_neighbours,
+    )
     return _TargetTable(data, y, classes, transform, units, heads, head_of, baseline_y, notes, idx)
 
 
-def _designs(table: _TargetTable, block: float, options: TrainOptions, task: Task, target: str) -> dict:
+def _designs(
+    table: _TargetTable, block: float, options: TrainOptions, task: Task, target: str
+) -> dict:
     """The chosen fold design and, for the diagnostics, the matched, blocked and random ones."""
     g_map = table.data.map_distances
     names = dict.fromkeys([options.cv, "matched", "blocks", "random"])
-    designs = {name: design_folds(name, table.heads, table.head_of, g_map, options.n_splits, block,
-                                  options.block_angle, options.seed) for name in names}
+    designs = {
+        name: design_folds(
+            name,
+            table.heads,
+            table.head_of,
+            g_map,
+            options.n_splits,
+            block,
+            options.block_angle,
+            options.seed,
+        )
+        for name in names
+    }
     chosen = designs[options.cv]
     if task == "classification":
         present = len(table.classes)
@@ -667,39 +946,54 @@ def _designs(table: _TargetTable, block: float, options: TrainOptions, task: Tas
             missing = sorted(set(range(present)) - set(table.y[train_rows]))
             if missing:
                 raise ModelError(
-                    f"fold {k + 1} of the {chosen.name} CV has no training well of {target} "
-                    f"{', '.join(table.classes[m] for m in missing)}: that class sits in one cluster of wells, so "
-                    "it cannot be validated away from it; merge the class into a neighbouring one, add wells, or "
-                    "use --cv random to see in-cluster skill only")
+                    f"fold {k + 1} of the {chosen.name} CV has no training well of {target}"
+                    f" {', '.join(table.classes[m] for m in missing)}: that class sits in one"
+                    " cluster of wells, so it cannot be validated away from it; merge the class"
+                    " into a neighbouring one, add wells, or use --cv random to see in-cluster"
+                    " skill only"
+                )
     return designs
 
 
 def _cross_validate_all(candidates: list, data: FitData, splits) -> dict:
-    """Out-of-fold predictions of every candidate and of their blend on ``splits``; name -> (model, oof)."""
+    """Out-of-fold predictions of every candidate and of their blend on ``splits``; name -> (model,
+    oof)."""
     oofs = {c.name: (c, out_of_fold(c, data, splits)) for c in candidates}
     if len(candidates) >= 2:
         P = np.stack([oofs[c.name][1] for c in candidates], axis=1)
-        blend = Blend(list(candidates), blend_weights(P, data.y, data.weights), member_oof=P, y_all=data.y)
+        blend = Blend(
+            list(candidates), blend_weights(P, data.y, data.weights), member_oof=P, y_all=data.y
+        )
         # the blend's own score: weights fitted without the scored fold
         oof = np.zeros((len(data.y),) + P.shape[2:])
         for train_rows, test in splits:
-            oof[test] = combine(P[test], blend_weights(P[train_rows], data.y[train_rows], data.weights[train_rows]))
+            oof[test] = combine(
+                P[test], blend_weights(P[train_rows], data.y[train_rows], data.weights[train_rows])
+            )
         oofs[blend.name] = (blend, oof)
     return oofs
 
 
-def _board_row(name: str, model, task: Task, table: _TargetTable, oof, random_oof, score_weights) -> dict:
+def _board_row(
+    name: str, model, task: Task, table: _TargetTable, oof, random_oof, score_weights
+) -> dict:
     """Scores of one candidate: ``cv`` with the declustering weights (the reported estimate of
     the map's error), ``cv_representative`` with the weights raked to the map's distance and
     attribute quartiles (shown beside it: on the held-out experiment fields its per-field spread
     was larger, see the README), ``cv_random`` for contrast."""
-    row = {"candidate": name, "baseline": name in BASELINES, "features": list(model.features),
-           "cv": _score(task, table.y, oof, table.data.weights, table.classes),
-           "cv_representative": _score(task, table.y, oof, score_weights, table.classes),
-           "cv_random": _score(task, table.y, random_oof, table.data.weights, table.classes),
-           "cv_se": _loss_se(table.y, oof, table.data.weights, table.units)}
+    row = {
+        "candidate": name,
+        "baseline": name in BASELINES,
+        "features": list(model.features),
+        "cv": _score(task, table.y, oof, table.data.weights, table.classes),
+        "cv_representative": _score(task, table.y, oof, score_weights, table.classes),
+        "cv_random": _score(task, table.y, random_oof, table.data.weights, table.classes),
+        "cv_se": _loss_se(table.y, oof, table.data.weights, table.units),
+    }
     if isinstance(model, Blend):
-        row["members"] = {m.name: float(w) for m, w in zip(model.members, model.weights, strict=True)}
+        row["members"] = {
+            m.name: float(w) for m, w in zip(model.members, model.weights, strict=True)
+        }
     return row
 
 
@@ -715,9 +1009,17 @@ def _select(board: list[dict], oofs: dict, table: _TargetTable, task: Task) -> s
     """
     key = "rmse" if task == "regression" else "log_loss"
     best = min(board, key=lambda r: r["cv"][key])["candidate"]
-    if "blend" in oofs and best != "blend" and not _clearly_better(
-            _losses(table.y, oofs[best][1]), _losses(table.y, oofs["blend"][1]), table.data.weights, table.units,
-            margin=BLEND_MARGIN):
+    if (
+        "blend" in oofs
+        and best != "blend"
+        and not _clearly_better(
+            _losses(table.y, oofs[best][1]),
+            _losses(table.y, oofs["blend"][1]),
+            table.data.weights,
+            table.units,
+            margin=BLEND_MARGIN,
+        )
+    ):
         best = "blend"
     return best
 
@@ -727,116 +1029,214 @@ def _train_target(prep: _Prepared, target: str, options: TrainOptions) -> Target
     table = _target_table(prep, target, options)
     data, y, classes = table.data, table.y, table.classes
     attrs = list(prep.spec.attributes)
-    block, block_source, vario = _block_size(data, options, attrs, table.baseline_y, table.heads[table.head_of],
-                                             table.units)
-    data.groups = block_labels(table.heads[table.head_of, 0], table.heads[table.head_of, 1], block,
-                               options.block_angle)
+    block, block_source, vario = _block_size(
+        data, options, attrs, table.baseline_y, table.heads[table.head_of], table.units
+    )
+    data.groups = block_labels(
+        table.heads[table.head_of, 0], table.heads[table.head_of, 1], block, options.block_angle
+    )
     designs = _designs(table, block, options, task, target)
     design, random_design = designs[options.cv], designs["random"]
     margins = [(design.distances, data.map_distances)]
     if prep.map_attrs is not None:
         margins += [(data.X[a].to_numpy(float), prep.map_attrs[a].to_numpy(float)) for a in attrs]
     representative, unsupported = representative_weights(data.weights, margins)
-    facies = prep.wells["facies"].dropna().astype(str) if "facies" in prep.wells else pd.Series([], dtype=str)
+    facies = (
+        prep.wells["facies"].dropna().astype(str)
+        if "facies" in prep.wells
+        else pd.Series([], dtype=str)
+    )
     candidates = leaderboard_candidates(
-        task, attrs, prep.names, volume=prep.volume, facies_mixture=target != "facies" and facies.nunique() >= 2,
-        monotone=monotone_constraints(options.monotone, attrs, prep.names) if options.monotone else None)
+        task,
+        attrs,
+        prep.names,
+        volume=prep.volume,
+        facies_mixture=target != "facies" and facies.nunique() >= 2,
+        monotone=(
+            monotone_constraints(options.monotone, attrs, prep.names) if options.monotone else None
+        ),
+    )
     if options.candidates:
         known = [c.name for c in candidates]
         candidates = [c for c in candidates if c.name in options.candidates]
         if not candidates:
-            raise InputError(f"none of the candidates {', '.join(options.candidates)} applies to {target!r}; "
-                             f"choose from {', '.join(known)}")
+            raise InputError(
+                f"none of the candidates {', '.join(options.candidates)} applies to {target!r}; "
+                f"choose from {', '.join(known)}"
+            )
     runs = {}
-    for name in progress([options.cv, "random"], f"{target}: cross-validating {len(candidates)} candidates"):
+    for name in progress(
+        [options.cv, "random"], f"{target}: cross-validating {len(candidates)} candidates"
+    ):
         runs[name] = _cross_validate_all(candidates, data, designs[name].splits)
     oofs, random_oofs = runs[options.cv], runs["random"]
-    board = [_board_row(name, model, task, table, oof, random_oofs[name][1], representative)
-             for name, (model, oof) in oofs.items()]
+    board = [
+        _board_row(name, model, task, table, oof, random_oofs[name][1], representative)
+        for name, (model, oof) in oofs.items()
+    ]
     chosen = _select(board, oofs, table, task)
-    if task == "regression" and options.well_ties != "never" and not prep.volume and not isinstance(
-            oofs[chosen][0], Kriging | RegressionKriging):
+    if (
+        task == "regression"
+        and options.well_ties != "never"
+        and not prep.volume
+        and not isinstance(oofs[chosen][0], Kriging | RegressionKriging)
+    ):
         tied = WellTies(clone(oofs[chosen][0]))
         oofs[tied.name] = (tied, out_of_fold(tied, data, design.splits))
         random_oof = out_of_fold(tied, data, random_design.splits)
-        board.append(_board_row(tied.name, tied, task, table, oofs[tied.name][1], random_oof, representative))
-        if options.well_ties == "always" or _clearly_better(_losses(y, oofs[tied.name][1]),
-                                                            _losses(y, oofs[chosen][1]), data.weights, table.units):
+        board.append(
+            _board_row(tied.name, tied, task, table, oofs[tied.name][1], random_oof, representative)
+        )
+        if options.well_ties == "always" or _clearly_better(
+            _losses(y, oofs[tied.name][1]), _losses(y, oofs[chosen][1]), data.weights, table.units
+        ):
             chosen = tied.name
     model, oof = oofs[chosen]
     calibration, spread_model, notes = None, None, list(table.notes)
     if vario and vario.get("pure_nugget"):
-        notes.append(f"{target}: the residuals of the linear baseline show no spatial correlation (pure nugget "
-                     "semivariogram): kriging and well ties are unlikely to add much, and the CV blocks are sized by "
-                     "the well spacing instead")
+        notes.append(
+            f"{target}: the residuals of the linear baseline show no spatial correlation (pure"
+            " nugget semivariogram): kriging and well ties are unlikely to add much, and the CV"
+            " blocks are sized by the well spacing instead"
+        )
     if task == "regression":
-        calibration, spread_model = _calibrate(model, data, y - oof, design, attrs, options, target, notes)
+        calibration, spread_model = _calibrate(
+            model, data, y - oof, design, attrs, options, target, notes
+        )
     final = clone(model).fit(data)
     on_map = final.predict(prep.map_X, prep.map_X_xy)
     wide = _field_wide(prep, table, target, task, oof, on_map, calibration, options.seed)
     notes += _field_wide_notes(target, wide)
     map_factors = None
     if task == "classification":
-        # no prior shift: drilling chose places by what the seismic sees, so p(facies | seismic) holds on the
-        # map (covariate shift); shifting the priors raised the map's Brier score in experiments/field_wide.py
-        proportions = np.array([wide.estimates[wide.recommended]["proportions"][c] for c in classes])
+        # no prior shift: drilling chose places by what the seismic sees, so p(facies | seismic)
+        # holds on the
+        # map (covariate shift); shifting the priors raised the map's Brier score in
+        # experiments/field_wide.py
+        proportions = np.array(
+            [wide.estimates[wide.recommended]["proportions"][c] for c in classes]
+        )
         map_factors = rule_factors(options.facies_map, on_map, proportions)
     for row in board:
         row["chosen"] = row["candidate"] == chosen
     chosen_row = next(r for r in board if r["chosen"])
     folds = design.fold_of(len(y))
-    values, _ = contributions(final, data.X, data.xy, prep.names, background=data.X, seed=options.seed)
+    values, _ = contributions(
+        final, data.X, data.xy, prep.names, background=data.X, seed=options.seed
+    )
     imp = importance(values, data.weights, prep.names)
     aoa, di = fit_applicability(data.X[prep.names], imp.drop(KRIGING), folds)
     aoa_cv = _inside_outside(task, y, oof, data.weights, classes, di <= aoa.threshold)
-    warned, facts = trust_warnings(target, task, imp, data.X[prep.names], values[..., :-1] if values.ndim == 2 else
-                                   values, chosen_row["cv"], chosen_row["cv_random"], len(classes),
-                                   pd.Series(table.units).groupby(folds).nunique().tolist(),
-                                   impedance=[a for a, kind in prep.attribute_kinds.items() if kind == "impedance"])
+    warned, facts = trust_warnings(
+        target,
+        task,
+        imp,
+        data.X[prep.names],
+        values[..., :-1] if values.ndim == 2 else values,
+        chosen_row["cv"],
+        chosen_row["cv_random"],
+        len(classes),
+        pd.Series(table.units).groupby(folds).nunique().tolist(),
+        impedance=[a for a, kind in prep.attribute_kinds.items() if kind == "impedance"],
+    )
     distance = distance_summary(data.map_distances, designs, options.cv)
     distance["score_weights"] = {
-        "what": "declustering weights raked so the held-out wells match the map's nearest-well distance and "
-                "attribute quartiles (target-weighted CV); the leaderboard's cv_representative uses them, while "
-                "the reported scores, models, selection and intervals use the declustering weights",
-        "unsupported_map_share": round(unsupported, 3), "effective_wells": round(effective_size(
-            representative, table.units), 1)}
+        "what": (
+            "declustering weights raked so the held-out wells match the map's nearest-well distance"
+            " and attribute quartiles (target-weighted CV); the leaderboard's cv_representative"
+            " uses them, while the reported scores, models, selection and intervals use the"
+            " declustering weights"
+        ),
+        "unsupported_map_share": round(unsupported, 3),
+        "effective_wells": round(effective_size(representative, table.units), 1),
+    }
     if unsupported > 0:
-        warned.append(f"{target}: {unsupported:.0%} of the map lies in nearest-well-distance or attribute quartiles "
-                      "that no held-out well falls into, so the CV scores cannot stand for that part of the map")
+        warned.append(
+            f"{target}: {unsupported:.0%} of the map lies in nearest-well-distance or attribute"
+            " quartiles that no held-out well falls into, so the CV scores cannot stand for that"
+            " part of the map"
+        )
     if design.w > 0.5 * distance["map_median_distance"] and design.w > 0:
         cv_median = distance["designs"][options.cv]["median_cv_distance"]
         farther = cv_median > distance["map_median_distance"]
         warned.append(
-            f"{target}: no CV design reproduces the map's prediction distances (W = {design.w:.0f} m; held-out wells "
-            f"a median {cv_median:.0f} m from training wells, map nodes {distance['map_median_distance']:.0f} m from "
-            "a well): " + ("the held-out wells are farther from their training wells than the map is from its "
-                           "wells (regular or sparse drilling), so the CV error is likely pessimistic"
-                           if farther else "the map reaches farther from the wells than any held-out well does, so "
-                           "its error there is likely larger than the CV says"))
+            f"{target}: no CV design reproduces the map's prediction distances (W = {design.w:.0f}"
+            f" m; held-out wells a median {cv_median:.0f} m from training wells, map nodes"
+            f" {distance['map_median_distance']:.0f} m from a well): "
+            + (
+                "the held-out wells are farther from their training wells than the map is from its "
+                "wells (regular or sparse drilling), so the CV error is likely pessimistic"
+                if farther
+                else (
+                    "the map reaches farther from the wells than any held-out well does, so "
+                    "its error there is likely larger than the CV says"
+                )
+            )
+        )
     facts["warnings"] = warned
-    return TargetModel(name=target, task=task, transform=table.transform, classes=classes, model=final,
-                       calibration=calibration, block_size=block, block_size_source=block_source,
-                       leaderboard=board, chosen=chosen, oof=oof, observed=y, weights=data.weights,
-                       variogram=vario, data=data, candidates={k: v[0] for k, v in oofs.items()},
-                       spread=spread_model, importance=imp, applicability=aoa, applicability_cv=aoa_cv,
-                       trust=facts, units=table.units, design=design, distances=distance, folds=folds,
-                       notes=notes, representative_weights=representative, field_wide=wide,
-                       map_factors=map_factors, rows=table.rows)
+    return TargetModel(
+        name=target,
+        task=task,
+        transform=table.transform,
+        classes=classes,
+        model=final,
+        calibration=calibration,
+        block_size=block,
+        block_size_source=block_source,
+        leaderboard=board,
+        chosen=chosen,
+        oof=oof,
+        observed=y,
+        weights=data.weights,
+        variogram=vario,
+        data=data,
+        candidates={k: v[0] for k, v in oofs.items()},
+        spread=spread_model,
+        importance=imp,
+        applicability=aoa,
+        applicability_cv=aoa_cv,
+        trust=facts,
+        units=table.units,
+        design=design,
+        distances=distance,
+        folds=folds,
+        notes=notes,
+        representative_weights=representative,
+        field_wide=wide,
+        map_factors=map_factors,
+        rows=table.rows,
+    )
 
 
-def _field_wide(prep: _Prepared, table: _TargetTable, target: str, task: Task, oof, on_map, calibration,
-                seed: int) -> FieldWide:
+def _field_wide(
+    prep: _Prepared,
+    table: _TargetTable,
+    target: str,
+    task: Task,
+    oof,
+    on_map,
+    calibration,
+    seed: int,
+) -> FieldWide:
     """Naive, declustered and seismic-debiased field-wide estimates of one target."""
     rows = table.rows
-    common = dict(weights=table.data.weights, cell_weights=prep.cell_weights[rows],
-                  nearest_weights=prep.nearest_weights[rows], units=table.units, seed=seed)
+    common = dict(
+        weights=table.data.weights,
+        cell_weights=prep.cell_weights[rows],
+        nearest_weights=prep.nearest_weights[rows],
+        units=table.units,
+        seed=seed,
+    )
     if task == "classification":
-        return field_wide_classes(target, np.asarray(table.classes)[table.y], table.classes, oof, on_map, **common)
-    values = 10.0 ** table.y if table.transform == "log10" else table.y
+        return field_wide_classes(
+            target, np.asarray(table.classes)[table.y], table.classes, oof, on_map, **common
+        )
+    values = 10.0**table.y if table.transform == "log10" else table.y
     point = calibration.clip(on_map)
     if table.transform == "log10":
-        # the map holds 10^(mean of log10), about the median: the mean adds the residuals back (Duan 1983 smearing)
-        point = 10.0 ** point * float(np.average(10.0 ** (table.y - oof), weights=table.data.weights))
+        # the map holds 10^(mean of log10), about the median: the mean adds the residuals back (Duan
+        # 1983 smearing)
+        point = 10.0**point * float(np.average(10.0 ** (table.y - oof), weights=table.data.weights))
     return field_wide_values(target, values, oof, on_map, map_values=point, **common)
 
 
@@ -846,37 +1246,64 @@ OUTSIDE_WARN = 0.2  # share of the map beyond the wells' range of the model's pr
 def _field_wide_notes(target: str, wide: FieldWide) -> list[str]:
     if wide.outside_share <= OUTSIDE_WARN:
         return []
-    return [f"{target}: {wide.outside_share:.0%} of the map has a predicted value beyond those the wells were "
-            "predicted at, so the field-wide estimate debiased with the seismic extrapolates its calibration "
-            "there; its interval understates the uncertainty"]
+    return [
+        f"{target}: {wide.outside_share:.0%} of the map has a predicted value beyond those the"
+        " wells were predicted at, so the field-wide estimate debiased with the seismic"
+        " extrapolates its calibration there; its interval understates the uncertainty"
+    ]
 
 
-def _calibrate(model, data: FitData, residuals: np.ndarray, design, attrs: list[str], options: TrainOptions,
-               target: str, notes: list[str]):
+def _calibrate(
+    model,
+    data: FitData,
+    residuals: np.ndarray,
+    design,
+    attrs: list[str],
+    options: TrainOptions,
+    target: str,
+    notes: list[str],
+):
     """q10/q90 offsets from the design's out-of-fold residuals, scaled by a local spread."""
     oof_spread, spread_model = None, None
     if options.interval_spread == "kriging" and isinstance(model, WellTies):
         oof_spread, spread_model = _oof_spread(model, data, design.splits), "kriging"
     elif options.interval_spread in ("features", "kriging"):
         if options.interval_spread == "kriging":
-            notes.append(f"{target}: kriging spread needs a well-tied model; intervals use the feature spread")
+            notes.append(
+                f"{target}: kriging spread needs a well-tied model; intervals use the feature"
+                " spread"
+            )
         oof_spread, spread_model = _feature_spread(attrs, data, residuals, design.splits)
     bounds = PHYSICAL_BOUNDS.get(target)
-    calibration = calibrate(residuals, data.weights, spread=oof_spread, units=data.units, bounds=bounds,
-                            predicted=data.y - residuals)
-    calibration.held_out_coverage = held_out_coverage(data.y, data.y - residuals, data.weights, design.splits,
-                                                      oof_spread, data.units, bounds)
+    calibration = calibrate(
+        residuals,
+        data.weights,
+        spread=oof_spread,
+        units=data.units,
+        bounds=bounds,
+        predicted=data.y - residuals,
+    )
+    calibration.held_out_coverage = held_out_coverage(
+        data.y, data.y - residuals, data.weights, design.splits, oof_spread, data.units, bounds
+    )
     return calibration, spread_model
 
 
 def _inside_outside(task, y, oof, weights, classes, inside) -> dict:
     """CV scores of the wells inside and outside the area of applicability."""
-    out = {"threshold_rule": "upper whisker of the training wells' CV dissimilarity index",
-           "wells_inside": int(inside.sum()), "wells_outside": int((~inside).sum())}
+    out = {
+        "threshold_rule": "upper whisker of the training wells' CV dissimilarity index",
+        "wells_inside": int(inside.sum()),
+        "wells_outside": int((~inside).sum()),
+    }
     for label, sel in (("inside", inside), ("outside", ~inside)):
         with warnings.catch_warnings():
-            warnings.simplefilter("ignore")  # a subset may lack a class; scikit-learn says so on every call
-            out[f"cv_{label}"] = _score(task, y[sel], oof[sel], weights[sel], classes) if sel.sum() >= 3 else None
+            warnings.simplefilter(
+                "ignore"
+            )  # a subset may lack a class; scikit-learn says so on every call
+            out[f"cv_{label}"] = (
+                _score(task, y[sel], oof[sel], weights[sel], classes) if sel.sum() >= 3 else None
+            )
     return out
 
 
@@ -887,7 +1314,9 @@ def _losses(y: np.ndarray, oof: np.ndarray) -> np.ndarray:
     return -np.log(np.clip(oof[np.arange(len(y)), y.astype(int)], 1e-15, None))
 
 
-def _clearly_better(challenger: np.ndarray, incumbent: np.ndarray, weights, units=None, margin: float = 1.0) -> bool:
+def _clearly_better(
+    challenger: np.ndarray, incumbent: np.ndarray, weights, units=None, margin: float = 1.0
+) -> bool:
     """True when the challenger's per-well out-of-fold losses beat the incumbent's by more than
     ``margin`` standard errors of the (declustering-weighted) paired difference.
 
@@ -909,17 +1338,24 @@ def _clearly_better(challenger: np.ndarray, incumbent: np.ndarray, weights, unit
 
 
 def _feature_spread(attrs, data: FitData, residuals, splits):
-    """Cross-fitted spread at each well (for calibration) and the spread model fitted on all wells."""
+    """Cross-fitted spread at each well (for calibration) and the spread model fitted on all
+    wells."""
+
     def fit_predict(train_rows, test):
-        model = SpreadModel(attrs).fit(data.X.iloc[train_rows], residuals[train_rows], data.weights[train_rows])
+        model = SpreadModel(attrs).fit(
+            data.X.iloc[train_rows], residuals[train_rows], data.weights[train_rows]
+        )
         return model.predict(data.X.iloc[test])
 
-    return fold_predictions(splits, len(residuals), fit_predict), SpreadModel(attrs).fit(data.X, residuals,
-                                                                                         data.weights)
+    return fold_predictions(splits, len(residuals), fit_predict), SpreadModel(attrs).fit(
+        data.X, residuals, data.weights
+    )
 
 
 def _oof_spread(model: WellTies, data: FitData, splits) -> np.ndarray:
-    """Kriging standard deviation of the residual field at each held-out well, from its fold's model."""
+    """Kriging standard deviation of the residual field at each held-out well, from its fold's
+    model."""
+
     def fit_predict(train_rows, test):
         return np.sqrt(clone(model).fit(data.subset(train_rows)).residual_variance(data.xy[test]))
 
@@ -927,8 +1363,11 @@ def _oof_spread(model: WellTies, data: FitData, splits) -> np.ndarray:
 
 
 def _loss_se(y: np.ndarray, oof: np.ndarray, weights: np.ndarray, units: np.ndarray) -> float:
-    """Standard error of the weighted mean per-well loss (squared error or log-loss), wells averaged first."""
-    frame = pd.DataFrame({"l": _losses(y, oof) * weights, "w": weights, "u": units}).groupby("u").sum()
+    """Standard error of the weighted mean per-well loss (squared error or log-loss), wells averaged
+    first."""
+    frame = (
+        pd.DataFrame({"l": _losses(y, oof) * weights, "w": weights, "u": units}).groupby("u").sum()
+    )
     loss, w = (frame["l"] / frame["w"]).to_numpy(), frame["w"].to_numpy()
     mean = float(np.sum(w * loss) / w.sum())
     return float(np.sqrt(np.sum(w / w.sum() * (loss - mean) ** 2) / max(effective_size(w) - 1, 1)))

@@ -92,8 +92,17 @@ def _binned(dist, sq, n_lags: int, max_lag: float | None) -> Experimental:
     return Experimental(lagsum[have] / counts[have], total[have] / counts[have], counts[have])
 
 
-def experimental(x, y, values, n_lags: int = 15, max_lag: float | None = None, azimuth: float | None = None,
-                 tolerance: float = 22.5, z=None, z_tolerance: float = 0.0) -> Experimental:
+def experimental(
+    x,
+    y,
+    values,
+    n_lags: int = 15,
+    max_lag: float | None = None,
+    azimuth: float | None = None,
+    tolerance: float = 22.5,
+    z=None,
+    z_tolerance: float = 0.0,
+) -> Experimental:
     """Experimental semivariogram: gamma(h) = mean of (v_i - v_j)^2 / 2 over pairs in each lag bin.
 
     ``azimuth`` (degrees clockwise from north, y) restricts pairs to that direction within
@@ -126,8 +135,13 @@ def along_wells(z, values, wells, n_lags: int = 12, max_lag: float | None = None
     well, the lag their z separation (deviated wells: the lateral drift is ignored)."""
     z, v, wells = np.asarray(z, float), np.asarray(values, float), np.asarray(wells)
     ok = np.isfinite(z) & np.isfinite(v)
-    pairs = [(pdist(z[ok & (wells == w)][:, None]), 0.5 * pdist(v[ok & (wells == w)][:, None], "sqeuclidean"))
-             for w in np.unique(wells[ok])]
+    pairs = [
+        (
+            pdist(z[ok & (wells == w)][:, None]),
+            0.5 * pdist(v[ok & (wells == w)][:, None], "sqeuclidean"),
+        )
+        for w in np.unique(wells[ok])
+    ]
     pairs = [p for p in pairs if p[0].size]
     if not pairs:
         raise ModelError("a vertical semivariogram needs wells with at least 2 samples")
@@ -135,7 +149,9 @@ def along_wells(z, values, wells, n_lags: int = 12, max_lag: float | None = None
     return _binned(dist, sq, n_lags, max_lag)
 
 
-N_RANGES = 60  # ranges profiled per model kind, log-spaced from half the shortest lag to 4 x the longest
+N_RANGES = (
+    60  # ranges profiled per model kind, log-spaced from half the shortest lag to 4 x the longest
+)
 STRUCTURE_GAIN = 0.2  # a structured model must cut the misfit of a flat line by this share
 
 
@@ -150,7 +166,9 @@ def fit_variogram(exp: Experimental, kinds: tuple[str, ...] = KINDS) -> Variogra
     (pure nugget: no spatial correlation at these lags), the result has ``pure_nugget=True``.
     """
     if exp.lags.size < 3:
-        raise ModelError("too few lag bins with pairs to fit a semivariogram (need 3); add wells or lags")
+        raise ModelError(
+            "too few lag bins with pairs to fit a semivariogram (need 3); add wells or lags"
+        )
     top = float(np.max(exp.gamma))
     h_max = float(np.max(exp.lags))
     h_min = float(np.min(exp.lags))
@@ -158,12 +176,20 @@ def fit_variogram(exp: Experimental, kinds: tuple[str, ...] = KINDS) -> Variogra
     upper = (top * 1.5 + 1e-12, top * 3 + 1e-12)
 
     def misfit(kind, params) -> float:
-        return float(np.sum(exp.counts * (params[0] + params[1] * _shape(kind, exp.lags, params[2]) - exp.gamma) ** 2))
+        return float(
+            np.sum(
+                exp.counts
+                * (params[0] + params[1] * _shape(kind, exp.lags, params[2]) - exp.gamma) ** 2
+            )
+        )
 
     best, best_err = None, np.inf
     for kind in kinds:
         for rng in np.geomspace(h_min * 0.5, h_max * 4, N_RANGES):
-            design = np.column_stack([np.ones_like(exp.lags), _shape(kind, exp.lags, rng)]) * root[:, None]
+            design = (
+                np.column_stack([np.ones_like(exp.lags), _shape(kind, exp.lags, rng)])
+                * root[:, None]
+            )
             (nugget, sill), _ = nnls(design, exp.gamma * root)
             sill = max(sill, 1e-12)  # no structure at this range: a flat line, judged below
             if nugget > upper[0] or sill > upper[1]:
@@ -177,8 +203,15 @@ def fit_variogram(exp: Experimental, kinds: tuple[str, ...] = KINDS) -> Variogra
     bounds = ([0.0, 1e-12, h_min * 0.5], [upper[0], upper[1], h_max * 4])
     start = [float(np.clip(v, lo, hi)) for v, lo, hi in zip(start, *bounds, strict=True)]
     try:
-        refined, _ = curve_fit(lambda h, n, s_, r: n + s_ * _shape(kind, h, r), exp.lags, exp.gamma, p0=start,
-                               sigma=1.0 / root, bounds=bounds, maxfev=2000)
+        refined, _ = curve_fit(
+            lambda h, n, s_, r: n + s_ * _shape(kind, h, r),
+            exp.lags,
+            exp.gamma,
+            p0=start,
+            sigma=1.0 / root,
+            bounds=bounds,
+            maxfev=2000,
+        )
         if misfit(kind, refined) < best_err:
             start, best_err = [float(v) for v in refined], misfit(kind, refined)
     except (RuntimeError, ValueError):
@@ -206,6 +239,11 @@ def auto_variogram(x, y, values, n_lags: int = 12) -> VariogramModel:
     model = fit_variogram(experimental(x, y, values, n_lags=n_lags))
     total = model.nugget + model.sill
     if model.nugget < MIN_NUGGET_SHARE * total:
-        model = VariogramModel(model.kind, MIN_NUGGET_SHARE * total, (1 - MIN_NUGGET_SHARE) * total, model.range,
-                               model.pure_nugget)
+        model = VariogramModel(
+            model.kind,
+            MIN_NUGGET_SHARE * total,
+            (1 - MIN_NUGGET_SHARE) * total,
+            model.range,
+            model.pure_nugget,
+        )
     return model

@@ -35,7 +35,9 @@ def is_volume(ds: xr.Dataset) -> bool:
     return "z" in ds.dims
 
 
-def check_volume(ds: xr.Dataset, source: str = "volume", z_domain: ZDomain | None = None) -> xr.Dataset:
+def check_volume(
+    ds: xr.Dataset, source: str = "volume", z_domain: ZDomain | None = None
+) -> xr.Dataset:
     """Normalise a volume: dims (z, inline, crossline), ascending evenly spaced z, an affine."""
     if "z" not in ds.dims:
         raise InputError(f"{source}: no 'z' dimension; dims are {tuple(ds.dims)}")
@@ -77,11 +79,15 @@ def _from_xyz(ds: xr.Dataset, source: str) -> xr.Dataset:
     """A cube on (z, y, x) with 1-D map coordinates, as a volume with line numbers and an affine."""
     for name in ("x", "y"):
         if name not in ds.dims:
-            raise InputError(f"{source}: a volume needs dims (z, inline, crossline) or (z, y, x); "
-                             f"dims are {tuple(ds.dims)}")
+            raise InputError(
+                f"{source}: a volume needs dims (z, inline, crossline) or (z, y, x); "
+                f"dims are {tuple(ds.dims)}"
+            )
         coord = ds[name].to_numpy().astype(float)
         if coord.size < 2 or not np.allclose(np.diff(coord), coord[1] - coord[0], rtol=1e-6):
-            raise InputError(f"{source}: coordinate {name!r} is not evenly spaced; resample the volume")
+            raise InputError(
+                f"{source}: coordinate {name!r} is not evenly spaced; resample the volume"
+            )
     x, y = ds.x.to_numpy().astype(float), ds.y.to_numpy().astype(float)
     dx, dy = x[1] - x[0], y[1] - y[0]
     inl, xln = np.arange(1, y.size + 1), np.arange(1, x.size + 1)
@@ -94,14 +100,18 @@ def _from_xyz(ds: xr.Dataset, source: str) -> xr.Dataset:
 def _with_cdp(ds: xr.Dataset) -> xr.Dataset:
     x0, dxi, dxx, y0, dyi, dyx = ds.attrs["affine"]
     gi, gj = np.meshgrid(ds.inline.to_numpy(), ds.crossline.to_numpy(), indexing="ij")
-    return ds.assign_coords(cdp_x=(("inline", "crossline"), x0 + dxi * gi + dxx * gj),
-                            cdp_y=(("inline", "crossline"), y0 + dyi * gi + dyx * gj))
+    return ds.assign_coords(
+        cdp_x=(("inline", "crossline"), x0 + dxi * gi + dxx * gj),
+        cdp_y=(("inline", "crossline"), y0 + dyi * gi + dyx * gj),
+    )
 
 
 def fit_affine(ds: xr.Dataset, source: str = "volume") -> list[float]:
     """Least-squares affine from (inline, crossline) to the 2-D cdp_x/cdp_y coordinates."""
     if "cdp_x" not in ds.coords or "cdp_y" not in ds.coords:
-        raise InputError(f"{source}: a volume on (inline, crossline) needs 2-D cdp_x and cdp_y coordinates")
+        raise InputError(
+            f"{source}: a volume on (inline, crossline) needs 2-D cdp_x and cdp_y coordinates"
+        )
     gi, gj = np.meshgrid(ds.inline.to_numpy(), ds.crossline.to_numpy(), indexing="ij")
     A = np.column_stack([np.ones(gi.size), gi.ravel(), gj.ravel()])
     cx, cy = ds.cdp_x.to_numpy().ravel(), ds.cdp_y.to_numpy().ravel()
@@ -111,8 +121,9 @@ def fit_affine(ds: xr.Dataset, source: str = "volume") -> list[float]:
     return [float(v) for v in (x0, a, b, y0, c, d)]
 
 
-def read_volume(path: str | Path, lazy: bool = False, z_domain: ZDomain | None = None,
-                name: str = "amplitude") -> xr.Dataset:
+def read_volume(
+    path: str | Path, lazy: bool = False, z_domain: ZDomain | None = None, name: str = "amplitude"
+) -> xr.Dataset:
     """Read a volume from SEG-Y (``name`` is the attribute's name), NetCDF or a Zarr store."""
     path = Path(path)
     kind = file_format(path)
@@ -130,8 +141,10 @@ def read_volume(path: str | Path, lazy: bool = False, z_domain: ZDomain | None =
         if not lazy:
             ds = ds.load()
     except Exception as err:  # the file libraries raise many types on a damaged file
-        raise InputError(f"{path}: not a readable NetCDF/Zarr volume ({err.__class__.__name__}: {str(err)[:120]})"
-                         ) from None
+        raise InputError(
+            f"{path}: not a readable NetCDF/Zarr volume ({err.__class__.__name__}:"
+            f" {str(err)[:120]})"
+        ) from None
     ds.attrs["source"] = str(path)
     if isinstance(ds.attrs.get("affine"), np.ndarray):
         ds.attrs["affine"] = [float(v) for v in ds.attrs["affine"]]
@@ -141,7 +154,12 @@ def read_volume(path: str | Path, lazy: bool = False, z_domain: ZDomain | None =
 def _lines(vol: xr.Dataset) -> tuple[float, float, float, float]:
     """(first inline, inline step, first crossline, crossline step) of the volume's lattice."""
     il, xl = vol.inline.to_numpy().astype(float), vol.crossline.to_numpy().astype(float)
-    return il[0], il[1] - il[0] if il.size > 1 else 1.0, xl[0], xl[1] - xl[0] if xl.size > 1 else 1.0
+    return (
+        il[0],
+        il[1] - il[0] if il.size > 1 else 1.0,
+        xl[0],
+        xl[1] - xl[0] if xl.size > 1 else 1.0,
+    )
 
 
 def lateral_spacing(vol: xr.Dataset) -> tuple[float, float]:
@@ -200,8 +218,9 @@ def wells_z_domain(wells: pd.DataFrame) -> ZDomain:
     return domain_of_column(wells.attrs.get("columns_taken", {}).get("z"))
 
 
-def check_z_domain(vol: xr.Dataset, z: np.ndarray, labels: np.ndarray, wells_domain: ZDomain,
-                   source: str = "wells") -> np.ndarray:
+def check_z_domain(
+    vol: xr.Dataset, z: np.ndarray, labels: np.ndarray, wells_domain: ZDomain, source: str = "wells"
+) -> np.ndarray:
     """Samples whose z lies on the volume's sample axis; a clear error when the domains disagree.
 
     The wells' z must be in the volume's domain (depth with depth, time with time) and mostly
@@ -212,29 +231,41 @@ def check_z_domain(vol: xr.Dataset, z: np.ndarray, labels: np.ndarray, wells_dom
     lo, hi = float(zs[0]), float(zs[-1])
     span = f"{lo:g} to {hi:g}"
     if "unknown" not in (vol_domain, wells_domain) and vol_domain != wells_domain:
-        raise InputError(f"{source}: the wells' z is {wells_domain} but the volume {vol.attrs.get('source', '')} "
-                         f"is in {vol_domain} ({span}); convert one of them (a velocity model) so both are in the "
-                         "same domain, or name the domain with --z-domain")
+        raise InputError(
+            f"{source}: the wells' z is {wells_domain} but the volume {vol.attrs.get('source', '')}"
+            f" is in {vol_domain} ({span}); convert one of them (a velocity model) so both are in"
+            " the same domain, or name the domain with --z-domain"
+        )
     half = 0.5 * z_step(vol)
     inside = (z >= lo - half) & (z <= hi + half)
     if inside.mean() < 0.5:
         raise InputError(
-            f"{source}: {np.count_nonzero(~inside)} of {z.size} well samples (z {np.min(z):g} to {np.max(z):g}) lie "
-            f"outside the volume's sample axis ({span}, {vol_domain}); the wells' z and the volume do not match "
-            "(depth against time, metres against feet, or seconds against milliseconds?): convert one of them")
+            f"{source}: {np.count_nonzero(~inside)} of {z.size} well samples (z {np.min(z):g} to"
+            f" {np.max(z):g}) lie outside the volume's sample axis ({span}, {vol_domain}); the"
+            " wells' z and the volume do not match (depth against time, metres against feet, or"
+            " seconds against milliseconds?): convert one of them"
+        )
     if not inside.all():
         wells = _wells_list(np.asarray(labels)[~inside])
-        warnings.warn(f"left out {np.count_nonzero(~inside)} well samples above or below the volume ({span}) "
-                      f"in wells {wells}", PredictorWarning, stacklevel=2)
+        warnings.warn(
+            f"left out {np.count_nonzero(~inside)} well samples above or below the volume ({span}) "
+            f"in wells {wells}",
+            PredictorWarning,
+            stacklevel=2,
+        )
     return inside
 
 
-def locate_samples(vol: xr.Dataset, x, y, z, labels, wells_domain: ZDomain = "unknown",
-                   source: str = "wells") -> tuple[np.ndarray, np.ndarray]:
-    """(laterally outside the survey, on the sample axis) masks of points (x, y, z); geometry only."""
+def locate_samples(
+    vol: xr.Dataset, x, y, z, labels, wells_domain: ZDomain = "unknown", source: str = "wells"
+) -> tuple[np.ndarray, np.ndarray]:
+    """(laterally outside the survey, on the sample axis) masks of points (x, y, z); geometry
+    only."""
     fi, fj = fractional_index(vol, x, y)
     ni, nj = vol.sizes["inline"], vol.sizes["crossline"]
-    half = 0.5  # a point within half a trace spacing of the outer traces still belongs to the survey
+    half = (
+        0.5  # a point within half a trace spacing of the outer traces still belongs to the survey
+    )
     outside = (fi < -half) | (fi > ni - 1 + half) | (fj < -half) | (fj > nj - 1 + half)
     return outside, check_z_domain(vol, np.asarray(z, float), labels, wells_domain, source)
 
@@ -247,21 +278,28 @@ def values_at(vol: xr.Dataset, x, y, z) -> tuple[pd.DataFrame, np.ndarray]:
     return interpolate(vol, DIMS, [fk, fi, fj])
 
 
-def report_unsampled(outside: np.ndarray, gap: np.ndarray, labels, drop_outside: bool, source: str) -> None:
-    """Error naming the wells with samples outside the survey or in gaps (or, when dropping, a warning)."""
+def report_unsampled(
+    outside: np.ndarray, gap: np.ndarray, labels, drop_outside: bool, source: str
+) -> None:
+    """Error naming the wells with samples outside the survey or in gaps (or, when dropping, a
+    warning)."""
     labels = np.asarray(labels)
     problems = []
     if outside.any():
         problems.append(f"outside the survey: {_wells_list(labels[outside])}")
     if gap.any():
-        problems.append(f"at volume samples with no attribute value (NaN, e.g. a missing trace): "
-                        f"{_wells_list(labels[gap])}")
+        problems.append(
+            "at volume samples with no attribute value (NaN, e.g. a missing trace): "
+            f"{_wells_list(labels[gap])}"
+        )
     if not problems:
         return
     message = "; ".join(problems)
     if not drop_outside:
-        raise InputError(f"wells {message} (volume {source}); fix the coordinates, or pass --drop-outside "
-                         "to leave those samples out")
+        raise InputError(
+            f"wells {message} (volume {source}); fix the coordinates, or pass --drop-outside "
+            "to leave those samples out"
+        )
     warnings.warn(f"left out samples of wells {message}", PredictorWarning, stacklevel=3)
 
 
@@ -273,8 +311,15 @@ def _wells_list(labels: np.ndarray) -> str:
     return shown + (f" and {len(names) - 5} more wells" if len(names) > 5 else "")
 
 
-def sample_volume(vol: xr.Dataset, x, y, z, labels=None, drop_outside: bool = False,
-                  wells_domain: ZDomain = "unknown") -> tuple[pd.DataFrame, np.ndarray]:
+def sample_volume(
+    vol: xr.Dataset,
+    x,
+    y,
+    z,
+    labels=None,
+    drop_outside: bool = False,
+    wells_domain: ZDomain = "unknown",
+) -> tuple[pd.DataFrame, np.ndarray]:
     """Every volume variable at points (x, y, z), by trilinear interpolation over valid nodes.
 
     Points laterally outside the survey, or whose nearest node holds no value, are an error
@@ -297,7 +342,8 @@ def sample_volume(vol: xr.Dataset, x, y, z, labels=None, drop_outside: bool = Fa
 
 
 def view_depth(vol: xr.Dataset, wells: pd.DataFrame | None = None) -> float:
-    """The z a map view of the volume shows: the middle of the wells' samples, else of the volume."""
+    """The z a map view of the volume shows: the middle of the wells' samples, else of the
+    volume."""
     if wells is not None and "z" in wells and len(wells):
         return float(np.median(wells["z"]))
     return float(vol.z[vol.sizes["z"] // 2])
@@ -316,11 +362,14 @@ def map_view(vol: xr.Dataset, z: float) -> xr.Dataset:
 
 
 def wells_in_view(wells: pd.DataFrame, vol: xr.Dataset, z: float) -> pd.DataFrame:
-    """Each well's sample nearest to ``z``, placed in survey line numbers as :func:`map_view` draws."""
+    """Each well's sample nearest to ``z``, placed in survey line numbers as :func:`map_view`
+    draws."""
     nearest = wells.assign(_dz=(wells["z"] - z).abs()).sort_values("_dz").drop_duplicates("well_id")
     fi, fj = fractional_index(vol, nearest["x"], nearest["y"])
     il0, step_il, xl0, step_xl = _lines(vol)
-    return nearest.drop(columns="_dz").assign(x=xl0 + fj * step_xl, y=il0 + fi * step_il).sort_index()
+    return (
+        nearest.drop(columns="_dz").assign(x=xl0 + fj * step_xl, y=il0 + fi * step_il).sort_index()
+    )
 
 
 def depths_to_show(wells: pd.DataFrame, n: int = 3) -> list[float]:
@@ -328,7 +377,9 @@ def depths_to_show(wells: pd.DataFrame, n: int = 3) -> list[float]:
     return [float(v) for v in np.quantile(wells["z"], np.linspace(0.2, 0.8, n))]
 
 
-def section_through_wells(vol: xr.Dataset, wells: pd.DataFrame, n_wells: int = 5) -> tuple[xr.Dataset, pd.DataFrame]:
+def section_through_wells(
+    vol: xr.Dataset, wells: pd.DataFrame, n_wells: int = 5
+) -> tuple[xr.Dataset, pd.DataFrame]:
     """A vertical section along a path through ``n_wells`` wells spread along the field's long
     axis (the first principal axis of the well heads), the volume's nearest trace at every step.
 
@@ -339,10 +390,14 @@ def section_through_wells(vol: xr.Dataset, wells: pd.DataFrame, n_wells: int = 5
     heads, _ = well_heads(wells)
     xy = heads[["x", "y"]].to_numpy(float)
     centred = xy - xy.mean(axis=0)
-    axis = np.linalg.svd(centred, full_matrices=False)[2][0] if len(xy) > 1 else np.array([1.0, 0.0])
+    axis = (
+        np.linalg.svd(centred, full_matrices=False)[2][0] if len(xy) > 1 else np.array([1.0, 0.0])
+    )
     along = centred @ axis
     order = np.argsort(along)
-    picks = order[np.unique(np.round(np.linspace(0, len(order) - 1, min(n_wells, len(order)))).astype(int))]
+    picks = order[
+        np.unique(np.round(np.linspace(0, len(order) - 1, min(n_wells, len(order)))).astype(int))
+    ]
     path = xy[picks]
     legs = np.hypot(*np.diff(path, axis=0).T)
     at_well = np.concatenate([[0.0], np.cumsum(legs)])
@@ -351,9 +406,13 @@ def section_through_wells(vol: xr.Dataset, wells: pd.DataFrame, n_wells: int = 5
     px, py = np.interp(distance, at_well, path[:, 0]), np.interp(distance, at_well, path[:, 1])
     fi, fj = (np.rint(f).astype(int) for f in fractional_index(vol, px, py))
     inside = (fi >= 0) & (fi < vol.sizes["inline"]) & (fj >= 0) & (fj < vol.sizes["crossline"])
-    il, xl = xr.DataArray(np.clip(fi, 0, vol.sizes["inline"] - 1), dims="distance"), \
-        xr.DataArray(np.clip(fj, 0, vol.sizes["crossline"] - 1), dims="distance")
-    section = vol.drop_vars([c for c in ("cdp_x", "cdp_y") if c in vol.coords]).isel(inline=il, crossline=xl)
+    il, xl = (
+        xr.DataArray(np.clip(fi, 0, vol.sizes["inline"] - 1), dims="distance"),
+        xr.DataArray(np.clip(fj, 0, vol.sizes["crossline"] - 1), dims="distance"),
+    )
+    section = vol.drop_vars([c for c in ("cdp_x", "cdp_y") if c in vol.coords]).isel(
+        inline=il, crossline=xl
+    )
     section = section.drop_vars([c for c in ("inline", "crossline") if c in section.coords])
     section = section.where(xr.DataArray(inside, dims="distance")).assign_coords(distance=distance)
     section.attrs = {**vol.attrs, "wells": [str(heads["well_id"].iloc[i]) for i in picks]}

@@ -20,10 +20,30 @@ from .training import TrainedModels, TrainOptions, train
 from .volume import is_volume
 
 
-def train_files(wells_path, grid_path, out, targets, attributes=None, context_radii=(), gradient=False,
-                location=False, porosity_percent=False, x=None, y=None, overwrite=False, vertical_radii=(),
-                z_trend=False, z=None, z_domain=None, segy_name=None, roles=None, kinds=None, **options):
-    """Read wells and a map or volume, train, and write the bundle to ``out``; returns (trained, folder).
+def train_files(
+    wells_path,
+    grid_path,
+    out,
+    targets,
+    attributes=None,
+    context_radii=(),
+    gradient=False,
+    location=False,
+    porosity_percent=False,
+    x=None,
+    y=None,
+    overwrite=False,
+    vertical_radii=(),
+    z_trend=False,
+    z=None,
+    z_domain=None,
+    segy_name=None,
+    roles=None,
+    kinds=None,
+    **options,
+):
+    """Read wells and a map or volume, train, and write the bundle to ``out``; returns (trained,
+    folder).
 
     ``roles`` names the file columns of porosity, permeability and facies (see
     :func:`predictor.io.tables.read_wells`), ``kinds`` what each attribute is (see
@@ -31,22 +51,48 @@ def train_files(wells_path, grid_path, out, targets, attributes=None, context_ra
     check_target(out, overwrite)  # fail before the long work, not after it
     wells = read_wells(wells_path, x=x, y=y, z=z, porosity_percent=porosity_percent, roles=roles)
     grid = read_seismic(grid_path, z_domain=z_domain, name=segy_name, kinds=kinds)
-    spec = None  # no feature flags: the tool's default set (attributes plus context, compared by CV)
+    spec = (
+        None  # no feature flags: the tool's default set (attributes plus context, compared by CV)
+    )
     if attributes or context_radii or gradient or location or vertical_radii or z_trend:
-        spec = FeatureSpec(attributes=list(attributes) if attributes else [str(v) for v in grid.data_vars],
-                           context_radii=list(context_radii), gradient=gradient, location=location,
-                           vertical_radii=list(vertical_radii), z_coordinate=z_trend)
+        spec = FeatureSpec(
+            attributes=list(attributes) if attributes else [str(v) for v in grid.data_vars],
+            context_radii=list(context_radii),
+            gradient=gradient,
+            location=location,
+            vertical_radii=list(vertical_radii),
+            z_coordinate=z_trend,
+        )
     trained = train(wells, grid, TrainOptions(targets=list(targets), features=spec, **options))
-    inputs = {"wells": {"path": str(wells_path), "sha256": sha256(Path(wells_path)),
-                        "columns_taken": wells.attrs.get("columns_taken", {}), "porosity_percent": porosity_percent},
-              "grid": {"path": str(grid_path), "sha256": sha256(Path(grid_path)) if Path(grid_path).is_file() else None,
-                       "from_bundle": os.path.relpath(Path(grid_path).resolve(), Path(out).resolve()),
-                       "z_domain": z_domain, "segy_name": segy_name}}
+    inputs = {
+        "wells": {
+            "path": str(wells_path),
+            "sha256": sha256(Path(wells_path)),
+            "columns_taken": wells.attrs.get("columns_taken", {}),
+            "porosity_percent": porosity_percent,
+        },
+        "grid": {
+            "path": str(grid_path),
+            "sha256": sha256(Path(grid_path)) if Path(grid_path).is_file() else None,
+            "from_bundle": os.path.relpath(Path(grid_path).resolve(), Path(out).resolve()),
+            "z_domain": z_domain,
+            "segy_name": segy_name,
+        },
+    }
     return trained, save_bundle(trained, out, inputs, overwrite=overwrite)
 
 
-def predict_files(bundle, grid_path, out, overwrite=False, crs: str | None = None, z_domain: str | None = None,
-                  segy_name: str | None = None, exceed: dict | None = None, threads: int | None = None) -> Path:
+def predict_files(
+    bundle,
+    grid_path,
+    out,
+    overwrite=False,
+    crs: str | None = None,
+    z_domain: str | None = None,
+    segy_name: str | None = None,
+    exceed: dict | None = None,
+    threads: int | None = None,
+) -> Path:
     """Predict the bundle's targets on a grid file and write the maps (CSV, NetCDF or GeoTIFF).
 
     ``crs`` (e.g. "EPSG:32631") labels NetCDF and GeoTIFF outputs; without it a CRS carried by
@@ -68,29 +114,38 @@ def predict_files(bundle, grid_path, out, overwrite=False, crs: str | None = Non
 
 
 def leaderboard_lines(trained: TrainedModels) -> list[str]:
-    """The leaderboard as text: CV of the chosen design and random CV per candidate, chosen marked."""
+    """The leaderboard as text: CV of the chosen design and random CV per candidate, chosen
+    marked."""
     lines = []
     for name, tm in trained.targets.items():
         key = "rmse" if tm.task == "regression" else "balanced_accuracy"
         unit = " (log10 mD)" if tm.transform == "log10" else ""
         design = tm.distances["designs"][tm.distances["chosen"]]
-        lines.append(f"{name}: {design['description']}; held-out wells a median {design['median_cv_distance']:.0f} m "
-                     f"from training wells, map nodes {tm.distances['map_median_distance']:.0f} m from a well; "
-                     f"declustering-weighted {key}{unit}")
+        lines.append(
+            f"{name}: {design['description']}; held-out wells a median"
+            f" {design['median_cv_distance']:.0f} m from training wells, map nodes"
+            f" {tm.distances['map_median_distance']:.0f} m from a well; declustering-weighted"
+            f" {key}{unit}"
+        )
         for row in tm.leaderboard:
             mark = "*" if row["chosen"] else " "
             kind = "baseline" if row["baseline"] else "candidate"
-            lines.append(f"  {mark} {row['candidate']:<28} {kind:<9} {tm.distances['chosen']} {row['cv'][key]:.4f}   "
-                         f"random {row['cv_random'][key]:.4f}")
+            lines.append(
+                f"  {mark} {row['candidate']:<28} {kind:<9} {tm.distances['chosen']}"
+                f" {row['cv'][key]:.4f}   random {row['cv_random'][key]:.4f}"
+            )
         coverage = tm.calibration.held_out_coverage if tm.calibration else None
         if coverage is not None:
-            lines.append(f"  q10-q90 intervals held {coverage:.0%} of the wells when calibrated without their fold "
-                         "(nominal 80 %)")
+            lines.append(
+                f"  q10-q90 intervals held {coverage:.0%} of the wells when calibrated without"
+                " their fold (nominal 80 %)"
+            )
     return lines
 
 
 def field_wide_lines(trained: TrainedModels) -> list[str]:
-    """The recommended field-wide estimate per target, beside the raw wells' and the declustered one."""
+    """The recommended field-wide estimate per target, beside the raw wells' and the declustered
+    one."""
     lines = []
     for name, tm in trained.targets.items():
         wide = tm.field_wide
@@ -99,11 +154,20 @@ def field_wide_lines(trained: TrainedModels) -> list[str]:
         est = wide.estimates
         if tm.task == "regression":
             iv = wide.interval
-            lines.append(f"field-wide mean {name}: {est[wide.recommended]['mean']:.4g} (q10-q90 {iv['q10']:.4g}-"
-                         f"{iv['q90']:.4g}, {METHOD_LABELS[wide.recommended]}); raw wells "
-                         f"{est['naive']['mean']:.4g}, declustered {est['declustered_nearest_node']['mean']:.4g}")
+            lines.append(
+                f"field-wide mean {name}: {est[wide.recommended]['mean']:.4g} (q10-q90"
+                f" {iv['q10']:.4g}-{iv['q90']:.4g}, {METHOD_LABELS[wide.recommended]}); raw wells"
+                f" {est['naive']['mean']:.4g}, declustered"
+                f" {est['declustered_nearest_node']['mean']:.4g}"
+            )
             continue
         shares = est[wide.recommended]["proportions"]
-        parts = [f"{c} {v:.1%} (raw wells {est['naive']['proportions'][c]:.1%})" for c, v in shares.items()]
-        lines.append(f"field-wide {name} proportions ({METHOD_LABELS[wide.recommended]}): " + ", ".join(parts))
+        parts = [
+            f"{c} {v:.1%} (raw wells {est['naive']['proportions'][c]:.1%})"
+            for c, v in shares.items()
+        ]
+        lines.append(
+            f"field-wide {name} proportions ({METHOD_LABELS[wide.recommended]}): "
+            + ", ".join(parts)
+        )
     return lines

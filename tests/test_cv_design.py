@@ -56,8 +56,11 @@ def _cv_over_truth(seed, n_clusters, per, spread, block=1000.0) -> dict:
         design = design_folds(name, xy, np.arange(len(xy)), g_map, 5, block, seed=seed)
         oof = np.zeros(len(v))
         for train, test in design.splits:
-            oof[test] = OrdinaryKriging(vario).fit(xy[train, 0], xy[train, 1], v[train]).predict(xy[test, 0],
-                                                                                                 xy[test, 1])
+            oof[test] = (
+                OrdinaryKriging(vario)
+                .fit(xy[train, 0], xy[train, 1], v[train])
+                .predict(xy[test, 0], xy[test, 1])
+            )
         out[name] = np.sqrt(np.average((oof - v) ** 2, weights=weights)) / true
     return out
 
@@ -101,7 +104,10 @@ def test_knndm_keeps_random_folds_when_wells_are_not_clustered():
     gx, gy = (a.ravel() for a in np.meshgrid(np.arange(0, 3000, 25.0), np.arange(0, 2500, 25.0)))
     xy = rng.uniform(0, [3000, 2500], (60, 2))
     _, info = knndm_folds(xy, map_distances(_sampled(gx, gy), xy), 5)
-    assert info["configuration"].startswith("random k-fold") and info["ks_p_value_wells_closer"] >= 0.05
+    assert (
+        info["configuration"].startswith("random k-fold")
+        and info["ks_p_value_wells_closer"] >= 0.05
+    )
 
 
 def test_volume_rows_of_one_well_stay_in_one_fold():

@@ -20,14 +20,17 @@ def test_regular_layout_gives_uniform_weights():
     # Journel (1983): on a regular pattern every well represents the same area
     x, y = _regular()
     np.testing.assert_allclose(cell_weights(x, y, 100.0), 1.0, atol=1e-12)
-    xx, yy = np.meshgrid(np.arange(500.0) + 0.5, np.arange(500.0) + 0.5)  # no node equidistant to two wells
+    xx, yy = np.meshgrid(
+        np.arange(500.0) + 0.5, np.arange(500.0) + 0.5
+    )  # no node equidistant to two wells
     np.testing.assert_allclose(nearest_node_weights(x, y, xx, yy), 1.0, atol=1e-12)
 
 
 @pytest.mark.parametrize("k", [3, 5, 8])
 def test_cluster_of_k_wells_gets_one_kth(k):
     # hand-worked: a 5 x 5 regular pattern whose centre well is replaced by a tight cluster of k
-    # wells; with the cell at the pattern spacing each cluster well weighs about 1/k of a regular well
+    # wells; with the cell at the pattern spacing each cluster well weighs about 1/k of a regular
+    # well
     x, y = _regular()
     centre = 12
     rng = np.random.default_rng(k)
@@ -48,7 +51,9 @@ def test_declustered_mean_closer_to_exhaustive_mean():
         assert result.direction == "minimum"  # high porosity was over-sampled
         naive = wells.porosity.mean()
         assert abs(result.declustered_mean - true_mean) < 0.8 * abs(naive - true_mean)
-        assert result.declustered_mean == pytest.approx(weighted_mean(wells.porosity, result.weights))
+        assert result.declustered_mean == pytest.approx(
+            weighted_mean(wells.porosity, result.weights)
+        )
 
 
 def test_direction_maximum_when_lows_oversampled():

@@ -35,7 +35,12 @@ def _data(n=150, seed=0):
     rng = np.random.default_rng(seed)
     xy = rng.uniform(0, 2000, (n, 2))
     X = pd.DataFrame({"impedance": rng.uniform(6000, 12000, n), "noise": rng.normal(size=n)})
-    y = 0.35 - 2.5e-5 * X["impedance"].to_numpy() + 0.01 * np.sin(xy[:, 0] / 300) + rng.normal(0, 0.005, n)
+    y = (
+        0.35
+        - 2.5e-5 * X["impedance"].to_numpy()
+        + 0.01 * np.sin(xy[:, 0] / 300)
+        + rng.normal(0, 0.005, n)
+    )
     groups = (xy[:, 0] // 500).astype(int) * 10 + (xy[:, 1] // 500).astype(int)
     codes = (X["impedance"].to_numpy() > 9000).astype(int) + (X["impedance"].to_numpy() > 10500)
     return X, y, xy, groups, codes
@@ -53,22 +58,44 @@ def fitted():
         "kriging": Kriging().fit(reg),
         "regression_kriging": RegressionKriging(names).fit(reg),
         "facies_mixture": FaciesMixture(names).fit(reg),
-        "blend": Blend([Linear(names), LightGBM("regression", names), FaciesMixture(names)], [0.2, 0.5, 0.3]).fit(reg),
+        "blend": (
+            Blend(
+                [Linear(names), LightGBM("regression", names), FaciesMixture(names)],
+                [0.2, 0.5, 0.3],
+            ).fit(reg)
+        ),
         "well_ties": WellTies(LightGBM("regression", names)).fit(reg),
         "lightgbm_classifier": LightGBM("classification", names).fit(cls),
         "logistic": Logistic(names).fit(cls),
-        "classifier_blend": Blend([Logistic(names), LightGBM("classification", names)], [0.4, 0.6]).fit(cls),
+        "classifier_blend": (
+            Blend([Logistic(names), LightGBM("classification", names)], [0.4, 0.6]).fit(cls)
+        ),
     }
     return models, X, xy, names
 
 
-@pytest.mark.parametrize("name", ["lightgbm", "linear", "kriging", "regression_kriging", "facies_mixture", "blend",
-                                  "well_ties", "lightgbm_classifier", "logistic", "classifier_blend"])
+@pytest.mark.parametrize(
+    "name",
+    [
+        "lightgbm",
+        "linear",
+        "kriging",
+        "regression_kriging",
+        "facies_mixture",
+        "blend",
+        "well_ties",
+        "lightgbm_classifier",
+        "logistic",
+        "classifier_blend",
+    ],
+)
 def test_local_accuracy_at_every_well(fitted, name):
     # Lundberg & Lee 2017 (NeurIPS): contributions plus the expected value equal the model output
     models, X, xy, names = fitted
     values, base = contributions(models[name], X, xy, names, background=X)
-    np.testing.assert_allclose(base + values.sum(axis=-1), models[name].raw_output(X, xy), atol=1e-6)
+    np.testing.assert_allclose(
+        base + values.sum(axis=-1), models[name].raw_output(X, xy), atol=1e-6
+    )
 
 
 def _path_value(tree, x, coalition):
@@ -81,7 +108,9 @@ def _path_value(tree, x, coalition):
     if j in coalition:
         return _path_value(left if x[j] <= tree["threshold"] else right, x, coalition)
     nl, nr = (c.get("internal_count", c.get("leaf_count")) for c in (left, right))
-    return (nl * _path_value(left, x, coalition) + nr * _path_value(right, x, coalition)) / (nl + nr)
+    return (nl * _path_value(left, x, coalition) + nr * _path_value(right, x, coalition)) / (
+        nl + nr
+    )
 
 
 def test_lightgbm_contributions_equal_brute_force_shapley_values():
@@ -92,11 +121,25 @@ def test_lightgbm_contributions_equal_brute_force_shapley_values():
     X = pd.DataFrame(rng.normal(size=(400, 3)), columns=["a", "b", "c"])
     y = X["a"] * 2 + (X["b"] > 0) * X["c"] + rng.normal(0, 0.1, 400)
     model = LightGBM("regression", ["c", "a", "b"])  # the model's own feature order
-    model.booster_ = lgb.train({"objective": "regression", "num_leaves": 6, "max_depth": 3, "learning_rate": 1.0,
-                                "min_data_in_leaf": 10, "verbose": -1},
-                               lgb.Dataset(X[model.features].to_numpy(), y), num_boost_round=1)
+    model.booster_ = lgb.train(
+        {
+            "objective": "regression",
+            "num_leaves": 6,
+            "max_depth": 3,
+            "learning_rate": 1.0,
+            "min_data_in_leaf": 10,
+            "verbose": -1,
+        },
+        lgb.Dataset(X[model.features].to_numpy(), y),
+        num_boost_round=1,
+    )
     tree = model.booster_.dump_model()["tree_info"][0]["tree_structure"]
-    names = ["b", "noise", "a", "c"]  # the explanation's order, with a feature the model does not use
+    names = [
+        "b",
+        "noise",
+        "a",
+        "c",
+    ]  # the explanation's order, with a feature the model does not use
     values, base = contributions(model, X.assign(noise=0.0).iloc[:20], np.zeros((20, 2)), names)
     p = len(model.features)
     for i, x in enumerate(X[model.features].to_numpy()[:20]):
@@ -142,14 +185,26 @@ def test_location_only_signal_triggers_the_location_warning():
 
     rng = np.random.default_rng(6)
     xs, ys = np.arange(0, 3000, 50.0), np.arange(0, 3000, 50.0)
-    grid = xr.Dataset({"impedance": (("y", "x"), rng.uniform(7000, 11000, (ys.size, xs.size)))},
-                      coords={"x": xs, "y": ys})
+    grid = xr.Dataset(
+        {"impedance": (("y", "x"), rng.uniform(7000, 11000, (ys.size, xs.size)))},
+        coords={"x": xs, "y": ys},
+    )
     wx, wy = rng.uniform(100, 2900, 120), rng.uniform(100, 2900, 120)
-    wells = pd.DataFrame({"well_id": [f"W{i}" for i in range(120)], "x": wx, "y": wy,
-                          "porosity": 0.15 + 0.08 * np.sin(wx / 700) * np.cos(wy / 900)})
+    wells = pd.DataFrame(
+        {
+            "well_id": [f"W{i}" for i in range(120)],
+            "x": wx,
+            "y": wy,
+            "porosity": 0.15 + 0.08 * np.sin(wx / 700) * np.cos(wy / 900),
+        }
+    )
     from predictor.features import FeatureSpec
 
-    trained = train(wells, grid, TrainOptions(targets=["porosity"], features=FeatureSpec(["impedance"], location=True)))
+    trained = train(
+        wells,
+        grid,
+        TrainOptions(targets=["porosity"], features=FeatureSpec(["impedance"], location=True)),
+    )
     assert any("location features and kriging of the wells carry" in w for w in trained.warnings)
     assert trained.targets["porosity"].trust["location_share"] > 0.3
 
@@ -169,15 +224,23 @@ def test_applicability_flags_far_nodes_not_the_wells():
 
 @pytest.mark.parametrize("n_features", [1, 3])
 def test_applicability_index_and_flags_equal_a_plain_nearest_neighbour_search(n_features):
-    # reference: scipy.spatial.cKDTree nearest-neighbour distances (the 1-feature case uses a sorted search)
+    # reference: scipy.spatial.cKDTree nearest-neighbour distances (the 1-feature case uses a sorted
+    # search)
     from scipy.spatial import cKDTree
 
     rng = np.random.default_rng(n_features)
     names = [f"f{i}" for i in range(n_features)]
     points = rng.normal(size=(60, n_features))
     threshold = 0.4 if n_features == 1 else 2.0  # some nodes on each side of it
-    aoa = Applicability(names, np.zeros(n_features), np.ones(n_features), np.ones(n_features), points, 0.5,
-                        threshold)
+    aoa = Applicability(
+        names,
+        np.zeros(n_features),
+        np.ones(n_features),
+        np.ones(n_features),
+        points,
+        0.5,
+        threshold,
+    )
     X = pd.DataFrame(rng.normal(size=(5000, n_features)) * 2.5, columns=names)
     reference = cKDTree(points).query(X.to_numpy())[0] / 0.5
     np.testing.assert_allclose(aoa.index(X), reference, rtol=1e-12)

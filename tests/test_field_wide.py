@@ -34,7 +34,9 @@ def test_debiasing_removes_most_of_a_preferential_drilling_bias():
     s_wells = rng.choice(s_map, size=200, p=s_map**2 / np.sum(s_map**2))
     z = s_wells + rng.normal(0, 0.1, s_wells.size)
     ones = np.ones(z.size)
-    wide = field_wide_values("porosity", z, s_wells, s_map, ones, ones, ones, np.arange(z.size), map_values=s_map)
+    wide = field_wide_values(
+        "porosity", z, s_wells, s_map, ones, ones, ones, np.arange(z.size), map_values=s_map
+    )
     naive, debiased = wide.estimates["naive"]["mean"], wide.estimates["debiased_seismic"]["mean"]
     assert naive - 0.5 > 0.2  # the drilling bias is large
     assert abs(debiased - 0.5) < 0.4 * (naive - 0.5)  # bins of the secondary: measured 0.55 here
@@ -62,8 +64,10 @@ def test_map_rules():
     np.testing.assert_allclose(np.bincount(drawn, minlength=3) / drawn.size, target, atol=0.01)
     balanced = np.argmax(proba * rule_factors("balanced", proba, target), axis=1)
     np.testing.assert_array_equal(balanced, np.argmax(proba / target, axis=1))
-    np.testing.assert_array_equal(np.argmax(proba * rule_factors("most-probable", proba, target), axis=1),
-                                  np.argmax(proba, axis=1))
+    np.testing.assert_array_equal(
+        np.argmax(proba * rule_factors("most-probable", proba, target), axis=1),
+        np.argmax(proba, axis=1),
+    )
 
 
 def test_exceedance_follows_the_residual_distribution():
@@ -73,7 +77,10 @@ def test_exceedance_follows_the_residual_distribution():
     p = cal.exceedance(np.array([0.20, 0.20, 0.20]), 0.22)
     assert p[0] == pytest.approx(1 - stats.norm.cdf(1.0), abs=0.005)
     assert cal.exceedance(np.array([0.2]), 0.2)[0] == pytest.approx(0.5, abs=0.005)
-    assert cal.exceedance(np.array([0.2]), 0.5)[0] == 0.0 and cal.exceedance(np.array([0.2]), -0.5)[0] == 1.0
+    assert (
+        cal.exceedance(np.array([0.2]), 0.5)[0] == 0.0
+        and cal.exceedance(np.array([0.2]), -0.5)[0] == 1.0
+    )
 
 
 def test_narrow_attribute_range_at_the_wells_is_warned_and_unknown_rules_refused():
@@ -88,5 +95,7 @@ def test_narrow_attribute_range_at_the_wells_is_warned_and_unknown_rules_refused
     (message,) = _attribute_cover(narrow, on_map, ["impedance"])
     assert "less than half of its range over the map" in message and "add wells" in message
     assert _attribute_cover(wide, on_map, ["impedance"]) == []
-    with pytest.raises(InputError, match="facies_map = 'argmax' is not known; choose one of most-probable"):
+    with pytest.raises(
+        InputError, match="facies_map = 'argmax' is not known; choose one of most-probable"
+    ):
         TrainOptions(targets=["facies"], facies_map="argmax").check()

@@ -36,7 +36,10 @@ def test_weighted_calibration_follows_the_weights():
 
 
 @settings(max_examples=60, deadline=None)
-@given(st.lists(st.floats(-10, 10), min_size=5, max_size=60), st.lists(st.floats(-1, 1), min_size=1, max_size=20))
+@given(
+    st.lists(st.floats(-10, 10), min_size=5, max_size=60),
+    st.lists(st.floats(-1, 1), min_size=1, max_size=20),
+)
 def test_q10_below_q50_below_q90(residuals, q50):
     cal = calibrate(residuals)
     q10, q90 = cal.apply(np.array(q50))
@@ -100,8 +103,11 @@ def test_exceedance_follows_the_residuals_of_wells_predicted_alike():
     rng = np.random.default_rng(8)
     n = 6000
     levels = np.repeat([0.12, 0.05, 0.25], n)
-    residuals = np.where(levels == 0.12, np.where(rng.uniform(size=3 * n) < 0.3, 0.07, -0.03),
-                         rng.choice([-0.01, 0.01], 3 * n))
+    residuals = np.where(
+        levels == 0.12,
+        np.where(rng.uniform(size=3 * n) < 0.3, 0.07, -0.03),
+        rng.choice([-0.01, 0.01], 3 * n),
+    )
     residuals += rng.normal(0, 1e-4, 3 * n)  # no ties at exactly the cutoff
     cal = calibrate(residuals, predicted=levels)
     sd = np.std(levels)
@@ -109,7 +115,9 @@ def test_exceedance_follows_the_residuals_of_wells_predicted_alike():
     expected = (0.3 * k[0] + 0.5 * k[1] + 0.5 * k[2]) / k.sum()
     assert cal.exceedance(np.array([0.12]), 0.12)[0] == pytest.approx(expected, abs=0.01)
     pooled = calibrate(residuals)
-    assert pooled.exceedance(np.array([0.12]), 0.12)[0] == pytest.approx((0.3 + 0.5 + 0.5) / 3, abs=0.01)
+    assert pooled.exceedance(np.array([0.12]), 0.12)[0] == pytest.approx(
+        (0.3 + 0.5 + 0.5) / 3, abs=0.01
+    )
     # far above or below every residual: certain
     assert cal.exceedance(np.array([0.12, 0.12]), 0.5).tolist() == [0.0, 0.0]
     assert cal.exceedance(np.array([0.25]), 0.0)[0] == 1.0

@@ -12,7 +12,8 @@ from predictor.variogram import VariogramModel, along_wells, experimental, fit_v
 
 def test_experimental_semivariogram_hand_computed():
     # points on a line at 0, 1, 2, 3 with values 1, 2, 4, 7:
-    # lag 1: diffs 1, 2, 3 -> gamma = (1 + 4 + 9) / 3 / 2 = 2.3333; lag 2: 3, 5 -> 8.5; lag 3: 6 -> 18
+    # lag 1: diffs 1, 2, 3 -> gamma = (1 + 4 + 9) / 3 / 2 = 2.3333; lag 2: 3, 5 -> 8.5; lag 3: 6 ->
+    # 18
     exp = experimental([0, 1, 2, 3], [0, 0, 0, 0], [1, 2, 4, 7], n_lags=3, max_lag=3.5)
     np.testing.assert_allclose(exp.lags, [1, 2, 3])
     np.testing.assert_allclose(exp.gamma, [7 / 3, 8.5, 18])
@@ -45,8 +46,10 @@ def test_fitted_range_recovers_simulated_range():
     ranges = []
     for seed in range(3):
         pts, values = _simulate(600.0, seed=seed)
-        model = fit_variogram(experimental(pts[:, 0], pts[:, 1], values, n_lags=15, max_lag=1500),
-                              kinds=("exponential",))
+        model = fit_variogram(
+            experimental(pts[:, 0], pts[:, 1], values, n_lags=15, max_lag=1500),
+            kinds=("exponential",),
+        )
         ranges.append(model.range)
     assert np.mean(ranges) == pytest.approx(600.0, rel=0.35)
 
@@ -61,8 +64,12 @@ def test_simple_kriging_equals_gaussian_process():
     sigma2, a, nugget = 1.7, 450.0, 1e-6
     model = VariogramModel("exponential", nugget, sigma2, a)
     est, var = simple_kriging(pts[:, 0], pts[:, 1], values, model, 0.0, query[:, 0], query[:, 1])
-    kernel = ConstantKernel(sigma2, "fixed") * Matern(length_scale=a / 3, length_scale_bounds="fixed", nu=0.5)
-    gp = GaussianProcessRegressor(kernel, alpha=nugget, optimizer=None, normalize_y=False).fit(pts, values)
+    kernel = ConstantKernel(sigma2, "fixed") * Matern(
+        length_scale=a / 3, length_scale_bounds="fixed", nu=0.5
+    )
+    gp = GaussianProcessRegressor(kernel, alpha=nugget, optimizer=None, normalize_y=False).fit(
+        pts, values
+    )
     mean, sd = gp.predict(query, return_std=True)
     np.testing.assert_allclose(est, mean, atol=1e-8)
     np.testing.assert_allclose(var, sd**2 + nugget, atol=1e-8)
@@ -72,7 +79,9 @@ def test_ordinary_kriging_exact_at_wells_and_unbiased_weights():
     rng = np.random.default_rng(3)
     pts = rng.uniform(0, 1000, (30, 2))
     values = 5 + rng.normal(size=30)
-    ok = OrdinaryKriging(VariogramModel("spherical", 0.0, 1.0, 400.0)).fit(pts[:, 0], pts[:, 1], values)
+    ok = OrdinaryKriging(VariogramModel("spherical", 0.0, 1.0, 400.0)).fit(
+        pts[:, 0], pts[:, 1], values
+    )
     est, var = ok.predict(pts[:, 0], pts[:, 1], return_variance=True)
     np.testing.assert_allclose(est, values, atol=1e-6)
     assert np.all(var < 1e-6)
@@ -80,8 +89,12 @@ def test_ordinary_kriging_exact_at_wells_and_unbiased_weights():
     far, far_var = ok.predict([1e6], [1e6], return_variance=True)
     assert values.min() < far[0] < values.max() and far_var[0] > 0.99
     # a constant field stays constant (weights sum to one)
-    flat = OrdinaryKriging(VariogramModel("spherical", 0.0, 1.0, 400.0)).fit(pts[:, 0], pts[:, 1], np.full(30, 2.5))
-    np.testing.assert_allclose(flat.predict(rng.uniform(0, 1000, 50), rng.uniform(0, 1000, 50)), 2.5)
+    flat = OrdinaryKriging(VariogramModel("spherical", 0.0, 1.0, 400.0)).fit(
+        pts[:, 0], pts[:, 1], np.full(30, 2.5)
+    )
+    np.testing.assert_allclose(
+        flat.predict(rng.uniform(0, 1000, 50), rng.uniform(0, 1000, 50)), 2.5
+    )
 
 
 def test_round_trip_through_dict():
@@ -110,8 +123,13 @@ def test_ordinary_kriging_equals_pykrige_with_the_same_variogram():
     ours = OrdinaryKriging(model).fit(pts[:, 0], pts[:, 1], values)
     q = np.random.default_rng(9).uniform(0, 2000, (200, 2)) + 0.37
     est, var = ours.predict(q[:, 0], q[:, 1], return_variance=True)
-    ref = PyKrigeOK(pts[:, 0], pts[:, 1], values, variogram_model="spherical",
-                    variogram_parameters={"psill": 0.8, "range": 700.0, "nugget": 0.05})
+    ref = PyKrigeOK(
+        pts[:, 0],
+        pts[:, 1],
+        values,
+        variogram_model="spherical",
+        variogram_parameters={"psill": 0.8, "range": 700.0, "nugget": 0.05},
+    )
     ref_est, ref_var = ref.execute("points", q[:, 0], q[:, 1])
     np.testing.assert_allclose(est, ref_est, atol=1e-8)
     np.testing.assert_allclose(var, ref_var, atol=1e-8)
@@ -157,12 +175,17 @@ def _primal(pts, values, model, q):
     (Isaaks & Srivastava 1989, ch. 12; here all right-hand sides at once)."""
     n = len(values)
     lhs = np.ones((n + 1, n + 1))
-    lhs[:n, :n] = model.covariance(cdist(pts, pts)) + np.eye(n) * 1e-10 * (model.nugget + model.sill)
+    lhs[:n, :n] = model.covariance(cdist(pts, pts)) + np.eye(n) * 1e-10 * (
+        model.nugget + model.sill
+    )
     lhs[n, n] = 0.0
     rhs = np.ones((n + 1, len(q)))
     rhs[:n] = model.covariance(cdist(pts, q))
     sol = np.linalg.solve(lhs, rhs)
-    return sol[:n].T @ values, model.nugget + model.sill - np.sum(sol[:n] * rhs[:n], axis=0) - sol[n]
+    return (
+        sol[:n].T @ values,
+        model.nugget + model.sill - np.sum(sol[:n] * rhs[:n], axis=0) - sol[n],
+    )
 
 
 @pytest.mark.parametrize("kind", ["spherical", "exponential", "gaussian"])
@@ -175,7 +198,9 @@ def test_dual_form_equals_the_primal_solve(kind):
     ref_est, ref_var = _primal(pts, values, model, q)
     np.testing.assert_allclose(est, ref_est, atol=1e-8)
     np.testing.assert_allclose(var, np.maximum(ref_var, 0), atol=1e-8)
-    np.testing.assert_array_equal(ok.predict(q[:, 0], q[:, 1]), est)  # the variance is optional, not a change
+    np.testing.assert_array_equal(
+        ok.predict(q[:, 0], q[:, 1]), est
+    )  # the variance is optional, not a change
 
 
 def test_moving_neighbourhood_holding_every_well_is_the_global_estimate():
@@ -185,18 +210,23 @@ def test_moving_neighbourhood_holding_every_well_is_the_global_estimate():
     glob = OrdinaryKriging(model).fit(pts[:, 0], pts[:, 1], values)
     every = OrdinaryKriging(model, neighbours=70).fit(pts[:, 0], pts[:, 1], values)
     assert every.local_ and len(every.predict(q[:, 0], q[:, 1])) == 5000 and len(every._tiles) > 4
-    for a, b in zip(glob.predict(q[:, 0], q[:, 1], True), every.predict(q[:, 0], q[:, 1], True), strict=True):
+    for a, b in zip(
+        glob.predict(q[:, 0], q[:, 1], True), every.predict(q[:, 0], q[:, 1], True), strict=True
+    ):
         np.testing.assert_allclose(b, a, atol=1e-8)
     # a smaller neighbourhood still honours the wells (each well is in its own tile's neighbourhood)
-    near = OrdinaryKriging(VariogramModel("spherical", 0.0, 0.8, 700.0), neighbours=25).fit(pts[:, 0], pts[:, 1],
-                                                                                             values)
+    near = OrdinaryKriging(VariogramModel("spherical", 0.0, 0.8, 700.0), neighbours=25).fit(
+        pts[:, 0], pts[:, 1], values
+    )
     np.testing.assert_allclose(near.predict(pts[:, 0], pts[:, 1]), values, atol=1e-6)
     back = OrdinaryKriging.from_dict(near.to_dict())
     np.testing.assert_array_equal(back.predict(q[:, 0], q[:, 1]), near.predict(q[:, 0], q[:, 1]))
     # a bundle written before the dual form stored no neighbourhood: it loads as the global system
     older = glob.to_dict()
     older.pop("neighbours")
-    np.testing.assert_array_equal(OrdinaryKriging.from_dict(older).predict(q[:, 0], q[:, 1]), glob.predict(q[:, 0], q[:, 1]))
+    np.testing.assert_array_equal(
+        OrdinaryKriging.from_dict(older).predict(q[:, 0], q[:, 1]), glob.predict(q[:, 0], q[:, 1])
+    )
 
 
 def test_many_wells_switch_to_a_moving_neighbourhood(monkeypatch):
@@ -232,8 +262,15 @@ def test_volume_semivariograms_pair_samples_within_a_well_or_at_one_z():
     np.testing.assert_array_equal(exp.counts, [3, 1])
     # lateral pairs at the same z only: of (0 m, z 0, 0), (10 m, z 0, 2) and (20 m, z 5, 10) the one
     # pair at z 0 remains (lag 10, half squared difference 2); all pairs give lags 10, 10, 20
-    lateral = experimental([0.0, 10.0, 20.0], [0.0, 0.0, 0.0], [0.0, 2.0, 10.0], n_lags=2, max_lag=25,
-                           z=[0.0, 0.0, 5.0], z_tolerance=1.0)
+    lateral = experimental(
+        [0.0, 10.0, 20.0],
+        [0.0, 0.0, 0.0],
+        [0.0, 2.0, 10.0],
+        n_lags=2,
+        max_lag=25,
+        z=[0.0, 0.0, 5.0],
+        z_tolerance=1.0,
+    )
     np.testing.assert_allclose(lateral.gamma, [2.0])
     every = experimental([0.0, 10.0, 20.0], [0.0, 0.0, 0.0], [0.0, 2.0, 10.0], n_lags=2, max_lag=25)
     np.testing.assert_allclose(every.gamma, [(2.0 + 32.0) / 2, 50.0])

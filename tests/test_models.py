@@ -35,7 +35,9 @@ def test_blend_weights_find_the_exact_member():
     P = np.column_stack([y + rng.normal(0, 1, 100), y, y + rng.normal(0, 2, 100)])
     np.testing.assert_allclose(blend_weights(P, y, np.ones(100)), [0, 1, 0], atol=1e-3)
     w = blend_weights(P[:, [0, 2]], y, np.ones(100))
-    assert w.sum() == pytest.approx(1) and np.all(w >= 0) and w[0] > w[1]  # the less noisy member weighs more
+    assert (
+        w.sum() == pytest.approx(1) and np.all(w >= 0) and w[0] > w[1]
+    )  # the less noisy member weighs more
 
 
 def test_one_standard_error_rule():
@@ -46,12 +48,16 @@ def test_one_standard_error_rule():
     assert _clearly_better(_losses(y, good), _losses(y, noisy), w)
     assert not _clearly_better(_losses(y, noisy), _losses(y, good), w)
     twin = good + rng.normal(0, 0.01, 300)
-    assert not _clearly_better(_losses(y, twin), _losses(y, good), w)  # a hair better is not clearly better
+    assert not _clearly_better(
+        _losses(y, twin), _losses(y, good), w
+    )  # a hair better is not clearly better
 
 
 def test_monotone_lightgbm_never_rises_with_impedance():
     data = _data(300)
-    data.y = data.y + 0.02 * np.sin(data.X["impedance"].to_numpy() / 300)  # wiggles a free model would follow
+    data.y = data.y + 0.02 * np.sin(
+        data.X["impedance"].to_numpy() / 300
+    )  # wiggles a free model would follow
     model = LightGBM("regression", ["impedance", "other"], monotone={"impedance": -1}).fit(data)
     sweep = pd.DataFrame({"impedance": np.linspace(6000, 12000, 400), "other": 0.3})
     assert np.all(np.diff(model.predict(sweep)) <= 1e-12)
@@ -63,11 +69,17 @@ def test_save_and_load_predict_identically(tmp_path):
     data = _data(150)
     codes = (data.X["impedance"] < 9000).astype(int).to_numpy()
     cls = FitData(data.X, codes, data.weights, data.xy, data.groups, ["hard", "soft"])
-    mixture_data = FitData(data.X, data.y, data.weights, data.xy, data.groups, [], codes, ["hard", "soft"])
-    models = [Linear(["impedance"]).fit(data), LightGBM("regression", ["impedance", "other"]).fit(data),
-              Logistic(["impedance"]).fit(cls), LightGBM("classification", ["impedance"]).fit(cls),
-              FaciesMixture(["impedance"]).fit(mixture_data),
-              Blend([Linear(["impedance"]), LightGBM("regression", ["impedance"])], [0.3, 0.7]).fit(data)]
+    mixture_data = FitData(
+        data.X, data.y, data.weights, data.xy, data.groups, [], codes, ["hard", "soft"]
+    )
+    models = [
+        Linear(["impedance"]).fit(data),
+        LightGBM("regression", ["impedance", "other"]).fit(data),
+        Logistic(["impedance"]).fit(cls),
+        LightGBM("classification", ["impedance"]).fit(cls),
+        FaciesMixture(["impedance"]).fit(mixture_data),
+        Blend([Linear(["impedance"]), LightGBM("regression", ["impedance"])], [0.3, 0.7]).fit(data),
+    ]
     for i, model in enumerate(models):
         desc = model.save(tmp_path, f"m{i}")
         back = load_candidate(desc, tmp_path)
@@ -77,7 +89,9 @@ def test_save_and_load_predict_identically(tmp_path):
 def test_logistic_handles_classes_missing_from_a_fold():
     data = _data(80)
     codes = (data.X["impedance"] < 9000).astype(int).to_numpy()  # classes 0, 1 of three
-    model = Logistic(["impedance"]).fit(FitData(data.X, codes, data.weights, data.xy, data.groups, ["a", "b", "c"]))
+    model = Logistic(["impedance"]).fit(
+        FitData(data.X, codes, data.weights, data.xy, data.groups, ["a", "b", "c"])
+    )
     proba = model.predict(data.X)
     assert proba.shape == (80, 3) and np.all(proba[:, 2] < 1e-6)
     np.testing.assert_allclose(proba.sum(axis=1), 1)
@@ -87,7 +101,9 @@ def test_spread_model_widens_where_errors_are_larger():
     rng = np.random.default_rng(3)
     n = 2000
     imp = rng.uniform(0, 1, n)
-    resid = rng.normal(0, 0.2 * np.exp(2.5 * imp))  # error spread grows with the attribute (log-linear)
+    resid = rng.normal(
+        0, 0.2 * np.exp(2.5 * imp)
+    )  # error spread grows with the attribute (log-linear)
     X = pd.DataFrame({"impedance": imp})
     model = SpreadModel(["impedance"]).fit(X[:1000], resid[:1000], np.ones(1000))
     s = model.predict(X)
@@ -110,16 +126,32 @@ def test_candidates_follow_scikit_learn_conventions_and_clone_unfitted():
     from predictor.models import LOADERS, Kriging, RegressionKriging, WellTies
 
     data = _data(120)
-    candidates = [Linear(["impedance"]), Logistic(["impedance"]), Kriging(),
-                  LightGBM("regression", ["impedance"], monotone={"impedance": -1}, max_rounds=50),
-                  RegressionKriging(["impedance"]), FaciesMixture(["impedance", "other"], member_features=["impedance"]),
-                  WellTies(Linear(["impedance"])), Blend([Linear(["impedance"]), Kriging()], [0.4, 0.6])]
-    assert set(LOADERS) >= {"linear", "logistic", "kriging", "lightgbm", "regression_kriging", "facies_mixture",
-                            "well_ties", "blend"}
+    candidates = [
+        Linear(["impedance"]),
+        Logistic(["impedance"]),
+        Kriging(),
+        LightGBM("regression", ["impedance"], monotone={"impedance": -1}, max_rounds=50),
+        RegressionKriging(["impedance"]),
+        FaciesMixture(["impedance", "other"], member_features=["impedance"]),
+        WellTies(Linear(["impedance"])),
+        Blend([Linear(["impedance"]), Kriging()], [0.4, 0.6]),
+    ]
+    assert set(LOADERS) >= {
+        "linear",
+        "logistic",
+        "kriging",
+        "lightgbm",
+        "regression_kriging",
+        "facies_mixture",
+        "well_ties",
+        "blend",
+    }
     for candidate in candidates:
         copy = clone(candidate)
-        assert type(copy) is type(candidate) and copy.get_params(deep=False).keys() == \
-            candidate.get_params(deep=False).keys()
+        assert (
+            type(copy) is type(candidate)
+            and copy.get_params(deep=False).keys() == candidate.get_params(deep=False).keys()
+        )
         assert repr(copy) == repr(candidate) and copy.name == candidate.name
     fitted = WellTies(Linear(["impedance"])).fit(data)
     assert not hasattr(clone(fitted), "kriging_") and not hasattr(clone(fitted).base, "coef_")
@@ -132,12 +164,19 @@ def test_blend_refits_its_weights_on_the_rows_it_is_given():
     rng = np.random.default_rng(4)
     # member out-of-fold predictions: member 0 good on the first half, member 1 on the second
     good, bad = data.y + rng.normal(0, 0.001, 200), data.y + rng.normal(0, 0.05, 200)
-    P = np.column_stack([np.where(np.arange(200) < 100, good, bad), np.where(np.arange(200) < 100, bad, good)])
-    blend = Blend([Linear(["impedance"]), Linear(["other"], "linear_other")], [0.5, 0.5], member_oof=P, y_all=data.y)
+    P = np.column_stack(
+        [np.where(np.arange(200) < 100, good, bad), np.where(np.arange(200) < 100, bad, good)]
+    )
+    blend = Blend(
+        [Linear(["impedance"]), Linear(["other"], "linear_other")],
+        [0.5, 0.5],
+        member_oof=P,
+        y_all=data.y,
+    )
     first = blend.fit(data.subset(np.arange(100))).weights_
     second = Blend(**blend.get_params(deep=False)).fit(data.subset(np.arange(100, 200))).weights_
     assert first[0] > 0.9 and second[1] > 0.9
-    np.testing.assert_array_equal(blend.weights, [0.5, 0.5])   # the parameter is untouched
+    np.testing.assert_array_equal(blend.weights, [0.5, 0.5])  # the parameter is untouched
 
 
 def test_a_new_candidate_is_one_class(tmp_path):
@@ -167,7 +206,12 @@ def test_a_new_candidate_is_one_class(tmp_path):
             return _kriging_only(self.predict(X, xy), len(names)), np.zeros(len(X))
 
         def save(self, folder, stem):
-            return {"type": self.kind, "name": self.name, "xy": self.xy_.tolist(), "y": self.y_.tolist()}
+            return {
+                "type": self.kind,
+                "name": self.name,
+                "xy": self.xy_.tolist(),
+                "y": self.y_.tolist(),
+            }
 
         @classmethod
         def load(cls, desc, folder):
@@ -177,9 +221,15 @@ def test_a_new_candidate_is_one_class(tmp_path):
 
     data = _data(100)
     oof = out_of_fold(Nearest(), data)
-    assert oof.shape == (100,) and not np.allclose(oof, data.y)   # held-out wells are never their own nearest
+    assert oof.shape == (100,) and not np.allclose(
+        oof, data.y
+    )  # held-out wells are never their own nearest
     fitted = clone(Nearest()).fit(data)
     values, base = fitted.contributions(data.X, data.xy, ["impedance", "other"])
-    np.testing.assert_allclose(base + values.sum(-1), data.y)     # at the wells the nearest well is itself
+    np.testing.assert_allclose(
+        base + values.sum(-1), data.y
+    )  # at the wells the nearest well is itself
     back = load_candidate(fitted.save(tmp_path, "m"), tmp_path)
-    np.testing.assert_array_equal(back.predict(data.X, data.xy + 1.0), fitted.predict(data.X, data.xy + 1.0))
+    np.testing.assert_array_equal(
+        back.predict(data.X, data.xy + 1.0), fitted.predict(data.X, data.xy + 1.0)
+    )

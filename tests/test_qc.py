@@ -31,7 +31,8 @@ def test_pooled_t_nist_worked_example():
     t, dof, _ = pooled_t_from_moments(249, 20.14458, 6.41470, 79, 30.48101, 6.10771)
     assert t == pytest.approx(-12.62059, abs=5e-5)
     assert dof == 326
-    # two samples with exactly these moments give the same T, in our test and in scipy (reference library)
+    # two samples with exactly these moments give the same T, in our test and in scipy (reference
+    # library)
     a = _sample_with_moments(249, 20.14458, 6.41470, 1)
     b = _sample_with_moments(79, 30.48101, 6.10771, 2)
     result = bias_test(a, b, "mpg")
@@ -40,7 +41,9 @@ def test_pooled_t_nist_worked_example():
     assert result["t"] == pytest.approx(ref.statistic, rel=1e-10)
     assert result["p_t"] == pytest.approx(ref.pvalue, rel=1e-6)
     ks = sps.ks_2samp(a, b)
-    assert result["ks_d"] == pytest.approx(ks.statistic) and result["p_ks"] == pytest.approx(ks.pvalue)
+    assert result["ks_d"] == pytest.approx(ks.statistic) and result["p_ks"] == pytest.approx(
+        ks.pvalue
+    )
     assert result["biased"] and "lower mpg than the map" in result["verdict"]
 
 
@@ -57,7 +60,9 @@ def test_design_effect_hand_worked():
     deff, icc = design_effect([1, 2, 3, 4, 5, 6], ["a", "a", "a", "b", "b", "b"])
     assert icc == pytest.approx(12.5 / 15.5) and deff == pytest.approx(1 + 2 * 12.5 / 15.5)
     assert design_effect(np.arange(10.0), np.arange(10)) == (1.0, 0.0)  # one sample per group
-    assert design_effect(np.repeat([1.0, 5.0, 2.0], 4), np.repeat([0, 1, 2], 4))[0] == pytest.approx(4.0)
+    assert design_effect(np.repeat([1.0, 5.0, 2.0], 4), np.repeat([0, 1, 2], 4))[
+        0
+    ] == pytest.approx(4.0)
 
 
 def test_bias_test_counts_samples_of_one_well_once():
@@ -65,9 +70,13 @@ def test_bias_test_counts_samples_of_one_well_once():
     # match scipy's t-test on the wells (up to the ddof of the copies' sd), not be 10x as sure
     rng = np.random.default_rng(4)
     per_well, over_map = rng.normal(0.35, 1.0, 40), rng.normal(0.0, 1.0, 20000)
-    copies = bias_test(np.repeat(per_well, 10), over_map, "impedance", groups=np.repeat(np.arange(40), 10))
+    copies = bias_test(
+        np.repeat(per_well, 10), over_map, "impedance", groups=np.repeat(np.arange(40), 10)
+    )
     wells = bias_test(per_well, over_map, "impedance")
-    assert copies["design_effect"] == pytest.approx(10.0) and copies["n_effective"] == pytest.approx(40.0)
+    assert copies["design_effect"] == pytest.approx(10.0) and copies[
+        "n_effective"
+    ] == pytest.approx(40.0)
     assert copies["p_t"] == pytest.approx(sps.ttest_ind(per_well, over_map).pvalue, rel=0.25)
     assert copies["p_ks"] == pytest.approx(wells["p_ks"], rel=0.25)
     naive = bias_test(np.repeat(per_well, 10), over_map, "impedance")
@@ -83,11 +92,13 @@ def test_tukey_fences_hand_worked():
 
 def test_outliers_are_judged_within_their_facies():
     # 0.14 is ordinary in the pooled data but far outside the tight sand values
-    wells = pd.DataFrame({
-        "well_id": [f"W{i}" for i in range(12)],
-        "facies": ["sand"] * 6 + ["shale"] * 6,
-        "porosity": [0.25, 0.26, 0.24, 0.25, 0.255, 0.14, 0.06, 0.07, 0.08, 0.05, 0.07, 0.065],
-    })
+    wells = pd.DataFrame(
+        {
+            "well_id": [f"W{i}" for i in range(12)],
+            "facies": ["sand"] * 6 + ["shale"] * 6,
+            "porosity": [0.25, 0.26, 0.24, 0.25, 0.255, 0.14, 0.06, 0.07, 0.08, 0.05, 0.07, 0.065],
+        }
+    )
     found = outlier_findings(wells, ["porosity"])
     assert len(found) == 1 and found[0].wells == ["W5"] and "facies sand" in found[0].message
     pooled = outlier_findings(wells.assign(facies="all"), ["porosity"])
@@ -95,8 +106,13 @@ def test_outliers_are_judged_within_their_facies():
 
 
 def test_non_physical_values_named():
-    wells = pd.DataFrame({"well_id": ["A", "B", "C"], "porosity": [0.2, -0.01, 1.2],
-                          "permeability": [10.0, 0.0, -3.0]})
+    wells = pd.DataFrame(
+        {
+            "well_id": ["A", "B", "C"],
+            "porosity": [0.2, -0.01, 1.2],
+            "permeability": [10.0, 0.0, -3.0],
+        }
+    )
     found = physical_findings(wells, "w.csv")
     text = " | ".join(f.message for f in found)
     assert "'porosity' is negative" in text and "B (1 row)" in text
@@ -106,7 +122,9 @@ def test_non_physical_values_named():
 
 
 def test_duplicates_by_id_and_location():
-    wells = pd.DataFrame({"well_id": ["A", "B", "A", "D"], "x": [0.0, 100, 200, 100.4], "y": [0.0, 0, 0, 0.3]})
+    wells = pd.DataFrame(
+        {"well_id": ["A", "B", "A", "D"], "x": [0.0, 100, 200, 100.4], "y": [0.0, 0, 0, 0.3]}
+    )
     found = duplicate_findings(wells, tolerance=1.0)
     assert found[0].wells == ["A"]
     assert found[1].wells == ["B=D"]
@@ -127,5 +145,8 @@ def test_run_qc_on_demo(demo_paths):
 def test_constant_attribute_is_an_error():
     from predictor.qc import grid_findings
 
-    grid = xr.Dataset({"impedance": (("y", "x"), np.full((3, 3), 5000.0))}, coords={"x": [0.0, 1, 2], "y": [0.0, 1, 2]})
+    grid = xr.Dataset(
+        {"impedance": (("y", "x"), np.full((3, 3), 5000.0))},
+        coords={"x": [0.0, 1, 2], "y": [0.0, 1, 2]},
+    )
     assert any(f.check == "constant attribute" for f in grid_findings(grid))

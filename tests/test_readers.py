@@ -12,11 +12,21 @@ from predictor.grid import grid_from_table, read_grid, sample_at
 from predictor.io.netcdf import write_netcdf
 from predictor.io.tables import read_table, read_wells
 
-WELLS = "well,X,Y,facies,porosity,permeability\nA,10,20,sand,0.25,100\nB,30,40,shale,0.08,0.5\nC,50,10,sand,0.22,80\n"
+WELLS = (
+    "well,X,Y,facies,porosity,permeability\n"
+    "A,10,20,sand,0.25,100\nB,30,40,shale,0.08,0.5\nC,50,10,sand,0.22,80\n"
+)
 
 
-@pytest.mark.parametrize("encoding,newline,delimiter", [
-    ("utf-8", "\n", ","), ("utf-8-sig", "\r\n", ","), ("utf-8", "\n", ";"), ("utf-8-sig", "\n", ";")])
+@pytest.mark.parametrize(
+    "encoding,newline,delimiter",
+    [
+        ("utf-8", "\n", ","),
+        ("utf-8-sig", "\r\n", ","),
+        ("utf-8", "\n", ";"),
+        ("utf-8-sig", "\n", ";"),
+    ],
+)
 def test_wells_variations_read_alike(tmp_path, encoding, newline, delimiter):
     text = WELLS.replace(",", delimiter)
     wells = read_wells(write(tmp_path / "w.csv", text, encoding, newline))
@@ -46,16 +56,31 @@ def test_parquet(tmp_path):
     assert read_wells(tmp_path / "w.parquet").porosity.tolist() == [0.1, 0.2]
 
 
-@pytest.mark.parametrize("text,match", [
-    ("", "empty"),
-    ("x,y,porosity\n", "no data rows"),
-    ("x,y,porosity\n1,2,abc\n3,4,0.2\n", r"'porosity' has values that are not numbers at row1 \(line 2\)"),
-    ("x,y,porosity\n1,nan,0.1\n3,4,0.2\n", r"coordinate column 'y' is missing, NaN or infinite at row1 \(line 2\)"),
-    ("x,y,porosity\ninf,1,0.1\n3,4,0.2\n", "NaN or infinite"),
-    ("x,y,porosity\n1,2,12.5\n3,4,22\n", r"looks like percent.*--porosity-percent"),
-    ("east_m,north_m,porosity\n1,2,0.1\n", r"no column for the x coordinate.*columns are east_m, north_m, porosity"),
-    ("x,y,porosity\n1,2,0.1,7\n3,4\n", r"line 2, line 3 \(2 rows\) do not have the header's 3 fields"),
-])
+@pytest.mark.parametrize(
+    "text,match",
+    [
+        ("", "empty"),
+        ("x,y,porosity\n", "no data rows"),
+        (
+            "x,y,porosity\n1,2,abc\n3,4,0.2\n",
+            r"'porosity' has values that are not numbers at row1 \(line 2\)",
+        ),
+        (
+            "x,y,porosity\n1,nan,0.1\n3,4,0.2\n",
+            r"coordinate column 'y' is missing, NaN or infinite at row1 \(line 2\)",
+        ),
+        ("x,y,porosity\ninf,1,0.1\n3,4,0.2\n", "NaN or infinite"),
+        ("x,y,porosity\n1,2,12.5\n3,4,22\n", r"looks like percent.*--porosity-percent"),
+        (
+            "east_m,north_m,porosity\n1,2,0.1\n",
+            r"no column for the x coordinate.*columns are east_m, north_m, porosity",
+        ),
+        (
+            "x,y,porosity\n1,2,0.1,7\n3,4\n",
+            r"line 2, line 3 \(2 rows\) do not have the header's 3 fields",
+        ),
+    ],
+)
 def test_bad_wells(tmp_path, text, match):
     with pytest.raises(InputError, match=match):
         read_wells(write(tmp_path / "w.csv", text))
@@ -69,7 +94,9 @@ def test_garbage_bytes(tmp_path):
 
 
 def test_percent_option_converts(tmp_path):
-    wells = read_wells(write(tmp_path / "w.csv", "x,y,porosity\n1,2,12.5\n3,4,22\n"), porosity_percent=True)
+    wells = read_wells(
+        write(tmp_path / "w.csv", "x,y,porosity\n1,2,12.5\n3,4,22\n"), porosity_percent=True
+    )
     assert wells.porosity.tolist() == [0.125, 0.22]
 
 
@@ -83,7 +110,12 @@ def _grid_text(rows):
 
 
 def test_grid_lattice_detected_with_gaps(tmp_path):
-    rows = [(100 + 10 * i, 200 + 5 * j, 1000 + i + 10 * j) for i in range(4) for j in range(3) if (i, j) != (2, 1)]
+    rows = [
+        (100 + 10 * i, 200 + 5 * j, 1000 + i + 10 * j)
+        for i in range(4)
+        for j in range(3)
+        if (i, j) != (2, 1)
+    ]
     grid = read_grid(write(tmp_path / "g.csv", _grid_text(rows)))
     assert grid.impedance.dims == ("y", "x")
     assert grid.x.values.tolist() == [100, 110, 120, 130]
@@ -104,8 +136,10 @@ def test_grid_needs_attribute(tmp_path):
 
 
 def test_netcdf_round_trip_and_truncated(tmp_path):
-    ds = xr.Dataset({"impedance": (("y", "x"), np.arange(12.0).reshape(3, 4))},
-                    coords={"x": [0.0, 1, 2, 3], "y": [10.0, 11, 12]})
+    ds = xr.Dataset(
+        {"impedance": (("y", "x"), np.arange(12.0).reshape(3, 4))},
+        coords={"x": [0.0, 1, 2, 3], "y": [10.0, 11, 12]},
+    )
     path = write_netcdf(ds, tmp_path / "g.nc")
     back = read_grid(path)
     np.testing.assert_array_equal(back.impedance.values, ds.impedance.values)
@@ -117,8 +151,10 @@ def test_netcdf_round_trip_and_truncated(tmp_path):
 
 
 def test_descending_netcdf_coordinates_are_flipped(tmp_path):
-    ds = xr.Dataset({"impedance": (("y", "x"), np.arange(6.0).reshape(2, 3))},
-                    coords={"x": [0.0, 1, 2], "y": [11.0, 10.0]})
+    ds = xr.Dataset(
+        {"impedance": (("y", "x"), np.arange(6.0).reshape(2, 3))},
+        coords={"x": [0.0, 1, 2], "y": [11.0, 10.0]},
+    )
     back = read_grid(write_netcdf(ds, tmp_path / "g.nc"))
     assert back.y.values.tolist() == [10.0, 11.0]
     assert back.impedance.values[0].tolist() == [3.0, 4.0, 5.0]
@@ -140,12 +176,18 @@ def test_bilinear_sampling_matches_scipy():
 
 
 def test_sampling_outside_names_wells():
-    grid = xr.Dataset({"a": (("y", "x"), np.ones((3, 3)))}, coords={"x": [0.0, 1, 2], "y": [0.0, 1, 2]})
+    grid = xr.Dataset(
+        {"a": (("y", "x"), np.ones((3, 3)))}, coords={"x": [0.0, 1, 2], "y": [0.0, 1, 2]}
+    )
     grid["a"][1, 1] = np.nan
-    with pytest.raises(InputError, match=r"outside the grid: far \(1 row\).*no attribute value \(NaN\): gap"):
+    with pytest.raises(
+        InputError, match=r"outside the grid: far \(1 row\).*no attribute value \(NaN\): gap"
+    ):
         sample_at(grid, [0.5, 9.0, 1.1], [0.5, 0.0, 0.9], labels=["ok", "far", "gap"])
     with pytest.warns(PredictorWarning, match="left out wells"):
-        values, kept = sample_at(grid, [0.5, 9.0], [0.5, 0.0], labels=["ok", "far"], drop_outside=True)
+        values, kept = sample_at(
+            grid, [0.5, 9.0], [0.5, 0.0], labels=["ok", "far"], drop_outside=True
+        )
     assert kept.tolist() == [True, False] and values["a"].tolist() == [1.0]
 
 
@@ -159,21 +201,27 @@ def test_grid_from_table_duplicate_nodes():
 def test_property_roles_follow_the_option_or_a_common_mnemonic(tmp_path):
     """A porosity log named PHIT in percent is porosity, and so refused as percent; named by
     --porosity-column it is read under its role, with the file column recorded."""
-    path = write(tmp_path / "w.csv", "WELL,X,Y,PHIT,KLOGH,LITHO\nA,0,0,21,150,sand\nB,100,0,12,3,shale\n"
-                                    "C,0,100,25,400,sand\n")
-    with pytest.raises(InputError, match=r"column 'PHIT' \(porosity\) looks like percent .*--porosity-percent"):
+    path = write(
+        tmp_path / "w.csv",
+        "WELL,X,Y,PHIT,KLOGH,LITHO\nA,0,0,21,150,sand\nB,100,0,12,3,shale\nC,0,100,25,400,sand\n",
+    )
+    with pytest.raises(
+        InputError, match=r"column 'PHIT' \(porosity\) looks like percent .*--porosity-percent"
+    ):
         read_wells(path)
     wells = read_wells(path, porosity_percent=True, roles={"permeability": "KLOGH"})
     np.testing.assert_allclose(wells["porosity"], [0.21, 0.12, 0.25])
-    assert wells["facies"].tolist() == ["sand", "shale", "sand"]          # LITHO: a common mnemonic
+    assert wells["facies"].tolist() == ["sand", "shale", "sand"]  # LITHO: a common mnemonic
     assert wells.attrs["columns_taken"]["porosity"] == "PHIT" and "KLOGH" not in wells
     assert wells.attrs["columns_taken"]["permeability"] == "KLOGH"
     with pytest.raises(InputError, match=r"no column 'TOTPOR' for porosity \(--porosity-column\)"):
         read_wells(path, roles={"porosity": "TOTPOR"})
     both = write(tmp_path / "b.csv", "x,y,porosity,PHIE\n0,0,0.2,0.18\n1,1,0.1,0.09\n")
-    with pytest.raises(InputError, match="column 'PHIE' is taken as porosity .* also has a column 'porosity'"):
+    with pytest.raises(
+        InputError, match="column 'PHIE' is taken as porosity .* also has a column 'porosity'"
+    ):
         read_wells(both, roles={"porosity": "PHIE"})
-    assert read_wells(both)["porosity"].tolist() == [0.2, 0.1]              # the role's own name wins
+    assert read_wells(both)["porosity"].tolist() == [0.2, 0.1]  # the role's own name wins
     with pytest.raises(InputError, match="unknown column role saturation"):
         read_wells(both, roles={"saturation": "SW"})
 
@@ -192,15 +240,23 @@ def test_attribute_kind_not_name_decides_the_positivity_check():
     from predictor.qc import grid_findings
 
     values = np.linspace(-500.0, 800.0, 20).reshape(4, 5)
-    grid = xr.Dataset({"rel_impedance": (("y", "x"), values), "vp": (("y", "x"), values + 3000)},
-                      coords={"y": np.arange(4.0), "x": np.arange(5.0)})
-    assert attribute_kind(grid, "rel_impedance") == "impedance" and attribute_kind(grid, "vp") == "velocity"
+    grid = xr.Dataset(
+        {"rel_impedance": (("y", "x"), values), "vp": (("y", "x"), values + 3000)},
+        coords={"y": np.arange(4.0), "x": np.arange(5.0)},
+    )
+    assert (
+        attribute_kind(grid, "rel_impedance") == "impedance"
+        and attribute_kind(grid, "vp") == "velocity"
+    )
     errors = [f for f in grid_findings(grid) if f.severity == "error"]
-    assert [f.column for f in errors] == ["rel_impedance"] and "--attribute-kind rel_impedance=amplitude" in \
-        errors[0].message
+    assert [f.column for f in errors] == [
+        "rel_impedance"
+    ] and "--attribute-kind rel_impedance=amplitude" in errors[0].message
     set_attribute_kinds(grid, {"rel_impedance": "amplitude"})
     assert not [f for f in grid_findings(grid) if f.severity == "error"]
-    with pytest.raises(InputError, match="kind must be one of impedance, velocity, density, amplitude, other"):
+    with pytest.raises(
+        InputError, match="kind must be one of impedance, velocity, density, amplitude, other"
+    ):
         set_attribute_kinds(grid, {"vp": "speed"})
     with pytest.raises(InputError, match="names 'ai', which is not an attribute of the grid"):
         set_attribute_kinds(grid, {"ai": "impedance"})
@@ -223,11 +279,21 @@ def test_files_open_by_their_signature_whatever_their_name(tmp_path):
     write_geotiff(grid, tmp_path / "g.tif")
     (tmp_path / "g.tif").rename(tmp_path / "g.raster")
     pd.read_csv(DEMO / "seismic.csv").to_parquet(tmp_path / "table.bin")
-    kinds = {name: file_format(tmp_path / name) for name in ("impedance.dat", "store", "g.raster", "table.bin")}
-    assert kinds == {"impedance.dat": "netcdf", "store": "zarr", "g.raster": "geotiff", "table.bin": "parquet"}
+    kinds = {
+        name: file_format(tmp_path / name)
+        for name in ("impedance.dat", "store", "g.raster", "table.bin")
+    }
+    assert kinds == {
+        "impedance.dat": "netcdf",
+        "store": "zarr",
+        "g.raster": "geotiff",
+        "table.bin": "parquet",
+    }
     for name in kinds:
         again = read_seismic(tmp_path / name)
-        np.testing.assert_allclose(again["impedance"].to_numpy(), grid["impedance"].to_numpy(), rtol=1e-6)
+        np.testing.assert_allclose(
+            again["impedance"].to_numpy(), grid["impedance"].to_numpy(), rtol=1e-6
+        )
         np.testing.assert_allclose(again.x, grid.x)
     # a text table named like a NetCDF file is refused by the NetCDF reader, saying so
     write(tmp_path / "table.nc", "x,y,impedance\n0,0,1\n")
@@ -244,8 +310,16 @@ def test_a_plain_single_band_geotiff_is_a_grid_named_by_its_file(tmp_path):
 
     values = np.arange(12, dtype="float32").reshape(3, 4)  # row 0 is the northernmost
     values[1, 2] = -9999
-    profile = {"driver": "GTiff", "width": 4, "height": 3, "count": 1, "dtype": "float32", "nodata": -9999,
-               "crs": "EPSG:32631", "transform": from_origin(500000, 7205000, 25, 25)}
+    profile = {
+        "driver": "GTiff",
+        "width": 4,
+        "height": 3,
+        "count": 1,
+        "dtype": "float32",
+        "nodata": -9999,
+        "crs": "EPSG:32631",
+        "transform": from_origin(500000, 7205000, 25, 25),
+    }
     with rasterio.open(tmp_path / "acoustic_impedance.tif", "w", **profile) as dst:
         dst.write(values, 1)
     grid = read_seismic(tmp_path / "acoustic_impedance.tif")

@@ -13,9 +13,26 @@ ARTEFACTS = ROOT / "test-artifacts"
 @pytest.fixture(scope="module")
 def report(tmp_path_factory):
     folder = tmp_path_factory.mktemp("r")
-    assert main(["train", "--wells", str(DEMO / "wells.csv"), "--grid", str(DEMO / "seismic.csv"),
-                 "--target", "porosity", "--target", "facies", "--context-radius", "250", "--out",
-                 str(folder / "bundle")]) == 0
+    assert (
+        main(
+            [
+                "train",
+                "--wells",
+                str(DEMO / "wells.csv"),
+                "--grid",
+                str(DEMO / "seismic.csv"),
+                "--target",
+                "porosity",
+                "--target",
+                "facies",
+                "--context-radius",
+                "250",
+                "--out",
+                str(folder / "bundle"),
+            ]
+        )
+        == 0
+    )
     out = folder / "report.html"
     assert main(["report", str(folder / "bundle"), "--out", str(out)]) == 0
     return out
@@ -27,9 +44,17 @@ def test_report_is_self_contained(report):
     assert "<script src" not in text
     images = re.findall(r'<img src="([^"]+)"', text)
     assert len(images) >= 10 and all(src.startswith("data:image/png;base64,") for src in images)
-    for section in ("At a glance", "The data and its checks", "Drilling bias and declustering",
-                    "spatial cross-validation", "Maps between the wells", "q10-q90", "Why the model",
-                    "Warnings", "Where this came from"):
+    for section in (
+        "At a glance",
+        "The data and its checks",
+        "Drilling bias and declustering",
+        "spatial cross-validation",
+        "Maps between the wells",
+        "q10-q90",
+        "Why the model",
+        "Warnings",
+        "Where this came from",
+    ):
         assert section in text
     assert "a model, not a measurement" in text and "qualified professionals" in text
 
@@ -43,11 +68,24 @@ def test_at_a_glance_compares_the_chosen_model_with_the_best_baseline():
     from predictor.report import against_baseline
 
     def row(name, rmse, baseline, chosen=False, se=0.0):
-        return {"candidate": name, "baseline": baseline, "chosen": chosen, "cv": {"rmse": rmse}, "cv_se": se}
+        return {
+            "candidate": name,
+            "baseline": baseline,
+            "chosen": chosen,
+            "cv": {"rmse": rmse},
+            "cv_se": se,
+        }
 
-    info = {"task": "regression", "leaderboard": [row("linear", 0.040, True), row("regression_kriging", 0.036, True),
-                                                  row("blend", 0.030, False, True, se=1e-5)]}
-    # 0.030 against the best baseline's 0.036: 16.7 % lower; the squared-error gap 4.0e-4 exceeds the se
+    info = {
+        "task": "regression",
+        "leaderboard": [
+            row("linear", 0.040, True),
+            row("regression_kriging", 0.036, True),
+            row("blend", 0.030, False, True, se=1e-5),
+        ],
+    }
+    # 0.030 against the best baseline's 0.036: 16.7 % lower; the squared-error gap 4.0e-4 exceeds
+    # the se
     assert against_baseline(info) == "16.7% lower rmse than regression_kriging (0.03 vs 0.036)"
     info["leaderboard"][2] = row("blend", 0.0359, False, True, se=1e-3)
     assert against_baseline(info).endswith("; within one standard error")

@@ -19,7 +19,9 @@ def test_a_gap_among_the_corners_renormalises_the_weights():
 
 def test_interpolate_flags_a_gap_at_the_nearest_node_and_clips_to_the_nodes():
     ds = xr.Dataset({"a": (("y", "x"), np.array([[1.0, 2.0], [4.0, np.nan]]))})
-    values, gap = interpolate(ds, ("y", "x"), [np.array([0.9, 0.1, -3.0]), np.array([0.9, 0.1, 5.0])])
+    values, gap = interpolate(
+        ds, ("y", "x"), [np.array([0.9, 0.1, -3.0]), np.array([0.9, 0.1, 5.0])]
+    )
     assert gap.tolist() == [True, False, False]
     assert values["a"].iloc[2] == 2.0  # clipped to the node (row 0, column 1)
     nearest, _ = interpolate(ds, ("y", "x"), [np.array([0.4]), np.array([0.6])], nearest=True)

@@ -36,7 +36,8 @@ def test_wyllie_worked_values():
 
 
 def test_raymer_and_density_plausible():
-    # Raymer-Hunt-Gardner at zero porosity is the matrix velocity; at phi = 1 the fluid's (by formula)
+    # Raymer-Hunt-Gardner at zero porosity is the matrix velocity; at phi = 1 the fluid's (by
+    # formula)
     assert raymer_velocity(0.0) == pytest.approx(5850.0)
     assert raymer_velocity(0.2) == pytest.approx(0.64 * 5850 + 0.2 * 1550)
     # handbook: quartz 2.65 g/cm3 at zero porosity

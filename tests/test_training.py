@@ -23,8 +23,24 @@ WELLS, GRID = str(DEMO / "wells.csv"), str(DEMO / "seismic.csv")
 @pytest.fixture(scope="module")
 def bundle(tmp_path_factory):
     folder = tmp_path_factory.mktemp("b") / "bundle"
-    assert main(["train", "--wells", WELLS, "--grid", GRID, "--target", "porosity", "--target", "facies",
-                 "--out", str(folder)]) == 0
+    assert (
+        main(
+            [
+                "train",
+                "--wells",
+                WELLS,
+                "--grid",
+                GRID,
+                "--target",
+                "porosity",
+                "--target",
+                "facies",
+                "--out",
+                str(folder),
+            ]
+        )
+        == 0
+    )
     return folder
 
 
@@ -35,11 +51,23 @@ def test_card_has_the_documented_keys(bundle):
     assert 0 < card["targets"]["facies"]["cv"]["balanced_accuracy"] <= 1
     assert set(card["targets"]["porosity"]["cv_random"]) == {"rmse", "mae", "r2"}
     assert card["declustered"]["porosity"]["mean"] < card["naive"]["porosity"]["mean"]
-    assert card["declustered"]["facies"]["proportions"]["sand"] < card["naive"]["facies"]["proportions"]["sand"]
+    assert (
+        card["declustered"]["facies"]["proportions"]["sand"]
+        < card["naive"]["facies"]["proportions"]["sand"]
+    )
     assert set(card["targets"]["facies"]["classes"]) == {"sand", "shale", "silt"}
     board = {r["candidate"] for r in card["targets"]["porosity"]["leaderboard"]}
-    assert {"linear", "ordinary_kriging", "regression_kriging", "lightgbm", "facies_mixture"} <= board
-    assert card["inputs"]["wells"]["sha256"] and card["features"]["training_ranges"]["impedance"][0] > 0
+    assert {
+        "linear",
+        "ordinary_kriging",
+        "regression_kriging",
+        "lightgbm",
+        "facies_mixture",
+    } <= board
+    assert (
+        card["inputs"]["wells"]["sha256"]
+        and card["features"]["training_ranges"]["impedance"][0] > 0
+    )
     assert all(not name.endswith((".pkl", ".pickle", ".joblib")) for name in card["files"])
     # the intervals checked on wells the calibration did not see: near the nominal 80 %
     assert 0.7 <= card["targets"]["porosity"]["calibration"]["held_out_coverage"] <= 0.9
@@ -49,9 +77,19 @@ def test_maps_csv_columns_and_ordering(bundle, tmp_path):
     out = tmp_path / "maps.csv"
     assert main(["predict", str(bundle), "--grid", GRID, "--out", str(out)]) == 0
     maps = pd.read_csv(out)
-    assert list(maps.columns) == ["x", "y", "porosity", "porosity_q10", "porosity_q90", "porosity_applicable",
-                                  "facies", "facies_prob_sand", "facies_prob_shale", "facies_prob_silt",
-                                  "facies_applicable"]
+    assert list(maps.columns) == [
+        "x",
+        "y",
+        "porosity",
+        "porosity_q10",
+        "porosity_q90",
+        "porosity_applicable",
+        "facies",
+        "facies_prob_sand",
+        "facies_prob_shale",
+        "facies_prob_silt",
+        "facies_applicable",
+    ]
     assert set(maps.porosity_applicable) == {0, 1} and maps.porosity_applicable.mean() > 0.8
     assert len(maps) == 120 * 100
     assert np.all(maps.porosity_q10 <= maps.porosity) and np.all(maps.porosity <= maps.porosity_q90)
@@ -83,7 +121,9 @@ def test_saved_bundle_predicts_what_was_trained(bundle, tmp_path):
 
 def test_netcdf_maps(bundle, tmp_path):
     out = tmp_path / "maps.nc"
-    assert main(["predict", str(bundle), "--grid", str(DEMO / "seismic.nc"), "--out", str(out)]) == 0
+    assert (
+        main(["predict", str(bundle), "--grid", str(DEMO / "seismic.nc"), "--out", str(out)]) == 0
+    )
     ds = xr.open_dataset(out)
     assert ds.attrs["Conventions"] == "CF-1.8"
     assert ds["facies"].attrs["flag_meanings"] == "sand shale silt"
@@ -163,7 +203,22 @@ def test_constant_attribute(demo_inputs):
 
 def test_train_cli_bad_input_leaves_nothing(tmp_path, capsys):
     out = tmp_path / "b"
-    assert main(["train", "--wells", WELLS, "--grid", GRID, "--target", "nonexistent", "--out", str(out)]) == 2
+    assert (
+        main(
+            [
+                "train",
+                "--wells",
+                WELLS,
+                "--grid",
+                GRID,
+                "--target",
+                "nonexistent",
+                "--out",
+                str(out),
+            ]
+        )
+        == 2
+    )
     assert "no column 'nonexistent'" in capsys.readouterr().err
     assert not out.exists() and not list(tmp_path.iterdir())
 
@@ -174,7 +229,9 @@ def test_a_facies_held_in_one_block_only_cannot_be_validated():
     wells, grid = read_wells(WELLS), read_grid(GRID)
     labels = block_labels(wells.x, wells.y, 500.0)
     crowded = np.bincount(labels).argmax()
-    wells["facies"] = np.where(labels == crowded, "sand", np.where(wells.facies == "sand", "silt", wells.facies))
+    wells["facies"] = np.where(
+        labels == crowded, "sand", np.where(wells.facies == "sand", "silt", wells.facies)
+    )
     with pytest.raises(ModelError, match="has no training well of facies sand"):
         train(wells, grid, TrainOptions(targets=["facies"], cv="blocks", block_size=500.0))
 
@@ -182,11 +239,20 @@ def test_a_facies_held_in_one_block_only_cannot_be_validated():
 def test_monotone_constraint_follows_the_named_attribute():
     wells, grid = read_wells(WELLS), read_grid(GRID)
     grid = grid.rename({"impedance": "ai"})
-    trained = train(wells, grid, TrainOptions(targets=["porosity"], monotone={"ai": -1},
-                                              candidates=["linear", "lightgbm_monotone"]))
+    trained = train(
+        wells,
+        grid,
+        TrainOptions(
+            targets=["porosity"], monotone={"ai": -1}, candidates=["linear", "lightgbm_monotone"]
+        ),
+    )
     model = trained.targets["porosity"].candidates["lightgbm_monotone"]
-    assert all(v == -1 for v in model.monotone.values()) and any(k.startswith("ai_smooth") for k in model.monotone)
-    assert "ai" in model.monotone and not any("contrast" in k or "gradient" in k for k in model.monotone)
+    assert all(v == -1 for v in model.monotone.values()) and any(
+        k.startswith("ai_smooth") for k in model.monotone
+    )
+    assert "ai" in model.monotone and not any(
+        "contrast" in k or "gradient" in k for k in model.monotone
+    )
     # the constrained model never lets porosity rise with ai along a line through the wells' range
     X = trained.well_features.iloc[[0] * 50].reset_index(drop=True)
     X["ai"] = np.linspace(*trained.training_ranges["ai"], 50)
@@ -217,23 +283,48 @@ def test_card_holds_field_wide_estimates_below_the_raw_wells(bundle):
     card = json.loads((bundle / "model_card.json").read_text())
     truth = xr.open_dataset(DEMO / "truth.nc")
     phi = card["global"]["porosity"]
-    assert phi["method"] in phi["estimates"] and phi["interval"]["q10"] <= phi["mean"] <= phi["interval"]["q90"]
+    assert (
+        phi["method"] in phi["estimates"]
+        and phi["interval"]["q10"] <= phi["mean"] <= phi["interval"]["q90"]
+    )
     true_mean = float(truth.porosity.mean())
     raw_error = abs(card["naive"]["porosity"]["mean"] - true_mean)
     assert abs(phi["mean"] - true_mean) < 0.5 * raw_error
     sand = card["global"]["facies"]["proportions"]["sand"]
-    true_sand = float((truth.facies.to_numpy() == 2).mean())  # synthetic codes: 0 shale, 1 silt, 2 sand
-    assert abs(sand - true_sand) < 0.5 * abs(card["naive"]["facies"]["proportions"]["sand"] - true_sand)
+    true_sand = float(
+        (truth.facies.to_numpy() == 2).mean()
+    )  # synthetic codes: 0 shale, 1 silt, 2 sand
+    assert abs(sand - true_sand) < 0.5 * abs(
+        card["naive"]["facies"]["proportions"]["sand"] - true_sand
+    )
     assert sum(card["global"]["facies"]["proportions"].values()) == pytest.approx(1.0)
     assert set(card["targets"]["facies"]["facies_map"]["rule_factors"]) == {"sand", "shale", "silt"}
 
 
 def test_exceedance_maps_and_facies_shares(bundle, tmp_path):
     out = tmp_path / "maps.nc"
-    assert main(["predict", str(bundle), "--grid", GRID, "--out", str(out), "--exceed", "porosity:0.15",
-                 "--exceed", "porosity:0.25"]) == 0
+    assert (
+        main(
+            [
+                "predict",
+                str(bundle),
+                "--grid",
+                GRID,
+                "--out",
+                str(out),
+                "--exceed",
+                "porosity:0.15",
+                "--exceed",
+                "porosity:0.25",
+            ]
+        )
+        == 0
+    )
     maps = xr.open_dataset(out)
-    low, high = maps["porosity_prob_above_0p15"].to_numpy(), maps["porosity_prob_above_0p25"].to_numpy()
+    low, high = (
+        maps["porosity_prob_above_0p15"].to_numpy(),
+        maps["porosity_prob_above_0p25"].to_numpy(),
+    )
     ok = np.isfinite(low)
     assert np.all((low[ok] >= 0) & (low[ok] <= 1)) and np.all(low[ok] >= high[ok])
     # nodes whose q10 is above the cutoff are above it with probability about 0.9 or more
@@ -245,13 +336,20 @@ def test_exceedance_maps_and_facies_shares(bundle, tmp_path):
     rule = card["targets"]["facies"]["facies_map"]["rule"]
     if rule == "proportions":  # the map draws the field-wide proportions
         for k, cls in enumerate(classes):
-            assert np.mean(codes[codes >= 0] == k) == pytest.approx(card["global"]["facies"]["proportions"][cls],
-                                                                    abs=0.03)
+            assert np.mean(codes[codes >= 0] == k) == pytest.approx(
+                card["global"]["facies"]["proportions"][cls], abs=0.03
+            )
 
 
-@pytest.mark.parametrize(("spec", "message"), [
-    ("porosity:1.5", "between 0 and 1"), ("density:3", "no target 'density'"),
-    ("facies:gravel", "no class 'gravel'"), ("porosity", "give TARGET:CUTOFF")])
+@pytest.mark.parametrize(
+    ("spec", "message"),
+    [
+        ("porosity:1.5", "between 0 and 1"),
+        ("density:3", "no target 'density'"),
+        ("facies:gravel", "no class 'gravel'"),
+        ("porosity", "give TARGET:CUTOFF"),
+    ],
+)
 def test_bad_exceedance_cutoffs_exit_2_and_write_nothing(bundle, tmp_path, capsys, spec, message):
     out = tmp_path / "maps.nc"
     assert main(["predict", str(bundle), "--grid", GRID, "--out", str(out), "--exceed", spec]) == 2

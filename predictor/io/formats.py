@@ -15,12 +15,29 @@ from typing import Literal
 
 Format = Literal["netcdf", "zarr", "geotiff", "segy", "parquet", "table"]
 
-SIGNATURES: dict[bytes, Format] = {b"\x89HDF\r\n\x1a\n": "netcdf", b"CDF\x01": "netcdf", b"CDF\x02": "netcdf",
-                                   b"CDF\x05": "netcdf", b"II*\x00": "geotiff", b"MM\x00*": "geotiff",
-                                   b"PAR1": "parquet"}
-EXTENSIONS: dict[str, Format] = {".nc": "netcdf", ".nc4": "netcdf", ".netcdf": "netcdf", ".cdf": "netcdf",
-                                 ".h5": "netcdf", ".zarr": "zarr", ".tif": "geotiff", ".tiff": "geotiff",
-                                 ".sgy": "segy", ".segy": "segy", ".parquet": "parquet", ".pq": "parquet"}
+SIGNATURES: dict[bytes, Format] = {
+    b"\x89HDF\r\n\x1a\n": "netcdf",
+    b"CDF\x01": "netcdf",
+    b"CDF\x02": "netcdf",
+    b"CDF\x05": "netcdf",
+    b"II*\x00": "geotiff",
+    b"MM\x00*": "geotiff",
+    b"PAR1": "parquet",
+}
+EXTENSIONS: dict[str, Format] = {
+    ".nc": "netcdf",
+    ".nc4": "netcdf",
+    ".netcdf": "netcdf",
+    ".cdf": "netcdf",
+    ".h5": "netcdf",
+    ".zarr": "zarr",
+    ".tif": "geotiff",
+    ".tiff": "geotiff",
+    ".sgy": "segy",
+    ".segy": "segy",
+    ".parquet": "parquet",
+    ".pq": "parquet",
+}
 
 
 def file_format(path: str | Path) -> Format:
@@ -28,8 +45,11 @@ def file_format(path: str | Path) -> Format:
     anything else is read as a delimited text table (CSV)."""
     path = Path(path)
     if path.is_dir():
-        return "zarr" if (path / ".zgroup").exists() or (path / "zarr.json").exists() else EXTENSIONS.get(
-            path.suffix.lower(), "table")
+        return (
+            "zarr"
+            if (path / ".zgroup").exists() or (path / "zarr.json").exists()
+            else EXTENSIONS.get(path.suffix.lower(), "table")
+        )
     if path.is_file():
         with open(path, "rb") as handle:
             head = handle.read(8)

@@ -25,14 +25,19 @@ def classes_path(target: str | Path) -> Path:
     return target.with_name(f"{target.stem}_classes{target.suffix}")
 
 
-def write_geotiff(maps: xr.Dataset, target: str | Path, crs: str | None = None, overwrite: bool = True) -> Path:
+def write_geotiff(
+    maps: xr.Dataset, target: str | Path, crs: str | None = None, overwrite: bool = True
+) -> Path:
     """Write every (y, x) variable of ``maps`` as a band, values and class codes in two files
     (see the module), atomically and together."""
     try:
         import rasterio
         from rasterio.transform import from_origin
     except ImportError:
-        raise InputError("writing GeoTIFF needs rasterio: `pip install rasterio` (a dependency of predictor: reinstall it)") from None
+        raise InputError(
+            "writing GeoTIFF needs rasterio: `pip install rasterio` (a dependency of predictor:"
+            " reinstall it)"
+        ) from None
     names = [str(v) for v in maps.data_vars if maps[v].dims == ("y", "x")]
     codes = [n for n in names if maps[n].attrs.get("flag_meanings") and maps[n].dtype.kind == "i"]
     values = [n for n in names if n not in codes]
@@ -44,8 +49,12 @@ def write_geotiff(maps: xr.Dataset, target: str | Path, crs: str | None = None, 
     try:
         crs_obj = rasterio.crs.CRS.from_user_input(crs) if crs else None
     except rasterio.errors.CRSError as err:
-        raise InputError(f"unknown coordinate reference system {crs!r} ({err}); give e.g. EPSG:32631") from None
-    files = [(Path(target), values, "float32", np.nan)] + ([(classes_path(target), codes, "int16", -1)] if codes else [])
+        raise InputError(
+            f"unknown coordinate reference system {crs!r} ({err}); give e.g. EPSG:32631"
+        ) from None
+    files = [(Path(target), values, "float32", np.nan)] + (
+        [(classes_path(target), codes, "int16", -1)] if codes else []
+    )
     if not values:  # class codes only: they are the named file
         files = [(Path(target), codes, "int16", -1)]
     if not overwrite:
@@ -54,9 +63,19 @@ def write_geotiff(maps: xr.Dataset, target: str | Path, crs: str | None = None, 
     with ExitStack() as stack:
         for path, bands, dtype, nodata in files:
             tmp = stack.enter_context(atomic_file(path, overwrite=True))
-            with rasterio.open(tmp, "w", driver="GTiff", height=maps.sizes["y"], width=maps.sizes["x"],
-                               count=len(bands), dtype=dtype, crs=crs_obj, transform=transform, nodata=nodata,
-                               compress="deflate") as dst:
+            with rasterio.open(
+                tmp,
+                "w",
+                driver="GTiff",
+                height=maps.sizes["y"],
+                width=maps.sizes["x"],
+                count=len(bands),
+                dtype=dtype,
+                crs=crs_obj,
+                transform=transform,
+                nodata=nodata,
+                compress="deflate",
+            ) as dst:
                 for i, name in enumerate(bands, start=1):
                     _write_band(dst, i, maps[name], dtype)
     return Path(target)
@@ -70,7 +89,11 @@ def _write_band(dst, i: int, var: xr.DataArray, dtype: str) -> None:
         if fill is not None:
             data = np.where(data == fill, np.nan, data)
     else:  # class codes and flags: -1 where empty, as in the NetCDF maps
-        data = np.where(data == fill, -1, data).astype(dtype) if fill is not None else data.astype(dtype)
+        data = (
+            np.where(data == fill, -1, data).astype(dtype)
+            if fill is not None
+            else data.astype(dtype)
+        )
     dst.write(data[::-1], i)
     dst.set_band_description(i, str(var.name))
     if var.attrs.get("units"):
@@ -80,7 +103,11 @@ def _write_band(dst, i: int, var: xr.DataArray, dtype: str) -> None:
     meanings = var.attrs.get("flag_meanings")
     if meanings:
         flag_values = var.attrs.get("flag_values", np.arange(len(meanings.split(" "))))
-        dst.update_tags(i, flag_meanings=meanings, flag_values=" ".join(str(int(v)) for v in np.atleast_1d(flag_values)))
+        dst.update_tags(
+            i,
+            flag_meanings=meanings,
+            flag_values=" ".join(str(int(v)) for v in np.atleast_1d(flag_values)),
+        )
 
 
 def crs_to_wkt(crs: str) -> str:
@@ -92,7 +119,9 @@ def crs_to_wkt(crs: str) -> str:
     except ImportError:
         return crs
     except Exception as err:  # rasterio raises its own CRSError
-        raise InputError(f"unknown coordinate reference system {crs!r} ({err}); give e.g. EPSG:32631") from None
+        raise InputError(
+            f"unknown coordinate reference system {crs!r} ({err}); give e.g. EPSG:32631"
+        ) from None
 
 
 def read_geotiff(path: str | Path, classes: bool = True) -> xr.Dataset:
@@ -111,12 +140,17 @@ def read_geotiff(path: str | Path, classes: bool = True) -> xr.Dataset:
         try:
             src = rasterio.open(part)
         except RasterioIOError as err:
-            raise InputError(f"{part}: not a readable GeoTIFF ({str(err)[:120]}); re-export it") from None
+            raise InputError(
+                f"{part}: not a readable GeoTIFF ({str(err)[:120]}); re-export it"
+            ) from None
         with src:
             t = src.transform
             if t.b or t.d:
-                raise InputError(f"{part}: the raster is rotated (its geotransform has rotation terms); resample "
-                                 "it north-up, or give the grid as a NetCDF or CSV table of x, y and attributes")
+                raise InputError(
+                    f"{part}: the raster is rotated (its geotransform has rotation terms); resample"
+                    " it north-up, or give the grid as a NetCDF or CSV table of x, y and"
+                    " attributes"
+                )
             xs = t.c + t.a * (np.arange(src.width) + 0.5)
             ys = t.f + t.e * (np.arange(src.height) + 0.5)
             for i in range(src.count):

@@ -24,7 +24,10 @@ def _segyio():
     try:
         import segyio
     except ImportError:
-        raise InputError("reading or writing SEG-Y needs segyio: `pip install segyio` (a dependency of predictor: reinstall it)") from None
+        raise InputError(
+            "reading or writing SEG-Y needs segyio: `pip install segyio` (a dependency of"
+            " predictor: reinstall it)"
+        ) from None
     return segyio
 
 
@@ -55,44 +58,70 @@ def read_segy(path: str | Path, name: str = "amplitude") -> xr.Dataset:
     except InputError:
         raise
     except Exception as err:  # segyio raises RuntimeError/OSError on a damaged file
-        raise InputError(f"{path}: not a readable SEG-Y file ({err}); the file may be truncated") from None
+        raise InputError(
+            f"{path}: not a readable SEG-Y file ({err}); the file may be truncated"
+        ) from None
     if il.size == 0:
         raise InputError(f"{path}: holds no traces")
     keys = il.astype(np.int64) * 1_000_003 + xl
     _, first, counts = np.unique(keys, return_index=True, return_counts=True)
     if (counts > 1).any():
         dup = [f"inline {il[i]} crossline {xl[i]}" for i in first[counts > 1]]
-        raise InputError(f"{path}: inconsistent geometry: traces repeat at {list_rows(dup)}; keep one trace per "
-                         "position")
+        raise InputError(
+            f"{path}: inconsistent geometry: traces repeat at {list_rows(dup)}; keep one trace per "
+            "position"
+        )
     ils, xls = np.unique(il), np.unique(xl)
     step_il = int(np.min(np.diff(ils))) if ils.size > 1 else 1
     step_xl = int(np.min(np.diff(xls))) if xls.size > 1 else 1
     inlines = np.arange(ils[0], ils[-1] + 1, step_il)
     crosslines = np.arange(xls[0], xls[-1] + 1, step_xl)
     if not (np.isin(ils, inlines).all() and np.isin(xls, crosslines).all()):
-        raise InputError(f"{path}: inconsistent geometry: inline/crossline numbers are not on a regular step")
+        raise InputError(
+            f"{path}: inconsistent geometry: inline/crossline numbers are not on a regular step"
+        )
     # the survey's affine from (inline, crossline) to CDP x/y, fitted on every trace
     A = np.column_stack([np.ones(il.size), il, xl])
     (x0, dxi, dxx), *_ = np.linalg.lstsq(A, cx, rcond=None)
     (y0, dyi, dyx), *_ = np.linalg.lstsq(A, cy, rcond=None)
     misfit = np.hypot(A @ [x0, dxi, dxx] - cx, A @ [y0, dyi, dyx] - cy)
     if misfit.max() > COORD_TOLERANCE:
-        bad = [f"inline {il[i]} crossline {xl[i]}" for i in np.flatnonzero(misfit > COORD_TOLERANCE)]
-        raise InputError(f"{path}: inconsistent geometry: CDP coordinates of {list_rows(bad)} are off the survey "
-                         f"lattice by up to {misfit.max():.1f} m; check the coordinate headers and scalar")
+        bad = [
+            f"inline {il[i]} crossline {xl[i]}" for i in np.flatnonzero(misfit > COORD_TOLERANCE)
+        ]
+        raise InputError(
+            f"{path}: inconsistent geometry: CDP coordinates of {list_rows(bad)} are off the survey"
+            f" lattice by up to {misfit.max():.1f} m; check the coordinate headers and scalar"
+        )
     cube = np.full((samples.size, inlines.size, crosslines.size), np.nan)
     ii = (il - inlines[0]) // step_il
     jj = (xl - crosslines[0]) // step_xl
     cube[:, ii, jj] = traces.T
     gi, gj = np.meshgrid(inlines, crosslines, indexing="ij")
-    ds = xr.Dataset({name: (("z", "inline", "crossline"), cube)},
-                    coords={"z": samples, "inline": inlines, "crossline": crosslines,
-                            "cdp_x": (("inline", "crossline"), x0 + dxi * gi + dxx * gj),
-                            "cdp_y": (("inline", "crossline"), y0 + dyi * gi + dyx * gj)})
-    ds.attrs.update(source=str(path), affine=[float(v) for v in (x0, dxi, dxx, y0, dyi, dyx)],
-                    missing_traces=int(cube.shape[1] * cube.shape[2] - il.size))
-    line = next((text[k:k + 80] for k in range(0, len(text), 80) if text[k:k + 80].startswith(TEXT_DOMAIN)), "")
-    domain = line[len(TEXT_DOMAIN):].strip().lower()
+    ds = xr.Dataset(
+        {name: (("z", "inline", "crossline"), cube)},
+        coords={
+            "z": samples,
+            "inline": inlines,
+            "crossline": crosslines,
+            "cdp_x": (("inline", "crossline"), x0 + dxi * gi + dxx * gj),
+            "cdp_y": (("inline", "crossline"), y0 + dyi * gi + dyx * gj),
+        },
+    )
+    ds.attrs.update(
+        source=str(path),
+        affine=[float(v) for v in (x0, dxi, dxx, y0, dyi, dyx)],
+        missing_traces=int(cube.shape[1] * cube.shape[2] - il.size),
+    )
+    line = next(
+        (
+            text[k : k + 80]
+            for k in range(0, len(text), 80)
+            if text[k : k + 80].startswith(TEXT_DOMAIN)
+        ),
+        "",
+    )
+    domain = line[len(TEXT_DOMAIN) :].strip().lower()
     if domain in ("depth", "time"):  # written by this tool: the header says which
         ds.attrs["z_domain"] = domain
     return ds
@@ -126,18 +155,23 @@ def textual_header(ds: xr.Dataset, var: str, z: np.ndarray) -> str:
     domain = str(ds.attrs.get("z_domain", "unknown")).upper()
     z_units = {"DEPTH": "M", "TIME": "MS"}.get(domain, "AS GIVEN")
     interval = float(z[1] - z[0]) if z.size > 1 else 1.0
-    lines = ["PREDICTOR OUTPUT VOLUME - A PREDICTED VOLUME IS A MODEL, NOT A MEASUREMENT",
-             f"VARIABLE: {var}",
-             f"MEANING: {attrs.get('long_name', var)}; UNITS: {attrs.get('units') or 'NONE GIVEN'}",
-             f"Z DOMAIN: {domain}",  # line C 4: read back by read_segy (TEXT_DOMAIN)
-             f"SAMPLES: {z.size}, FIRST {z[0]:g} {z_units}, INTERVAL {interval:g} {z_units} (HEADER X 1000)",
-             f"CRS: {_crs_label(ds.attrs.get('crs_wkt'))}",
-             "INLINE BYTES 189-192, CROSSLINE 193-196, CDP X 181-184, CDP Y 185-188",
-             "COORDINATE SCALAR -100 (CENTIMETRES), COORDINATE UNITS 1 (LENGTH, METRES)",
-             "SAMPLE FORMAT 5 (4-BYTE IEEE FLOAT); TRACES WITH NO VALUE LEFT OUT",
-             "MISSING SAMPLES WRITTEN AS 0; FLAGS AND CLASS CODES AS NUMBERS (SEE NETCDF)",
-             f"BUNDLE: {ds.attrs.get('bundle', '')}; GRID: {ds.attrs.get('grid', '')}",
-             "DRILLING, RESERVES AND SAFETY DECISIONS REST WITH QUALIFIED PROFESSIONALS"]
+    lines = [
+        "PREDICTOR OUTPUT VOLUME - A PREDICTED VOLUME IS A MODEL, NOT A MEASUREMENT",
+        f"VARIABLE: {var}",
+        f"MEANING: {attrs.get('long_name', var)}; UNITS: {attrs.get('units') or 'NONE GIVEN'}",
+        f"Z DOMAIN: {domain}",  # line C 4: read back by read_segy (TEXT_DOMAIN)
+        (
+            f"SAMPLES: {z.size}, FIRST {z[0]:g} {z_units}, INTERVAL {interval:g} {z_units} (HEADER"
+            " X 1000)"
+        ),
+        f"CRS: {_crs_label(ds.attrs.get('crs_wkt'))}",
+        "INLINE BYTES 189-192, CROSSLINE 193-196, CDP X 181-184, CDP Y 185-188",
+        "COORDINATE SCALAR -100 (CENTIMETRES), COORDINATE UNITS 1 (LENGTH, METRES)",
+        "SAMPLE FORMAT 5 (4-BYTE IEEE FLOAT); TRACES WITH NO VALUE LEFT OUT",
+        "MISSING SAMPLES WRITTEN AS 0; FLAGS AND CLASS CODES AS NUMBERS (SEE NETCDF)",
+        f"BUNDLE: {ds.attrs.get('bundle', '')}; GRID: {ds.attrs.get('grid', '')}",
+        "DRILLING, RESERVES AND SAFETY DECISIONS REST WITH QUALIFIED PROFESSIONALS",
+    ]
     bodies = lines + [""] * (38 - len(lines)) + ["SEG-Y REV 1.0", "END TEXTUAL HEADER"]
     return "".join(_ascii(f"C{k + 1:2d} {body}")[:80].ljust(80) for k, body in enumerate(bodies))
 
@@ -160,20 +194,33 @@ def write_segy(ds: xr.Dataset, var: str, target: str | Path, overwrite: bool = T
         with segyio.create(str(tmp), spec) as f:
             f.text[0] = textual_header(ds, var, z).encode("ascii")
             for n, (i, j) in enumerate(zip(*np.nonzero(keep), strict=True)):
-                f.header[n] = {tf.INLINE_3D: int(inl[i, j]), tf.CROSSLINE_3D: int(xln[i, j]),
-                               tf.TRACE_SEQUENCE_LINE: n + 1, tf.TRACE_SEQUENCE_FILE: n + 1,
-                               tf.CDP: int(i * inl.shape[1] + j + 1),  # a running number over the survey grid
-                               tf.CDP_TRACE: 1, tf.TraceIdentificationCode: 1,  # one seismic-like trace per CDP
-                               tf.CoordinateUnits: 1, tf.TraceValueMeasurementUnit: -1,  # metres; "other"
-                               tf.SourceGroupScalar: -100,
-                               tf.CDP_X: int(round(float(ds.cdp_x[i, j]) * 100)),
-                               tf.CDP_Y: int(round(float(ds.cdp_y[i, j]) * 100)),
-                               tf.TRACE_SAMPLE_INTERVAL: int(round(interval * 1000)),
-                               tf.TRACE_SAMPLE_COUNT: z.size, tf.DelayRecordingTime: int(round(z[0]))}
+                f.header[n] = {
+                    tf.INLINE_3D: int(inl[i, j]),
+                    tf.CROSSLINE_3D: int(xln[i, j]),
+                    tf.TRACE_SEQUENCE_LINE: n + 1,
+                    tf.TRACE_SEQUENCE_FILE: n + 1,
+                    tf.CDP: int(i * inl.shape[1] + j + 1),  # a running number over the survey grid
+                    tf.CDP_TRACE: 1,
+                    tf.TraceIdentificationCode: 1,  # one seismic-like trace per CDP
+                    tf.CoordinateUnits: 1,
+                    tf.TraceValueMeasurementUnit: -1,  # metres; "other"
+                    tf.SourceGroupScalar: -100,
+                    tf.CDP_X: int(round(float(ds.cdp_x[i, j]) * 100)),
+                    tf.CDP_Y: int(round(float(ds.cdp_y[i, j]) * 100)),
+                    tf.TRACE_SAMPLE_INTERVAL: int(round(interval * 1000)),
+                    tf.TRACE_SAMPLE_COUNT: z.size,
+                    tf.DelayRecordingTime: int(round(z[0])),
+                }
                 f.trace[n] = np.nan_to_num(cube[:, i, j], nan=0.0)
             f.bin.update(hns=z.size, hdt=int(round(interval * 1000)), format=5)
-            f.bin.update({segyio.BinField.SEGYRevision: 1, segyio.BinField.SEGYRevisionMinor: 0,
-                          segyio.BinField.MeasurementSystem: 1, segyio.BinField.ExtendedHeaders: 0})
+            f.bin.update(
+                {
+                    segyio.BinField.SEGYRevision: 1,
+                    segyio.BinField.SEGYRevisionMinor: 0,
+                    segyio.BinField.MeasurementSystem: 1,
+                    segyio.BinField.ExtendedHeaders: 0,
+                }
+            )
     return Path(target)
 
 
@@ -192,7 +239,9 @@ def write_segy_set(ds: xr.Dataset, target: str | Path, overwrite: bool = False) 
         for var, path in paths.items():
             tmp = stack.enter_context(atomic_file(path, overwrite=True))
             values = ds[var].astype(np.float32)
-            if "_FillValue" in ds[var].attrs:  # flags and class codes: the fill becomes NaN, then a dead sample
+            if (
+                "_FillValue" in ds[var].attrs
+            ):  # flags and class codes: the fill becomes NaN, then a dead sample
                 values = values.where(ds[var] != ds[var].attrs["_FillValue"])
             values.attrs = dict(ds[var].attrs)
             write_segy(ds.assign({var: values}), var, tmp, overwrite=True)
