@@ -200,9 +200,9 @@ def _at_wells(wells: pd.DataFrame, grid: xr.Dataset, var: str) -> np.ndarray:
 
 
 def check_files(
-    wells_path,
-    grid_path,
-    json_path=None,
+    wells_path: str | Path,
+    grid_path: str | Path,
+    json_path: str | Path | None = None,
     figures=None,
     porosity_percent: bool = False,
     x: str | None = None,

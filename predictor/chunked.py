@@ -172,9 +172,9 @@ def default_tile(grid: xr.Dataset) -> int:
 
 
 def predict_to_zarr(
-    bundle_dir,
-    grid_path,
-    out,
+    bundle_dir: str | Path,
+    grid_path: str | Path,
+    out: str | Path,
     tile: int | None = None,
     threads: int | None = None,
     workers: int | None = None,

@@ -26,9 +26,11 @@ Designs (each a :class:`FoldDesign`: a list of (train, test) row indices, whole 
 
 from __future__ import annotations
 
+from collections.abc import Iterator
 from dataclasses import dataclass, field
 
 import numpy as np
+from numpy.typing import ArrayLike
 from scipy.cluster.hierarchy import fcluster, linkage
 from scipy.spatial import cKDTree
 from scipy.spatial.distance import cdist
@@ -70,11 +72,21 @@ class FoldDesign:
             out[test] = k
         return out
 
-    def split(self, X=None, y=None, groups=None):
+    def split(
+        self,
+        X: ArrayLike | None = None,
+        y: ArrayLike | None = None,
+        groups: ArrayLike | None = None,
+    ) -> Iterator[tuple[np.ndarray, np.ndarray]]:
         """Scikit-learn style iteration over the (train, test) pairs."""
         yield from self.splits
 
-    def get_n_splits(self, X=None, y=None, groups=None) -> int:
+    def get_n_splits(
+        self,
+        X: ArrayLike | None = None,
+        y: ArrayLike | None = None,
+        groups: ArrayLike | None = None,
+    ) -> int:
         return self.n_splits
 
     def summary(self) -> dict:
@@ -302,7 +314,7 @@ def distance_summary(g_map: np.ndarray, designs: dict[str, FoldDesign], chosen: 
     """What the card records: the map's distances, W and the median CV distance per design, and
     quantiles of every distance distribution (for the CDF figure)."""
 
-    def quantiles(values):
+    def quantiles(values: ArrayLike):
         return np.round(np.quantile(values, CDF_LEVELS), 1).tolist()
 
     return {

@@ -14,6 +14,7 @@ from typing import Literal
 
 import numpy as np
 import pandas as pd
+from numpy.typing import ArrayLike
 from scipy.spatial import cKDTree
 
 from .errors import InputError
@@ -22,7 +23,7 @@ from .stats import describe, weighted_mean, weighted_proportions
 Direction = Literal["auto", "minimum", "maximum"]
 
 
-def cell_weights(x, y, cell_size: float, n_offsets: int = 16) -> np.ndarray:
+def cell_weights(x: ArrayLike, y: ArrayLike, cell_size: float, n_offsets: int = 16) -> np.ndarray:
     """Cell-declustering weights for one cell size, averaged over ``n_offsets`` lattice origins.
 
     Returns weights of shape (n_wells,), positive, summing to n_wells.
@@ -77,7 +78,7 @@ class Declustering:
         return out
 
 
-def default_cell_sizes(x, y, n_sizes: int = 24) -> np.ndarray:
+def default_cell_sizes(x: ArrayLike, y: ArrayLike, n_sizes: int = 24) -> np.ndarray:
     """Cell sizes from half the typical well spacing up to half the larger side of the well
     extent."""
     pts = np.column_stack([x, y])
@@ -90,10 +91,10 @@ def default_cell_sizes(x, y, n_sizes: int = 24) -> np.ndarray:
 
 
 def cell_declustering(
-    x,
-    y,
-    values,
-    sizes=None,
+    x: ArrayLike,
+    y: ArrayLike,
+    values: ArrayLike,
+    sizes: ArrayLike | None = None,
     direction: Direction = "auto",
     n_offsets: int = 16,
     variable: str | None = None,
@@ -132,7 +133,9 @@ def cell_declustering(
     )
 
 
-def nearest_node_weights(x, y, grid_x, grid_y, valid=None) -> np.ndarray:
+def nearest_node_weights(
+    x: ArrayLike, y: ArrayLike, grid_x: ArrayLike, grid_y: ArrayLike, valid: ArrayLike | None = None
+) -> np.ndarray:
     """Share of the grid nodes nearest to each well, scaled to sum to n_wells.
 
     ``grid_x``/``grid_y`` are the node coordinates (any shape); ``valid`` masks nodes that

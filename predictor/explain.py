@@ -24,6 +24,7 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
+from numpy.typing import ArrayLike
 
 # the explanation helpers live with the models; re-exported here for callers of this module
 from .shapley import KRIGING, permutation_shap  # noqa: F401
@@ -93,7 +94,7 @@ class Applicability:
     def _space(self, X) -> np.ndarray:
         return (np.asarray(X[self.features], float) - self.mean) / self.scale * self.weights
 
-    def index(self, X) -> np.ndarray:
+    def index(self, X: ArrayLike) -> np.ndarray:
         return self._distance(X) / self.mean_distance
 
     def _tree(self):
@@ -125,7 +126,7 @@ class Applicability:
             out[s : s + chunk] = tree.query(q[s : s + chunk], distance_upper_bound=bound)[0]
         return out
 
-    def inside(self, X) -> np.ndarray:
+    def inside(self, X: ArrayLike) -> np.ndarray:
         """Whether each row's index is within the threshold; the same as ``index(X) <= threshold``
         but faster, since the nearest-neighbour search stops at the threshold distance."""
         bound = (

@@ -3,6 +3,8 @@ bundle."""
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import numpy as np
 import pandas as pd
 import xarray as xr
@@ -100,7 +102,7 @@ def output_unit(target: str, info: dict) -> str:
 
 
 def explain_bundle(
-    bundle_dir, out, grid: xr.Dataset | None = None, overwrite: bool = False
+    bundle_dir: str | Path, out: str | Path, grid: xr.Dataset | None = None, overwrite: bool = False
 ) -> list[str]:
     """Write importance tables, SHAP at the wells, figures and (with a grid) contribution maps."""
     from . import plots  # matplotlib loads when a figure is drawn, not on import

@@ -9,6 +9,7 @@ from __future__ import annotations
 import os
 import re
 from dataclasses import asdict, dataclass, field
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -112,7 +113,11 @@ def _lateral(grid: xr.Dataset) -> tuple[tuple[str, ...], tuple[str, str], tuple[
 
 
 def smooth_store(
-    grid: xr.Dataset, spec: FeatureSpec, radii: list[float], store, block_values: int = 1 << 20
+    grid: xr.Dataset,
+    spec: FeatureSpec,
+    radii: list[float],
+    store: str | Path,
+    block_values: int = 1 << 20,
 ) -> xr.Dataset:
     """The laterally smoothed attributes of ``radii`` over the whole of a (lazily opened) map or
     volume, written to the Zarr ``store`` without holding it: the Gaussian is separable, so it
@@ -312,7 +317,7 @@ def wide_radii(spec: FeatureSpec, dx: float, dy: float) -> list[float]:
     return [r for r in spec.context_radii if TRUNCATE * r / min(dx, dy) > WIDE_HALO]
 
 
-def location_features(names) -> list[str]:
+def location_features(names: list[str]) -> list[str]:
     """Map-coordinate features (z_coord is a depth trend, not a location, and is not among them)."""
     return [n for n in names if n in ("x_coord", "y_coord", "x_rotated", "y_rotated")]
 

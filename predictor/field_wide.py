@@ -28,6 +28,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+from numpy.typing import ArrayLike
 
 from .options import MapRule, allowed
 from .stats import weighted_mean, weighted_proportions, weighted_quantile
@@ -218,10 +219,10 @@ def field_wide_classes(
         )
         return share / share.sum()
 
-    def as_dict(p) -> dict:
+    def as_dict(p: ArrayLike) -> dict:
         return {c: float(v) for c, v in zip(classes, p, strict=True)}
 
-    def shares(w) -> dict:
+    def shares(w: ArrayLike | None) -> dict:
         return {c: weighted_proportions(labels, w).get(c, 0.0) for c in classes}
 
     estimates = {
@@ -256,7 +257,7 @@ def prior_shift_factors(proba: np.ndarray, target: np.ndarray, iterations: int =
     return c
 
 
-def shift(proba: np.ndarray, factors) -> np.ndarray:
+def shift(proba: np.ndarray, factors: ArrayLike) -> np.ndarray:
     """Probabilities with the class factors applied, renormalised per node."""
     p = np.asarray(proba, float) * np.asarray(factors, float)[None, :]
     return p / np.maximum(p.sum(axis=1, keepdims=True), 1e-300)

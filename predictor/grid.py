@@ -12,6 +12,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import xarray as xr
+from numpy.typing import ArrayLike
 
 from .errors import InputError, PredictorWarning, list_rows
 from .io.formats import file_format
@@ -268,7 +269,7 @@ def sample_at(
     ds: xr.Dataset,
     x: np.ndarray,
     y: np.ndarray,
-    labels=None,
+    labels: ArrayLike | None = None,
     method: SampleMethod = "bilinear",
     drop_outside: bool = False,
 ) -> tuple[pd.DataFrame, np.ndarray]:

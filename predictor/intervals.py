@@ -18,6 +18,7 @@ from __future__ import annotations
 from dataclasses import asdict, dataclass
 
 import numpy as np
+from numpy.typing import ArrayLike
 
 LOW, HIGH = 0.1, 0.9
 RESIDUAL_LEVELS = np.linspace(
@@ -49,7 +50,9 @@ class IntervalCalibration:
     local_predictions: list[float] | None = None
     local_quantiles: list[list[float]] | None = None
 
-    def exceedance(self, q50, cutoff: float, spread=None) -> np.ndarray:
+    def exceedance(
+        self, q50: ArrayLike, cutoff: float, spread: ArrayLike | None = None
+    ) -> np.ndarray:
         """P(value > ``cutoff``) at each node: one minus the weighted CDF of the out-of-fold
         residuals (in spread units when scaled) at the cutoff's distance from ``q50``; the CDF
         of the wells predicted near ``q50`` when the calibration holds one (bundles from
@@ -86,11 +89,13 @@ class IntervalCalibration:
     def to_dict(self) -> dict:
         return asdict(self)
 
-    def clip(self, values) -> np.ndarray:
+    def clip(self, values: ArrayLike) -> np.ndarray:
         values = np.asarray(values, float)
         return values if self.bounds is None else np.clip(values, *self.bounds)
 
-    def apply(self, q50, spread=None) -> tuple[np.ndarray, np.ndarray]:
+    def apply(
+        self, q50: ArrayLike, spread: ArrayLike | None = None
+    ) -> tuple[np.ndarray, np.ndarray]:
         """q10 and q90 around ``q50``, inside the physical bounds; q10 <= q50 <= q90 everywhere
         once ``q50`` is clipped to the same bounds (see :meth:`clip`)."""
         q50 = np.asarray(q50, float)
@@ -98,7 +103,7 @@ class IntervalCalibration:
         return self.clip(q50 + self.lower * scale), self.clip(q50 + self.upper * scale)
 
 
-def effective_size(weights, units=None) -> float:
+def effective_size(weights: ArrayLike, units: ArrayLike | None = None) -> float:
     """Kish's effective sample size (sum w)^2 / sum w^2; with ``units`` (the well of each row)
     the weights are summed per well first: samples along one well are not independent."""
     w = np.asarray(weights, float)
@@ -107,7 +112,9 @@ def effective_size(weights, units=None) -> float:
     return float(w.sum() ** 2 / np.sum(w**2))
 
 
-def conformal_quantile(scores, weights, level: float, test_mass: float) -> float:
+def conformal_quantile(
+    scores: ArrayLike, weights: ArrayLike, level: float, test_mass: float
+) -> float:
     """The ``level`` quantile of sum_i p_i delta(score_i) + p_test delta(+inf) with p_i = w_i /
     (sum w + test_mass) (Tibshirani et al. 2019); +inf when the residuals' mass cannot reach it."""
     order = np.argsort(scores)
@@ -128,7 +135,7 @@ def _quantile_function(r: np.ndarray, mass: np.ndarray) -> np.ndarray:
 
 
 def local_quantiles(
-    predicted, r, mass, points: int = LOCAL_POINTS
+    predicted: ArrayLike, r: ArrayLike, mass: ArrayLike, points: int = LOCAL_POINTS
 ) -> tuple[np.ndarray, np.ndarray]:
     """Residual distributions of the wells predicted near each of ``points`` prediction values.
 
@@ -151,14 +158,14 @@ def local_quantiles(
 
 
 def calibrate(
-    residuals,
-    weights=None,
+    residuals: ArrayLike,
+    weights: ArrayLike | None = None,
     low: float = LOW,
     high: float = HIGH,
-    spread=None,
-    units=None,
+    spread: ArrayLike | None = None,
+    units: ArrayLike | None = None,
     bounds: tuple[float, float] | None = None,
-    predicted=None,
+    predicted: ArrayLike | None = None,
 ) -> IntervalCalibration:
     """Offsets from out-of-fold residuals (observed minus predicted); with ``predicted`` (the
     out-of-fold predictions) also the local residual distributions for exceedance."""
@@ -193,12 +200,12 @@ def calibrate(
 
 
 def held_out_coverage(
-    observed,
-    predicted,
-    weights,
-    splits,
-    spread=None,
-    units=None,
+    observed: ArrayLike,
+    predicted: ArrayLike,
+    weights: ArrayLike,
+    splits: list[tuple[np.ndarray, np.ndarray]],
+    spread: ArrayLike | None = None,
+    units: ArrayLike | None = None,
     bounds: tuple[float, float] | None = None,
 ) -> float:
     """Declustering-weighted share of wells inside [q10, q90] when the offsets were calibrated
@@ -234,7 +241,7 @@ class SpreadModel:
     def __init__(self, features: list[str]):
         self.features = features
 
-    def fit(self, X, residuals, weights) -> SpreadModel:
+    def fit(self, X: ArrayLike, residuals: ArrayLike, weights: ArrayLike) -> SpreadModel:
         from .models import FitData, Linear
 
         r = np.abs(np.asarray(residuals, float))
@@ -251,7 +258,7 @@ class SpreadModel:
         self.linear_ = Linear(self.features, "spread").fit(data)
         return self
 
-    def predict(self, X) -> np.ndarray:
+    def predict(self, X: ArrayLike) -> np.ndarray:
         return np.exp(self.linear_.predict(X))
 
     def to_dict(self) -> dict:

@@ -16,6 +16,7 @@ from __future__ import annotations
 import threading
 
 import numpy as np
+from numpy.typing import ArrayLike
 from scipy.linalg import lu_factor, lu_solve
 from scipy.spatial import cKDTree
 from scipy.spatial.distance import cdist
@@ -78,7 +79,7 @@ class OrdinaryKriging:
         self.variogram = variogram
         self.neighbours = neighbours
 
-    def fit(self, x, y, values) -> OrdinaryKriging:
+    def fit(self, x: ArrayLike, y: ArrayLike, values: ArrayLike) -> OrdinaryKriging:
         x, y, v = (np.asarray(a, dtype=float) for a in (x, y, values))
         if v.size < 2:
             raise ModelError("ordinary kriging needs at least 2 wells")
@@ -117,7 +118,7 @@ class OrdinaryKriging:
             self._tiles: dict = {}
         return self
 
-    def predict(self, x, y, return_variance: bool = False):
+    def predict(self, x: ArrayLike, y: ArrayLike, return_variance: bool = False):
         q = np.column_stack([np.asarray(x, dtype=float), np.asarray(y, dtype=float)])
         est = np.empty(len(q))
         var = np.empty(len(q)) if return_variance else None
@@ -181,7 +182,15 @@ def _coincident(points: np.ndarray) -> tuple[int, int] | None:
     return int(dup[0]), int(dup[1])
 
 
-def simple_kriging(x, y, values, variogram: VariogramModel, mean: float, xq, yq):
+def simple_kriging(
+    x: ArrayLike,
+    y: ArrayLike,
+    values: ArrayLike,
+    variogram: VariogramModel,
+    mean: float,
+    xq: ArrayLike,
+    yq: ArrayLike,
+):
     """Simple kriging (known mean): estimate and kriging variance at the query points."""
     pts = np.column_stack([x, y])
     q = np.column_stack([xq, yq])

@@ -32,6 +32,7 @@ from pathlib import Path
 import lightgbm as lgb
 import numpy as np
 import pandas as pd
+from numpy.typing import ArrayLike
 from sklearn.base import BaseEstimator, clone
 from sklearn.linear_model import LogisticRegression
 from sklearn.model_selection import GroupKFold
@@ -76,7 +77,7 @@ class FitData:
         self.units = np.arange(n) if self.units is None else np.asarray(self.units)
         self.rows = np.arange(n) if self.rows is None else np.asarray(self.rows)
 
-    def subset(self, index) -> FitData:
+    def subset(self, index: ArrayLike) -> FitData:
         return FitData(
             self.X.iloc[index].reset_index(drop=True),
             self.y[index],
@@ -189,10 +190,17 @@ class Linear(Candidate):
     def _z(self, X) -> np.ndarray:
         return (np.asarray(X[self.features], float) - self.mean_) / self.scale_
 
-    def predict(self, X, xy=None) -> np.ndarray:
+    def predict(self, X: ArrayLike, xy: ArrayLike | None = None) -> np.ndarray:
         return self.coef_[0] + self._z(X) @ self.coef_[1:]
 
-    def contributions(self, X, xy, names, background=None, seed=0):
+    def contributions(
+        self,
+        X: ArrayLike,
+        xy: ArrayLike,
+        names: list[str],
+        background: np.ndarray | None = None,
+        seed: int = 0,
+    ) -> tuple[np.ndarray, np.ndarray]:
         # exact interventional SHAP with the training mean as background: coef * (x - mean)
         return place(self._z(X) * self.coef_[1:], self.features, names), np.full(
             len(X), self.coef_[0]
@@ -249,13 +257,20 @@ class Logistic(Candidate):
     def _z(self, X) -> np.ndarray:
         return (np.asarray(X[self.features], float) - self.mean_) / self.scale_
 
-    def raw_output(self, X, xy=None) -> np.ndarray:
+    def raw_output(self, X: ArrayLike, xy: ArrayLike | None = None) -> np.ndarray:
         return self._z(X) @ self.coef_.T + self.intercept_
 
-    def predict(self, X, xy=None) -> np.ndarray:
+    def predict(self, X: ArrayLike, xy: ArrayLike | None = None) -> np.ndarray:
         return _softmax(self.raw_output(X))
 
-    def contributions(self, X, xy, names, background=None, seed=0):
+    def contributions(
+        self,
+        X: ArrayLike,
+        xy: ArrayLike,
+        names: list[str],
+        background: np.ndarray | None = None,
+        seed: int = 0,
+    ) -> tuple[np.ndarray, np.ndarray]:
         per_class = self._z(X)[:, None, :] * self.coef_[None, :, :]  # per-class logits, exact
         return place(per_class, self.features, names), np.tile(self.intercept_, (len(X), 1))
 
@@ -369,13 +384,20 @@ class LightGBM(Candidate):
     def _matrix(self, X) -> np.ndarray:
         return np.asarray(X[self.features], float)
 
-    def predict(self, X, xy=None) -> np.ndarray:
+    def predict(self, X: ArrayLike, xy: ArrayLike | None = None) -> np.ndarray:
         return self.booster_.predict(self._matrix(X), num_threads=1)
 
-    def raw_output(self, X, xy=None) -> np.ndarray:
+    def raw_output(self, X: ArrayLike, xy: ArrayLike | None = None) -> np.ndarray:
         return self.booster_.predict(self._matrix(X), raw_score=True, num_threads=1)
 
-    def contributions(self, X, xy, names, background=None, seed=0):
+    def contributions(
+        self,
+        X: ArrayLike,
+        xy: ArrayLike,
+        names: list[str],
+        background: np.ndarray | None = None,
+        seed: int = 0,
+    ) -> tuple[np.ndarray, np.ndarray]:
         # TreeSHAP built into LightGBM (path-dependent), in the raw output
         raw = self.booster_.predict(self._matrix(X), pred_contrib=True, num_threads=1)
         p = len(self.features)
@@ -432,10 +454,17 @@ class Kriging(Candidate):
         )
         return self
 
-    def predict(self, X, xy) -> np.ndarray:
+    def predict(self, X: ArrayLike, xy: ArrayLike) -> np.ndarray:
         return self.kriging_.predict(xy[:, 0], xy[:, 1])
 
-    def contributions(self, X, xy, names, background=None, seed=0):
+    def contributions(
+        self,
+        X: ArrayLike,
+        xy: ArrayLike,
+        names: list[str],
+        background: np.ndarray | None = None,
+        seed: int = 0,
+    ) -> tuple[np.ndarray, np.ndarray]:
         return _kriging_only(self.predict(X, xy), len(names)), np.zeros(len(X))
 
     def save(self, folder: Path, stem: str) -> dict:
@@ -465,10 +494,17 @@ class RegressionKriging(Candidate):
         )
         return self
 
-    def predict(self, X, xy) -> np.ndarray:
+    def predict(self, X: ArrayLike, xy: ArrayLike) -> np.ndarray:
         return self.drift_.predict(X) + self.kriging_.predict(xy[:, 0], xy[:, 1])
 
-    def contributions(self, X, xy, names, background=None, seed=0):
+    def contributions(
+        self,
+        X: ArrayLike,
+        xy: ArrayLike,
+        names: list[str],
+        background: np.ndarray | None = None,
+        seed: int = 0,
+    ) -> tuple[np.ndarray, np.ndarray]:
         values, base = self.drift_.contributions(X, xy, names)
         values[:, -1] += self.kriging_.predict(xy[:, 0], xy[:, 1])
         return values, base
@@ -557,11 +593,18 @@ class FaciesMixture(Candidate):
         values = member.predict(X) if isinstance(member, Linear) else np.full(len(X), member)
         return np.clip(values, *self.limits_[i])
 
-    def predict(self, X, xy=None) -> np.ndarray:
+    def predict(self, X: ArrayLike, xy: ArrayLike | None = None) -> np.ndarray:
         proba = self.classifier_.predict(X)
         return sum(proba[:, i] * self._member(i, X) for i in range(len(self.members_)))
 
-    def contributions(self, X, xy, names, background=None, seed=0):
+    def contributions(
+        self,
+        X: ArrayLike,
+        xy: ArrayLike,
+        names: list[str],
+        background: np.ndarray | None = None,
+        seed: int = 0,
+    ) -> tuple[np.ndarray, np.ndarray]:
         return permutation_contributions(self.predict, self.features, X, names, background, seed)
 
     def save(self, folder: Path, stem: str) -> dict:
@@ -620,15 +663,22 @@ class WellTies(Candidate):
     def _ties(self, xy) -> np.ndarray:
         return self.kriging_.predict(xy[:, 0], xy[:, 1])
 
-    def predict(self, X, xy) -> np.ndarray:
+    def predict(self, X: ArrayLike, xy: ArrayLike) -> np.ndarray:
         return self.base_.predict(X, xy) + self._ties(xy)
 
-    def contributions(self, X, xy, names, background=None, seed=0):
+    def contributions(
+        self,
+        X: ArrayLike,
+        xy: ArrayLike,
+        names: list[str],
+        background: np.ndarray | None = None,
+        seed: int = 0,
+    ) -> tuple[np.ndarray, np.ndarray]:
         values, base = self.base_.contributions(X, xy, names, background, seed)
         values[..., -1] += self._ties(xy)
         return values, base
 
-    def residual_variance(self, xy) -> np.ndarray:
+    def residual_variance(self, xy: ArrayLike) -> np.ndarray:
         return self.kriging_.predict(xy[:, 0], xy[:, 1], return_variance=True)[1]
 
     def save(self, folder: Path, stem: str) -> dict:
@@ -692,13 +742,20 @@ class Blend(Candidate):
     def _weighted(self, part) -> list:
         return [w * part(m) for w, m in zip(self.weights_, self.members_, strict=True) if w > 0]
 
-    def predict(self, X, xy) -> np.ndarray:
+    def predict(self, X: ArrayLike, xy: ArrayLike) -> np.ndarray:
         return sum(self._weighted(lambda m: m.predict(X, xy)))
 
-    def raw_output(self, X, xy) -> np.ndarray:
+    def raw_output(self, X: ArrayLike, xy: ArrayLike) -> np.ndarray:
         return sum(self._weighted(lambda m: m.raw_output(X, xy)))
 
-    def contributions(self, X, xy, names, background=None, seed=0):
+    def contributions(
+        self,
+        X: ArrayLike,
+        xy: ArrayLike,
+        names: list[str],
+        background: np.ndarray | None = None,
+        seed: int = 0,
+    ) -> tuple[np.ndarray, np.ndarray]:
         parts = [
             (w, m.contributions(X, xy, names, background, seed))
             for w, m in zip(self.weights_, self.members_, strict=True)
@@ -741,7 +798,7 @@ def blend_weights(predictions: np.ndarray, y: np.ndarray, sample_weight: np.ndar
     sw = np.asarray(sample_weight, float)
     rows = np.arange(len(y))
 
-    def loss(w):
+    def loss(w: ArrayLike):
         if predictions.ndim == 2:
             return float(np.sum(sw * (predictions @ w - y) ** 2))
         p = np.clip(combine(predictions, w)[rows, y.astype(int)], 1e-12, None)
@@ -760,7 +817,9 @@ def blend_weights(predictions: np.ndarray, y: np.ndarray, sample_weight: np.ndar
     return w / w.sum()
 
 
-def fold_predictions(splits, n: int, fit_predict) -> np.ndarray:
+def fold_predictions(
+    splits: list[tuple[np.ndarray, np.ndarray]], n: int, fit_predict
+) -> np.ndarray:
     """The one fold loop of the project: ``fit_predict(train_rows, test_rows)`` for each split,
     its values placed at the test rows of an array of ``n`` rows."""
     out = None
@@ -772,12 +831,14 @@ def fold_predictions(splits, n: int, fit_predict) -> np.ndarray:
     return out
 
 
-def out_of_fold(candidate, data: FitData, splits=None) -> np.ndarray:
+def out_of_fold(
+    candidate, data: FitData, splits: list[tuple[np.ndarray, np.ndarray]] | None = None
+) -> np.ndarray:
     """Out-of-fold predictions of ``candidate`` over ``splits`` ((train, test) row pairs; by
     default the nested folds of :meth:`FitData.inner_splits`)."""
     splits = data.inner_splits() if splits is None else splits
 
-    def fit_predict(train, test):
+    def fit_predict(train: ArrayLike, test: ArrayLike):
         model = clone(candidate).fit(data.subset(train))
         return model.predict(data.X.iloc[test].reset_index(drop=True), data.xy[test])
 

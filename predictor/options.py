@@ -9,7 +9,7 @@ from __future__ import annotations
 import argparse
 import dataclasses
 import typing
-from typing import Literal
+from typing import Any, Literal
 
 DesignName = Literal["matched", "nndm", "blocks", "buffered", "random"]
 Declustering = Literal["cell", "nearest_node", "none"]
@@ -85,7 +85,7 @@ def from_arguments(args: argparse.Namespace, cls) -> dict:
     return {f.name: getattr(args, f.name) for f in command_line_options(cls)}
 
 
-def check_choices(obj) -> None:
+def check_choices(obj: Any) -> None:
     """Every ``Literal``-typed option of a dataclass holds one of its allowed values."""
     from .errors import InputError
 

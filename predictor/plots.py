@@ -8,6 +8,7 @@ from __future__ import annotations
 from pathlib import Path
 
 import matplotlib
+from numpy.typing import ArrayLike
 
 matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
@@ -76,7 +77,7 @@ def _category_colours(labels) -> dict:
 
 
 def location_maps(
-    wells: pd.DataFrame, grid: xr.Dataset, attribute: str, properties: list[str], path
+    wells: pd.DataFrame, grid: xr.Dataset, attribute: str, properties: list[str], path: str | Path
 ) -> Path:
     """One panel per well property, wells coloured by it over the attribute map."""
     n = max(len(properties), 1)
@@ -130,7 +131,9 @@ def _names_on(ax, wells: pd.DataFrame) -> None:
         )
 
 
-def bias_figure(at_wells, over_map, attribute: str, verdict: str, path) -> Path:
+def bias_figure(
+    at_wells: ArrayLike, over_map: ArrayLike, attribute: str, verdict: str, path: str | Path
+) -> Path:
     """Histograms and empirical CDFs of the attribute at the wells and over the map."""
     a = np.asarray(at_wells, float)
     b = np.asarray(over_map, float)
@@ -163,7 +166,7 @@ def _wrap(text: str, width: int) -> list[str]:
     return textwrap.wrap(text, width)
 
 
-def facies_distributions(wells: pd.DataFrame, columns: list[str], path) -> Path:
+def facies_distributions(wells: pd.DataFrame, columns: list[str], path: str | Path) -> Path:
     """Box plots of each numeric property per facies."""
     classes = sorted(wells["facies"].dropna().astype(str).unique())
     fig, axes = plt.subplots(1, len(columns), figsize=(4.2 * len(columns), 3.8), squeeze=False)
@@ -177,7 +180,7 @@ def facies_distributions(wells: pd.DataFrame, columns: list[str], path) -> Path:
     return save(fig, path)
 
 
-def declustering_figure(decl, path) -> Path:
+def declustering_figure(decl, path: str | Path) -> Path:
     """Declustered mean against cell size, the chosen size marked, beside the naive mean."""
     fig, ax = plt.subplots(figsize=(5.5, 3.8))
     ax.plot(decl.sizes, decl.curve, "o-", ms=3, label="declustered mean")
@@ -194,7 +197,9 @@ def declustering_figure(decl, path) -> Path:
     return save(fig, path)
 
 
-def weighted_histograms(values, weights, name: str, path, truth=None) -> Path:
+def weighted_histograms(
+    values: ArrayLike, weights: ArrayLike, name: str, path: str | Path, truth=None
+) -> Path:
     """Naive and declustered histograms of a property, with the map truth when known."""
     v = np.asarray(values, float)
     ok = np.isfinite(v)
@@ -253,7 +258,9 @@ def _fill(values: pd.Series, image=None, colours: dict | None = None, log: bool 
     return [image.cmap(image.norm(x)) if np.isfinite(x) else (1, 1, 1, 1) for x in v]
 
 
-def facies_maps(maps: xr.Dataset, target: str, wells: pd.DataFrame | None, path) -> Path:
+def facies_maps(
+    maps: xr.Dataset, target: str, wells: pd.DataFrame | None, path: str | Path
+) -> Path:
     """Most probable class and the probability of each class, wells on top."""
     classes = maps[target].attrs["flag_meanings"].split(" ")
     colours = _category_colours(classes)
@@ -287,7 +294,7 @@ def facies_maps(maps: xr.Dataset, target: str, wells: pd.DataFrame | None, path)
 
 
 def property_maps(
-    maps: xr.Dataset, target: str, wells: pd.DataFrame | None, path, log: bool = False
+    maps: xr.Dataset, target: str, wells: pd.DataFrame | None, path: str | Path, log: bool = False
 ) -> Path:
     """Median (q50) map and interval width (q90 - q10), wells on top."""
     fig, axes = plt.subplots(1, 2, figsize=(10.5, 4.3), layout="constrained")
@@ -318,7 +325,7 @@ def property_maps(
     return save(fig, path)
 
 
-def distance_cdfs(design: dict, target: str, path) -> Path:
+def distance_cdfs(design: dict, target: str, path: str | Path) -> Path:
     """Empirical CDFs of prediction distances: map node to nearest well, and held-out well to
     nearest training well for each fold design (from the card's quantiles)."""
     cdf = design["cdf"]
@@ -351,7 +358,7 @@ def distance_cdfs(design: dict, target: str, path) -> Path:
     return save(fig, path)
 
 
-def leaderboard_chart(leaderboard: list[dict], metric: str, target: str, path) -> Path:
+def leaderboard_chart(leaderboard: list[dict], metric: str, target: str, path: str | Path) -> Path:
     """Matched vs random CV score of every candidate; baselines hatched, the chosen one marked."""
     rows = [r for r in leaderboard if r.get("cv_random")]
     names = [r["candidate"] + (" *" if r["chosen"] else "") for r in rows]
@@ -374,7 +381,7 @@ def leaderboard_chart(leaderboard: list[dict], metric: str, target: str, path) -
     return save(fig, path)
 
 
-def importance_chart(imp: pd.Series, target: str, path, unit: str = "") -> Path:
+def importance_chart(imp: pd.Series, target: str, path: str | Path, unit: str = "") -> Path:
     """Horizontal bars of declustering-weighted mean |SHAP|, each feature named in words."""
     imp = imp[imp > 0].sort_values()
     fig, ax = plt.subplots(figsize=(6.5, 0.35 * len(imp) + 1.5), layout="constrained")
@@ -389,7 +396,12 @@ def importance_chart(imp: pd.Series, target: str, path, unit: str = "") -> Path:
 
 
 def shap_summary(
-    values: np.ndarray, X: pd.DataFrame, names: list[str], title: str, path, max_display: int = 8
+    values: np.ndarray,
+    X: pd.DataFrame,
+    names: list[str],
+    title: str,
+    path: str | Path,
+    max_display: int = 8,
 ) -> Path:
     """Beeswarm summary drawn by the shap package."""
     import shap
@@ -409,7 +421,12 @@ def shap_summary(
 
 
 def shap_dependence(
-    values: np.ndarray, X: pd.DataFrame, names: list[str], feature: str, title: str, path
+    values: np.ndarray,
+    X: pd.DataFrame,
+    names: list[str],
+    feature: str,
+    title: str,
+    path: str | Path,
 ) -> Path:
     """Dependence (scatter) plot of one feature's contribution, drawn by the shap package."""
     import shap
@@ -424,7 +441,11 @@ def shap_dependence(
 
 
 def shap_maps(
-    maps: xr.Dataset, variables: list[str], wells: pd.DataFrame | None, path, unit: str = ""
+    maps: xr.Dataset,
+    variables: list[str],
+    wells: pd.DataFrame | None,
+    path: str | Path,
+    unit: str = "",
 ) -> Path:
     """Contribution maps of the top features (diverging colours around zero), in ``unit`` (the
     model's raw output: a fraction, log10 mD or log-odds)."""
@@ -446,7 +467,7 @@ def shap_maps(
 
 
 def applicability_map(
-    maps: xr.Dataset, target: str, wells: pd.DataFrame | None, path, log: bool = False
+    maps: xr.Dataset, target: str, wells: pd.DataFrame | None, path: str | Path, log: bool = False
 ) -> Path:
     """The target's map with the nodes outside the area of applicability shaded (facies: the
     probability of the most probable class; permeability with ``log``: log10 mD)."""
@@ -480,7 +501,7 @@ def applicability_map(
     return save(fig, path)
 
 
-def field_wide_cdfs(summary: dict, target: str, path, log: bool = False) -> Path:
+def field_wide_cdfs(summary: dict, target: str, path: str | Path, log: bool = False) -> Path:
     """Distribution of a target over the field: raw wells, declustered, debiased with the seismic
     (weighted quantiles from the card), with the field-wide means marked."""
     dist = summary["distribution"]
@@ -527,7 +548,7 @@ def reliability_diagram(
     weights: np.ndarray,
     classes: list[str],
     target: str,
-    path,
+    path: str | Path,
     n_bins: int = 5,
 ) -> Path:
     """Out-of-fold predicted probability of each class against the (declustering-weighted)
@@ -561,7 +582,9 @@ def reliability_diagram(
     return save(fig, path)
 
 
-def exceedance_map(maps: xr.Dataset, variable: str, wells: pd.DataFrame | None, path) -> Path:
+def exceedance_map(
+    maps: xr.Dataset, variable: str, wells: pd.DataFrame | None, path: str | Path
+) -> Path:
     """P(target > cutoff) over the map, wells on top."""
     fig, ax = plt.subplots(figsize=(5.5, 4.6), layout="constrained")
     im = _background(ax, maps, variable, cmap="RdYlBu_r", vmin=0, vmax=1)
@@ -581,7 +604,11 @@ def _property(wells: pd.DataFrame, col: str) -> tuple[np.ndarray, str]:
 
 
 def crossplot(
-    wells: pd.DataFrame, attribute: str, at_wells: np.ndarray, properties: list[str], path
+    wells: pd.DataFrame,
+    attribute: str,
+    at_wells: np.ndarray,
+    properties: list[str],
+    path: str | Path,
 ) -> Path:
     """The attribute at the wells against each property, wells coloured by facies, with the
     least-squares line of each facies (3 wells or more) and of all wells (dashed)."""
@@ -622,7 +649,7 @@ def crossplot(
     return save(fig, path)
 
 
-def semivariograms(wells: pd.DataFrame, properties: list[str], path) -> Path:
+def semivariograms(wells: pd.DataFrame, properties: list[str], path: str | Path) -> Path:
     """Experimental omnidirectional semivariogram of each property at the wells (points sized by
     pair count) and the fitted model (line), as kriging and the CV block size use it; for
     samples along wells a second row: the vertical semivariogram from pairs within each well."""
@@ -731,7 +758,11 @@ def _class_ticks(bar, colours: dict | None, horizontal: bool = True) -> None:
 
 
 def depth_slices(
-    slices: list[xr.Dataset], wells: list[pd.DataFrame], target: str, path, log: bool = False
+    slices: list[xr.Dataset],
+    wells: list[pd.DataFrame],
+    target: str,
+    path: str | Path,
+    log: bool = False,
 ) -> Path:
     """Map views of a predicted volume at several z on one colour scale, each well filled with its
     logged value (or class) at its sample nearest to that z."""
@@ -751,7 +782,7 @@ def depth_slices(
 
 
 def well_section(
-    section: xr.Dataset, on_section: pd.DataFrame, target: str, path, log: bool = False
+    section: xr.Dataset, on_section: pd.DataFrame, target: str, path: str | Path, log: bool = False
 ) -> Path:
     """The predicted volume along a path through wells (z down), with each well's logged values
     as a column of squares on the same colour scale, so a misfit along the well shows."""

@@ -19,6 +19,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 import pandas as pd
 import xarray as xr
+from numpy.typing import ArrayLike
 
 from .bundle import Bundle, in_memory, load_bundle
 from .errors import InputError, PredictorWarning
@@ -50,7 +51,7 @@ class NoValidNodes(InputError):
     """No node of the grid (or of a tile of it) has every feature the model needs."""
 
 
-def local_spread(spread, model, X: pd.DataFrame, xy: np.ndarray) -> np.ndarray:
+def local_spread(spread: ArrayLike, model, X: pd.DataFrame, xy: np.ndarray) -> np.ndarray:
     """The local error spread that scales the intervals: a feature model, or the well-tie kriging
     sd."""
     if spread == "kriging":

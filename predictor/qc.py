@@ -14,6 +14,7 @@ from typing import Literal
 import numpy as np
 import pandas as pd
 import xarray as xr
+from numpy.typing import ArrayLike
 from scipy import stats as sps
 from scipy.spatial import cKDTree
 
@@ -75,7 +76,7 @@ def summarise(wells: pd.DataFrame, columns: list[str], facies: str | None = "fac
     return result
 
 
-def tukey_fences(values, k: float = 1.5) -> tuple[float, float]:
+def tukey_fences(values: ArrayLike, k: float = 1.5) -> tuple[float, float]:
     """Lower and upper Tukey fences Q1 - k IQR and Q3 + k IQR (quartiles by linear
     interpolation)."""
     v = np.asarray(values, dtype=float)
@@ -90,7 +91,7 @@ def physical_findings(wells: pd.DataFrame, source: str = "wells") -> list[Findin
     found = []
     ids = wells["well_id"].astype(str).to_numpy()
 
-    def flag(mask, column, message, severity: Severity = "error"):
+    def flag(mask: ArrayLike, column: str, message: str, severity: Severity = "error"):
         if np.any(mask):
             found.append(
                 Finding(
@@ -282,7 +283,9 @@ def outlier_findings(
     return found
 
 
-def pooled_t_from_moments(n1, mean1, sd1, n2, mean2, sd2) -> tuple[float, float, float]:
+def pooled_t_from_moments(
+    n1: int, mean1: float, sd1: float, n2: int, mean2: float, sd2: float
+) -> tuple[float, float, float]:
     """Two-sample t statistic with pooled variance, its degrees of freedom and two-sided p-value."""
     dof = n1 + n2 - 2
     sp2 = ((n1 - 1) * sd1**2 + (n2 - 1) * sd2**2) / dof
@@ -292,7 +295,11 @@ def pooled_t_from_moments(n1, mean1, sd1, n2, mean2, sd2) -> tuple[float, float,
 
 
 def bias_test(
-    at_wells, over_map, attribute: str = "attribute", alpha: float = 0.05, groups=None
+    at_wells: ArrayLike,
+    over_map: ArrayLike,
+    attribute: str = "attribute",
+    alpha: float = 0.05,
+    groups: ArrayLike | None = None,
 ) -> dict:
     """Compare an attribute at the wells with its values over the whole map.
 

@@ -80,9 +80,9 @@ def _section(key: str, title: str, body: str, css: str = "") -> tuple[str, str]:
 
 
 def build_report(
-    bundle_dir,
-    out,
-    grid_path=None,
+    bundle_dir: str | Path,
+    out: str | Path,
+    grid_path: str | Path | None = None,
     overwrite: bool = False,
     z_domain: str | None = None,
     segy_name: str | None = None,

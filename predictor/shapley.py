@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
+from numpy.typing import ArrayLike
 
 KRIGING = "kriging_of_wells"  # the explanation column for the part of a map kriged from well values
 BACKGROUND = 8  # background wells for the permutation explainer
@@ -33,7 +34,7 @@ def permutation_contributions(
         order = np.argsort(bg.iloc[:, 0].to_numpy(), kind="stable")
         bg = bg.iloc[order[np.linspace(0, len(bg) - 1, BACKGROUND).astype(int)]]
 
-    def f(values):
+    def f(values: ArrayLike):
         return predict(pd.DataFrame(values, columns=features), None)
 
     values, base = permutation_shap(

@@ -9,7 +9,10 @@ weights so they estimate the error over the map, not over the drilled spots.
 
 from __future__ import annotations
 
+from collections.abc import Iterator
+
 import numpy as np
+from numpy.typing import ArrayLike
 from scipy.spatial import cKDTree
 from sklearn import metrics
 from sklearn.model_selection import BaseCrossValidator, GroupKFold
@@ -18,7 +21,11 @@ from .errors import ModelError
 
 
 def block_labels(
-    x, y, block_size: float, angle: float = 0.0, origin: tuple[float, float] | None = None
+    x: ArrayLike,
+    y: ArrayLike,
+    block_size: float,
+    angle: float = 0.0,
+    origin: tuple[float, float] | None = None,
 ) -> np.ndarray:
     """Integer label of the square block (side ``block_size``, rotated by ``angle`` degrees) of each
     point.
@@ -71,11 +78,13 @@ class BlockKFold(BaseCrossValidator):
         self.angle = angle
         self.coordinates = coordinates
 
-    def labels(self, X) -> np.ndarray:
+    def labels(self, X: ArrayLike) -> np.ndarray:
         coords = _coordinates(self, X, len(X))
         return block_labels(coords[:, 0], coords[:, 1], self.block_size, self.angle)
 
-    def split(self, X, y=None, groups=None):
+    def split(
+        self, X: ArrayLike, y: ArrayLike | None = None, groups: ArrayLike | None = None
+    ) -> Iterator[tuple[np.ndarray, np.ndarray]]:
         labels = self.labels(X)
         n_blocks = np.unique(labels).size
         if n_blocks < self.n_splits:
@@ -85,7 +94,12 @@ class BlockKFold(BaseCrossValidator):
             )
         yield from GroupKFold(n_splits=self.n_splits).split(np.zeros(len(labels)), None, labels)
 
-    def get_n_splits(self, X=None, y=None, groups=None) -> int:
+    def get_n_splits(
+        self,
+        X: ArrayLike | None = None,
+        y: ArrayLike | None = None,
+        groups: ArrayLike | None = None,
+    ) -> int:
         return self.n_splits
 
 
@@ -107,7 +121,9 @@ class BufferedLeaveOneOut(BaseCrossValidator):
         units = groups if groups is not None else self.groups
         return np.arange(n) if units is None else np.asarray(units)
 
-    def split(self, X, y=None, groups=None):
+    def split(
+        self, X: ArrayLike, y: ArrayLike | None = None, groups: ArrayLike | None = None
+    ) -> Iterator[tuple[np.ndarray, np.ndarray]]:
         coords = _coordinates(self, X, len(X))
         units = self._units(len(coords), groups)
         tree = cKDTree(coords)
@@ -120,11 +136,18 @@ class BufferedLeaveOneOut(BaseCrossValidator):
             train = np.setdiff1d(everyone, np.union1d(near, test))
             yield train, test
 
-    def get_n_splits(self, X=None, y=None, groups=None) -> int:
+    def get_n_splits(
+        self,
+        X: ArrayLike | None = None,
+        y: ArrayLike | None = None,
+        groups: ArrayLike | None = None,
+    ) -> int:
         return 0 if X is None else np.unique(self._units(len(X), groups)).size
 
 
-def regression_scores(y, pred, weights=None) -> dict[str, float]:
+def regression_scores(
+    y: ArrayLike, pred: ArrayLike, weights: ArrayLike | None = None
+) -> dict[str, float]:
     """RMSE, MAE and R2, weighted when weights are given."""
     y, pred = np.asarray(y, float), np.asarray(pred, float)
     return {
@@ -134,7 +157,9 @@ def regression_scores(y, pred, weights=None) -> dict[str, float]:
     }
 
 
-def classification_scores(y, proba, classes, weights=None) -> dict[str, float]:
+def classification_scores(
+    y: ArrayLike, proba: ArrayLike, classes: list[str], weights: ArrayLike | None = None
+) -> dict[str, float]:
     """Balanced accuracy, log-loss and (multi-class) Brier score, weighted when weights are
     given."""
     y = np.asarray(y).astype(str)

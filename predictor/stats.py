@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
+from numpy.typing import ArrayLike
 
 
 def _clean(values, weights):
@@ -13,12 +14,12 @@ def _clean(values, weights):
     return values[ok], weights[ok]
 
 
-def weighted_mean(values, weights=None) -> float:
+def weighted_mean(values: ArrayLike, weights: ArrayLike | None = None) -> float:
     v, w = _clean(values, weights)
     return float(np.sum(v * w) / np.sum(w)) if v.size else float("nan")
 
 
-def weighted_std(values, weights=None) -> float:
+def weighted_std(values: ArrayLike, weights: ArrayLike | None = None) -> float:
     """Population standard deviation with weights (no small-sample correction)."""
     v, w = _clean(values, weights)
     if not v.size:
@@ -27,7 +28,7 @@ def weighted_std(values, weights=None) -> float:
     return float(np.sqrt(np.sum(w * (v - m) ** 2) / np.sum(w)))
 
 
-def weighted_quantile(values, q, weights=None):
+def weighted_quantile(values: ArrayLike, q: ArrayLike, weights: ArrayLike | None = None):
     """Quantile by inversion of the weighted empirical CDF.
 
     The smallest value whose cumulative weight share reaches ``q``: the same definition as
@@ -46,7 +47,7 @@ def weighted_quantile(values, q, weights=None):
     return out if q.ndim else float(out)
 
 
-def weighted_proportions(labels, weights=None) -> dict[str, float]:
+def weighted_proportions(labels: ArrayLike, weights: ArrayLike | None = None) -> dict[str, float]:
     """Share of total weight per class label (labels as strings, sorted)."""
     labels = np.asarray(labels, dtype=object)
     weights = np.ones(labels.size) if weights is None else np.asarray(weights, dtype=float)
@@ -56,7 +57,7 @@ def weighted_proportions(labels, weights=None) -> dict[str, float]:
     return {str(c): float(weights[labels == c].sum() / total) for c in sorted(set(labels))}
 
 
-def describe(values, weights=None) -> dict[str, float]:
+def describe(values: ArrayLike, weights: ArrayLike | None = None) -> dict[str, float]:
     """Count, mean, std, quartiles, min and max; weighted when weights are given."""
     v, w = _clean(values, weights)
     q = weighted_quantile(v, [0.1, 0.25, 0.5, 0.75, 0.9], w) if v.size else [np.nan] * 5
@@ -74,7 +75,7 @@ def describe(values, weights=None) -> dict[str, float]:
     }
 
 
-def design_effect(values, groups) -> tuple[float, float]:
+def design_effect(values: ArrayLike, groups: ArrayLike) -> tuple[float, float]:
     """Kish's design effect of a mean over samples clustered in groups (samples along wells):
     ``1 + (m - 1) * icc`` with ``m`` the mean group size and ``icc`` the intraclass correlation
     from the one-way ANOVA estimator (Kish 1965, Survey Sampling, section 5.4; common practice).

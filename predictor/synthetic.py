@@ -12,6 +12,7 @@ high-porosity rock, plus a few on a sparse regular pattern.
 from __future__ import annotations
 
 from dataclasses import asdict, dataclass
+from pathlib import Path
 from typing import Literal
 
 import numpy as np
@@ -210,7 +211,7 @@ def _drill(spec: FieldSpec, rng, xs, ys, porosity) -> pd.DataFrame:
     return pd.DataFrame({"well_id": ids, "x": np.round(x, 1), "y": np.round(y, 1)})
 
 
-def demo_files(folder, spec: FieldSpec | None = None) -> dict[str, str]:
+def demo_files(folder: str | Path, spec: FieldSpec | None = None) -> dict[str, str]:
     """Write the demo files into ``folder``: wells.csv, seismic.csv, seismic.nc, truth.nc."""
     from pathlib import Path
 
@@ -402,7 +403,7 @@ def _drill_volume(
     return pd.concat(rows, ignore_index=True)
 
 
-def volume_demo_files(folder, spec: VolumeSpec | None = None) -> dict[str, str]:
+def volume_demo_files(folder: str | Path, spec: VolumeSpec | None = None) -> dict[str, str]:
     """Write a 3-D scenario into ``folder``: well_samples.csv (one row per sample, a ``depth``
     column), impedance.sgy (SEG-Y on the rotated survey), impedance.nc and truth_volume.nc."""
     from pathlib import Path

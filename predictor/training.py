@@ -13,6 +13,7 @@ from typing import Literal
 import numpy as np
 import pandas as pd
 import xarray as xr
+from numpy.typing import ArrayLike
 from scipy.spatial import cKDTree
 from sklearn.base import clone
 
@@ -1341,7 +1342,7 @@ def _feature_spread(attrs, data: FitData, residuals, splits):
     """Cross-fitted spread at each well (for calibration) and the spread model fitted on all
     wells."""
 
-    def fit_predict(train_rows, test):
+    def fit_predict(train_rows: ArrayLike, test: ArrayLike):
         model = SpreadModel(attrs).fit(
             data.X.iloc[train_rows], residuals[train_rows], data.weights[train_rows]
         )
@@ -1356,7 +1357,7 @@ def _oof_spread(model: WellTies, data: FitData, splits) -> np.ndarray:
     """Kriging standard deviation of the residual field at each held-out well, from its fold's
     model."""
 
-    def fit_predict(train_rows, test):
+    def fit_predict(train_rows: ArrayLike, test: ArrayLike):
         return np.sqrt(clone(model).fit(data.subset(train_rows)).residual_variance(data.xy[test]))
 
     return fold_predictions(splits, len(data.y), fit_predict)

@@ -10,6 +10,7 @@ from dataclasses import asdict, dataclass
 from typing import Literal
 
 import numpy as np
+from numpy.typing import ArrayLike
 from scipy.optimize import curve_fit, nnls
 from scipy.spatial.distance import pdist
 
@@ -44,7 +45,7 @@ class VariogramModel:
         h = np.asarray(h, dtype=float)
         return np.where(h > 0, self.nugget + self.sill * _shape(self.kind, h, self.range), 0.0)
 
-    def covariance(self, h) -> np.ndarray:
+    def covariance(self, h: ArrayLike) -> np.ndarray:
         """C(h) = total sill - gamma(h); C(0) includes the nugget.
 
         Evaluated in place (a map asks for nodes x wells of them): sill * (1 - shape) off the
@@ -93,14 +94,14 @@ def _binned(dist, sq, n_lags: int, max_lag: float | None) -> Experimental:
 
 
 def experimental(
-    x,
-    y,
-    values,
+    x: ArrayLike,
+    y: ArrayLike,
+    values: ArrayLike,
     n_lags: int = 15,
     max_lag: float | None = None,
     azimuth: float | None = None,
     tolerance: float = 22.5,
-    z=None,
+    z: ArrayLike | None = None,
     z_tolerance: float = 0.0,
 ) -> Experimental:
     """Experimental semivariogram: gamma(h) = mean of (v_i - v_j)^2 / 2 over pairs in each lag bin.
@@ -130,7 +131,9 @@ def experimental(
     return _binned(dist, sq, n_lags, max_lag)
 
 
-def along_wells(z, values, wells, n_lags: int = 12, max_lag: float | None = None) -> Experimental:
+def along_wells(
+    z: ArrayLike, values: ArrayLike, wells, n_lags: int = 12, max_lag: float | None = None
+) -> Experimental:
     """Vertical experimental semivariogram of samples along wells: only pairs of samples of one
     well, the lag their z separation (deviated wells: the lateral drift is ignored)."""
     z, v, wells = np.asarray(z, float), np.asarray(values, float), np.asarray(wells)
@@ -226,7 +229,9 @@ def fit_variogram(exp: Experimental, kinds: tuple[str, ...] = KINDS) -> Variogra
 MIN_NUGGET_SHARE = 0.02
 
 
-def auto_variogram(x, y, values, n_lags: int = 12) -> VariogramModel:
+def auto_variogram(
+    x: ArrayLike, y: ArrayLike, values: ArrayLike, n_lags: int = 12
+) -> VariogramModel:
     """Experimental omnidirectional semivariogram and the best-fitting model in one call.
 
     The nugget is kept at 2 % of the total sill or more: a (near) nugget-free model, the

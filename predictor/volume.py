@@ -20,6 +20,7 @@ from typing import Literal
 import numpy as np
 import pandas as pd
 import xarray as xr
+from numpy.typing import ArrayLike
 
 from .errors import InputError, PredictorWarning
 from .io.formats import file_format
@@ -173,7 +174,7 @@ def z_step(vol: xr.Dataset) -> float:
     return float(vol.z[1] - vol.z[0])
 
 
-def fractional_index(vol: xr.Dataset, x, y) -> tuple[np.ndarray, np.ndarray]:
+def fractional_index(vol: xr.Dataset, x: ArrayLike, y: ArrayLike) -> tuple[np.ndarray, np.ndarray]:
     """Fractional (inline index, crossline index) of map points, through the inverse affine."""
     x0, dxi, dxx, y0, dyi, dyx = vol.attrs["affine"]
     M = np.array([[dxi, dxx], [dyi, dyx]])
@@ -257,7 +258,13 @@ def check_z_domain(
 
 
 def locate_samples(
-    vol: xr.Dataset, x, y, z, labels, wells_domain: ZDomain = "unknown", source: str = "wells"
+    vol: xr.Dataset,
+    x: ArrayLike,
+    y: ArrayLike,
+    z: ArrayLike,
+    labels: ArrayLike,
+    wells_domain: ZDomain = "unknown",
+    source: str = "wells",
 ) -> tuple[np.ndarray, np.ndarray]:
     """(laterally outside the survey, on the sample axis) masks of points (x, y, z); geometry
     only."""
@@ -270,7 +277,9 @@ def locate_samples(
     return outside, check_z_domain(vol, np.asarray(z, float), labels, wells_domain, source)
 
 
-def values_at(vol: xr.Dataset, x, y, z) -> tuple[pd.DataFrame, np.ndarray]:
+def values_at(
+    vol: xr.Dataset, x: ArrayLike, y: ArrayLike, z: ArrayLike
+) -> tuple[pd.DataFrame, np.ndarray]:
     """Trilinear values of every variable at points inside ``vol`` (a whole volume or a window
     of one), and whether the nearest node holds no value for some variable (a gap)."""
     fi, fj = fractional_index(vol, x, y)
@@ -279,7 +288,7 @@ def values_at(vol: xr.Dataset, x, y, z) -> tuple[pd.DataFrame, np.ndarray]:
 
 
 def report_unsampled(
-    outside: np.ndarray, gap: np.ndarray, labels, drop_outside: bool, source: str
+    outside: np.ndarray, gap: np.ndarray, labels: ArrayLike, drop_outside: bool, source: str
 ) -> None:
     """Error naming the wells with samples outside the survey or in gaps (or, when dropping, a
     warning)."""
@@ -313,10 +322,10 @@ def _wells_list(labels: np.ndarray) -> str:
 
 def sample_volume(
     vol: xr.Dataset,
-    x,
-    y,
-    z,
-    labels=None,
+    x: ArrayLike,
+    y: ArrayLike,
+    z: ArrayLike,
+    labels: ArrayLike | None = None,
     drop_outside: bool = False,
     wells_domain: ZDomain = "unknown",
 ) -> tuple[pd.DataFrame, np.ndarray]:

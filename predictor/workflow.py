@@ -7,7 +7,9 @@ Each reads its inputs, calls the API (:func:`predictor.training.train`,
 from __future__ import annotations
 
 import os
+from collections.abc import Sequence
 from pathlib import Path
+from typing import Any
 
 from .bundle import Bundle, load_bundle, save_bundle, sha256
 from .features import FeatureSpec
@@ -21,27 +23,27 @@ from .volume import is_volume
 
 
 def train_files(
-    wells_path,
-    grid_path,
-    out,
-    targets,
-    attributes=None,
-    context_radii=(),
-    gradient=False,
-    location=False,
-    porosity_percent=False,
-    x=None,
-    y=None,
-    overwrite=False,
-    vertical_radii=(),
-    z_trend=False,
-    z=None,
-    z_domain=None,
-    segy_name=None,
-    roles=None,
-    kinds=None,
-    **options,
-):
+    wells_path: str | Path,
+    grid_path: str | Path,
+    out: str | Path,
+    targets: list[str],
+    attributes: list[str] | None = None,
+    context_radii: Sequence[float] = (),
+    gradient: bool = False,
+    location: bool = False,
+    porosity_percent: bool = False,
+    x: str | None = None,
+    y: str | None = None,
+    overwrite: bool = False,
+    vertical_radii: Sequence[float] = (),
+    z_trend: bool = False,
+    z: str | None = None,
+    z_domain: str | None = None,
+    segy_name: str | None = None,
+    roles: dict[str, str] | None = None,
+    kinds: dict[str, str] | None = None,
+    **options: Any,
+) -> tuple[TrainedModels, Path]:
     """Read wells and a map or volume, train, and write the bundle to ``out``; returns (trained,
     folder).
 
@@ -84,9 +86,9 @@ def train_files(
 
 def predict_files(
     bundle,
-    grid_path,
-    out,
-    overwrite=False,
+    grid_path: str | Path,
+    out: str | Path,
+    overwrite: bool = False,
     crs: str | None = None,
     z_domain: str | None = None,
     segy_name: str | None = None,

@@ -5,13 +5,14 @@ from __future__ import annotations
 import json
 import math
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
 from .atomic import atomic_file
 
 
-def plain(obj):
+def plain(obj: Any):
     """Turn numpy scalars/arrays and NaN into JSON-safe values (NaN becomes null)."""
     if isinstance(obj, dict):
         return {str(k): plain(v) for k, v in obj.items()}
@@ -26,11 +27,11 @@ def plain(obj):
     return obj
 
 
-def dumps(obj) -> str:
+def dumps(obj: Any) -> str:
     return json.dumps(plain(obj), indent=2, sort_keys=False) + "\n"
 
 
-def write_json(obj, path: str | Path, overwrite: bool = True) -> Path:
+def write_json(obj: Any, path: str | Path, overwrite: bool = True) -> Path:
     with atomic_file(path, overwrite=overwrite) as tmp:
         tmp.write_text(dumps(obj), encoding="utf-8")
     return Path(path)
