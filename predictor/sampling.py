@@ -31,8 +31,9 @@ def interpolate(
     out, gap = {}, np.zeros(fractions[0].size, bool)
     for var in ds.data_vars:
         arr = ds[var].transpose(*dims).to_numpy()
-        gap |= np.isnan(arr[near])
-        out[str(var)] = arr[near] if nearest else multilinear(arr, fractions)
+        at_nearest = arr[near]
+        gap |= np.isnan(at_nearest)
+        out[str(var)] = at_nearest if nearest else multilinear(arr, fractions)
     return pd.DataFrame(out), gap
 
 
