@@ -112,6 +112,21 @@ def one(layout: str, seed: int) -> tuple[dict, pd.DataFrame]:
     row["brier_ratio"] = brier(labels, proba, classes) / brier(labels, logistic, classes)
     row["brier_ratio_shifted"] = brier(labels, shifted, classes) / brier(labels, logistic, classes)
     row["bacc_logistic"] = balanced_accuracy_score(labels, np.array(classes)[logistic.argmax(1)])
+    row["facies_chosen"] = fac.chosen
+    tied = next((r for r in fac.leaderboard if r["candidate"].endswith("+well_ties")), None)
+    if tied is not None:  # the well-tied candidate, chosen or not: how it maps, how it scored
+        untied = next(
+            r
+            for r in fac.leaderboard
+            if r["candidate"] == tied["candidate"].removesuffix("+well_ties")
+        )
+        row["ties_cv_gain"] = untied["cv"]["log_loss"] - tied["cv"]["log_loss"]
+        row["ties_cv_se"] = tied["cv_se"]
+        p_tied = fac.refit(tied["candidate"]).predict(X, xy)
+        row["brier_ratio_tied"] = brier(labels, p_tied, classes) / brier(labels, logistic, classes)
+        row["brier_ratio_untied"] = brier(
+            labels, fac.refit(untied["candidate"]).predict(X, xy), classes
+        ) / brier(labels, logistic, classes)
     for name, p in (("", proba), ("shifted_", shifted)):
         for rule in MAP_RULES:
             drawn = np.argmax(p * rule_factors(rule, p, target), axis=1)

@@ -38,8 +38,10 @@ from scipy.stats import ks_2samp, wasserstein_distance
 from sklearn.model_selection import KFold
 
 from .errors import ModelError
+from .kriging import OrdinaryKriging
 from .options import DesignName, allowed
 from .spatial_cv import BlockKFold, BufferedLeaveOneOut
+from .variogram import VariogramModel
 
 DESIGNS: tuple[str, ...] = allowed(DesignName)
 MAP_SAMPLE = 5000  # prediction locations kept for the distance distribution
@@ -361,3 +363,35 @@ def representative_weights(
             current = np.bincount(well_bin, weights=w, minlength=share.size) / w.sum()
             w *= np.divide(share, current, out=np.ones_like(share), where=current > 0)[well_bin]
     return w * len(w) / w.sum(), unsupported
+
+
+def kriging_variance_ratio(
+    variogram: VariogramModel,
+    heads: np.ndarray,
+    head_of: np.ndarray,
+    splits: list[tuple[np.ndarray, np.ndarray]],
+    map_xy: np.ndarray,
+    weights: np.ndarray,
+) -> float:
+    """How much closer to their information the map's nodes are than the held-out wells.
+
+    The mean ordinary-kriging variance of the map's locations (from every well) divided by the
+    weighted mean kriging variance of the held-out wells (each from its fold's training wells),
+    both under the residual ``variogram``.  No fold design can hold a well out closer to its
+    training wells than the well spacing, while on dense regular drilling every map node lies
+    within a spacing of a well, and each fold trains on fewer wells than the map: the ratio says
+    by how much the CV's squared error overstates the map's there (1 when they match; the
+    kriging variance as the error's expected size given the data's positions, common practice).
+    """
+
+    def variance(train: np.ndarray, at: np.ndarray) -> np.ndarray:
+        points = heads[train]
+        ok = OrdinaryKriging(variogram).fit(points[:, 0], points[:, 1], np.zeros(len(points)))
+        return ok.predict(at[:, 0], at[:, 1], return_variance=True)[1]
+
+    held_out = np.empty(len(head_of))
+    for train_rows, test_rows in splits:
+        held_out[test_rows] = variance(np.unique(head_of[train_rows]), heads[head_of[test_rows]])
+    on_map = float(np.mean(variance(np.arange(len(heads)), np.asarray(map_xy, float))))
+    cv = float(np.average(held_out, weights=weights))
+    return on_map / cv if cv > 0 else 1.0

@@ -22,7 +22,7 @@ from scipy.spatial import cKDTree
 from scipy.spatial.distance import cdist
 
 from .errors import ModelError
-from .variogram import VariogramModel, auto_variogram
+from .variogram import KINDS, VariogramModel, auto_variogram
 
 CELLS_PER_CHUNK = 4_000_000  # nodes x wells of covariances held at once (32 MB)
 GLOBAL_WELLS = (
@@ -69,15 +69,22 @@ def _variance(lu, cov: np.ndarray, c0: float) -> np.ndarray:
 class OrdinaryKriging:
     """Ordinary kriging (unknown constant mean) of values at points.
 
-    ``fit`` fits an omnidirectional semivariogram when no model is given; learned state ends in
-    ``_``.  ``neighbours`` asks for a moving neighbourhood of that many wells per tile of nodes
-    (all of them when a CV fold holds fewer); None: the global system up to ``GLOBAL_WELLS``
-    wells, else ``NEIGHBOURS``.  A neighbourhood holding every well gives the global estimate.
+    ``fit`` fits an omnidirectional semivariogram (of one of ``kinds``) when no model is given;
+    learned state ends in ``_``.  ``neighbours`` asks for a moving neighbourhood of that many
+    wells per tile of nodes (all of them when a CV fold holds fewer); None: the global system up
+    to ``GLOBAL_WELLS`` wells, else ``NEIGHBOURS``.  A neighbourhood holding every well gives the
+    global estimate.
     """
 
-    def __init__(self, variogram: VariogramModel | None = None, neighbours: int | None = None):
+    def __init__(
+        self,
+        variogram: VariogramModel | None = None,
+        neighbours: int | None = None,
+        kinds: tuple[str, ...] = KINDS,
+    ):
         self.variogram = variogram
         self.neighbours = neighbours
+        self.kinds = kinds  # the model kinds a fitted semivariogram may take
 
     def fit(self, x: ArrayLike, y: ArrayLike, values: ArrayLike) -> OrdinaryKriging:
         x, y, v = (np.asarray(a, dtype=float) for a in (x, y, values))
@@ -101,9 +108,9 @@ class OrdinaryKriging:
             self.variogram_ = VariogramModel("spherical", 0.0, max(float(np.var(v)), 1e-12), 1e-9)
         elif n > VARIOGRAM_WELLS:
             pick = np.random.default_rng(0).choice(n, VARIOGRAM_WELLS, replace=False)
-            self.variogram_ = auto_variogram(x[pick], y[pick], v[pick])
+            self.variogram_ = auto_variogram(x[pick], y[pick], v[pick], kinds=self.kinds)
         else:
-            self.variogram_ = auto_variogram(x, y, v)
+            self.variogram_ = auto_variogram(x, y, v, kinds=self.kinds)
         self.local_ = self.neighbours is not None or n > GLOBAL_WELLS
         self.neighbours_ = min(self.neighbours or NEIGHBOURS, n) if self.local_ else n
         if not self.local_:

@@ -41,6 +41,8 @@ from .kriging import OrdinaryKriging
 from .shapley import permutation_contributions, place
 
 PARALLEL_ROWS = 5000  # LightGBM trains on several threads from this many rows
+PROBABILITY_FLOOR = 1e-3  # kriged facies probabilities are clipped here before rescaling
+INDICATOR_KINDS = ("spherical", "exponential")  # semivariograms of facies residuals
 
 
 @dataclass
@@ -632,11 +634,18 @@ class FaciesMixture(Candidate):
 
 
 class WellTies(Candidate):
-    """A regression model corrected near the wells by kriging its out-of-fold residuals.
+    """A model corrected near the wells by kriging its out-of-fold residuals.
 
     The residuals come from an inner cross-validation of the training wells with folds matched
     to the map's prediction distances, so they are the errors the model makes as far from its
     training data as a map node is from its nearest well, which is what the map needs.
+
+    For facies the residuals are each class's indicator minus its predicted probability, kriged
+    class by class and added to the probabilities (kriging of indicators around a locally
+    varying mean from the seismic, common practice), with the order-relation correction of
+    indicator kriging: clipped to [PROBABILITY_FLOOR, 1] and rescaled to sum to one (common
+    practice).  Their semivariograms are spherical or exponential only: a Gaussian fit to an
+    indicator's residuals swung the kriged probabilities far outside [0, 1] between wells.
     """
 
     kind = "well_ties"
@@ -649,22 +658,55 @@ class WellTies(Candidate):
         return f"{self.base.name}+well_ties"
 
     @property
+    def task(self) -> str:
+        return self.base.task
+
+    @property
     def features(self) -> list[str]:
         return self.base.features
 
     def fit(self, data: FitData) -> WellTies:
         oof = out_of_fold(self.base, data)
         self.base_ = clone(self.base).fit(data)
-        self.kriging_ = OrdinaryKriging(neighbours=data.kriging_neighbours).fit(
-            data.xy[:, 0], data.xy[:, 1], data.y - oof
-        )
+        x, y = data.xy[:, 0], data.xy[:, 1]
+        if self.task == "classification":
+            residuals = np.eye(len(data.classes))[data.y.astype(int)] - oof
+            self.kriging_ = [
+                OrdinaryKriging(neighbours=data.kriging_neighbours, kinds=INDICATOR_KINDS).fit(
+                    x, y, r
+                )
+                for r in residuals.T
+            ]
+        else:
+            self.kriging_ = OrdinaryKriging(neighbours=data.kriging_neighbours).fit(
+                x, y, data.y - oof
+            )
         return self
 
     def _ties(self, xy) -> np.ndarray:
+        if self.task == "classification":
+            return np.column_stack([k.predict(xy[:, 0], xy[:, 1]) for k in self.kriging_])
         return self.kriging_.predict(xy[:, 0], xy[:, 1])
 
+    def _tied(self, proba: np.ndarray, xy) -> np.ndarray:
+        p = np.clip(proba + self._ties(xy), PROBABILITY_FLOOR, 1.0)
+        return p / p.sum(axis=1, keepdims=True)
+
+    def _raw_shift(self, X, xy) -> np.ndarray:
+        """What the ties add to the base's raw output: the values themselves, or for facies
+        log(tied / untied probability), which the softmax turns into the tied probabilities."""
+        if self.task == "regression":
+            return self._ties(xy)
+        proba = self.base_.predict(X, xy)
+        return np.log(self._tied(proba, xy) / np.maximum(proba, 1e-300))
+
     def predict(self, X: ArrayLike, xy: ArrayLike) -> np.ndarray:
+        if self.task == "classification":
+            return self._tied(self.base_.predict(X, xy), xy)
         return self.base_.predict(X, xy) + self._ties(xy)
+
+    def raw_output(self, X: ArrayLike, xy: ArrayLike) -> np.ndarray:
+        return self.base_.raw_output(X, xy) + self._raw_shift(X, xy)
 
     def contributions(
         self,
@@ -675,25 +717,33 @@ class WellTies(Candidate):
         seed: int = 0,
     ) -> tuple[np.ndarray, np.ndarray]:
         values, base = self.base_.contributions(X, xy, names, background, seed)
-        values[..., -1] += self._ties(xy)
+        values[..., -1] += self._raw_shift(X, xy)
         return values, base
 
     def residual_variance(self, xy: ArrayLike) -> np.ndarray:
         return self.kriging_.predict(xy[:, 0], xy[:, 1], return_variance=True)[1]
 
     def save(self, folder: Path, stem: str) -> dict:
+        kriging = self.kriging_
         return {
             "type": self.kind,
             "name": self.name,
             "base": self.base_.save(folder, stem),
-            "kriging": self.kriging_.to_dict(),
+            "kriging": (
+                [k.to_dict() for k in kriging] if isinstance(kriging, list) else kriging.to_dict()
+            ),
         }
 
     @classmethod
     def load(cls, desc: dict, folder: Path) -> WellTies:
         model = cls(load_candidate(desc["base"], folder))
         model.base_ = model.base
-        model.kriging_ = OrdinaryKriging.from_dict(desc["kriging"])
+        kriging = desc["kriging"]
+        model.kriging_ = (
+            [OrdinaryKriging.from_dict(k) for k in kriging]
+            if isinstance(kriging, list)
+            else OrdinaryKriging.from_dict(kriging)
+        )
         return model
 
 

@@ -189,6 +189,9 @@ def _summary(card, check, scenario=None):
                 "chosen model": info["chosen"],
                 "matched CV": info["cv"][key],
                 "random CV (optimistic)": random if random is not None else np.nan,
+                "expected on the map": (info.get("cv_design") or {})
+                .get("map_error", {})
+                .get("rmse", np.nan),
                 "metric": key + unit,
                 "against the best baseline": against_baseline(info),
                 "wells": info["n_wells"],
@@ -210,8 +213,11 @@ def _summary(card, check, scenario=None):
         + _table(pd.DataFrame(rows))
         + '<p class="small">The matched CV holds wells out as far from their training wells as the'
         " map's nodes are from their nearest well, and weights every well by its declustering"
-        " weight, so it estimates the error over the map. Random k-fold is shown for contrast"
-        " only: nearby wells are alike, so on clustered wells it flatters the model.</p>"
+        " weight, so it estimates the error over the map. Where no fold design can hold wells out"
+        " as close as the map's nodes lie to a well (dense drilling), the expected error on the"
+        " map scales the CV's by the ratio of kriging variances, map nodes to held-out wells."
+        " Random k-fold is shown for contrast only: nearby wells are alike, so on clustered wells"
+        " it flatters the model.</p>"
     )
     return _section("glance", "At a glance", body)
 

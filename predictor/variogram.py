@@ -230,7 +230,11 @@ MIN_NUGGET_SHARE = 0.02
 
 
 def auto_variogram(
-    x: ArrayLike, y: ArrayLike, values: ArrayLike, n_lags: int = 12
+    x: ArrayLike,
+    y: ArrayLike,
+    values: ArrayLike,
+    n_lags: int = 12,
+    kinds: tuple[str, ...] = KINDS,
 ) -> VariogramModel:
     """Experimental omnidirectional semivariogram and the best-fitting model in one call.
 
@@ -241,7 +245,7 @@ def auto_variogram(
     values = np.asarray(values, dtype=float)
     if np.ptp(values[np.isfinite(values)]) == 0:
         raise ModelError("the values are constant: there is nothing to fit a semivariogram to")
-    model = fit_variogram(experimental(x, y, values, n_lags=n_lags))
+    model = fit_variogram(experimental(x, y, values, n_lags=n_lags), kinds)
     total = model.nugget + model.sill
     if model.nugget < MIN_NUGGET_SHARE * total:
         model = VariogramModel(

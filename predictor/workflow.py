@@ -136,6 +136,13 @@ def leaderboard_lines(trained: TrainedModels) -> list[str]:
                 f"  {mark} {row['candidate']:<28} {kind:<9} {tm.distances['chosen']}"
                 f" {row['cv'][key]:.4f}   random {row['cv_random'][key]:.4f}"
             )
+        map_error = tm.distances.get("map_error")
+        if map_error:
+            lines.append(
+                f"  expected map RMSE {map_error['rmse']:.4f}: the chosen model's"
+                f" {tm.distances['chosen']} CV times the square root of the kriging-variance ratio"
+                f" {map_error['kriging_variance_ratio']:.3f} of map nodes to held-out wells"
+            )
         coverage = tm.calibration.held_out_coverage if tm.calibration else None
         if coverage is not None:
             lines.append(

@@ -15,6 +15,7 @@ from scipy.stats import wasserstein_distance
 from predictor.cv_design import (
     design_folds,
     knndm_folds,
+    kriging_variance_ratio,
     map_distances,
     nndm_splits,
     sample_locations,
@@ -142,3 +143,34 @@ def test_too_few_wells_for_the_folds_is_a_clear_error():
 def test_no_valid_node_is_a_clear_error():
     with pytest.raises(ModelError, match="no valid node"):
         map_distances(np.empty((0, 2)), np.zeros((3, 2)))
+
+
+def test_kriging_variance_ratio_hand_worked_without_spatial_correlation():
+    # Hand-worked: with no correlation between distinct points (covariance s at distance 0,
+    # 0 beyond), ordinary kriging weighs n wells 1/n with Lagrange multiplier -s/n, so the
+    # variance off the wells is s (1 + 1/n). Ten wells in five folds: held-out wells are
+    # kriged from 8, map nodes off the wells from 10, ratio (1 + 1/10) / (1 + 1/8).
+    heads = np.column_stack([np.arange(10) * 100.0, np.zeros(10)])
+    folds = np.arange(10) % 5
+    splits = [(np.flatnonzero(folds != k), np.flatnonzero(folds == k)) for k in range(5)]
+    vario = VariogramModel("spherical", 0.0, 2.0, 1e-3)
+    off_wells = np.column_stack([np.arange(10) * 100.0 + 50.0, np.full(10, 30.0)])
+    ratio = kriging_variance_ratio(vario, heads, np.arange(10), splits, off_wells, np.ones(10))
+    assert ratio == pytest.approx(1.1 / 1.125, rel=1e-9)
+    # map nodes on the wells themselves are known exactly: half of them on wells halves it
+    half = np.vstack([off_wells[:5], heads[:5]])
+    ratio = kriging_variance_ratio(vario, heads, np.arange(10), splits, half, np.ones(10))
+    assert ratio == pytest.approx(0.5 * 1.1 / 1.125, rel=1e-9)
+
+
+def test_kriging_variance_ratio_below_one_when_the_map_hugs_dense_wells():
+    # a regular 10 x 10 pattern at 100 m with a 400 m spherical range: random folds hold each
+    # well out a spacing from its training wells while map nodes lie within 71 m of a well
+    gx, gy = np.meshgrid(np.arange(10) * 100.0, np.arange(10) * 100.0)
+    heads = np.column_stack([gx.ravel(), gy.ravel()])
+    folds = np.random.default_rng(0).permutation(100) % 5
+    splits = [(np.flatnonzero(folds != k), np.flatnonzero(folds == k)) for k in range(5)]
+    nodes = np.random.default_rng(1).uniform(0, 900, (2000, 2))
+    vario = VariogramModel("spherical", 0.1, 0.9, 400.0)
+    ratio = kriging_variance_ratio(vario, heads, np.arange(100), splits, nodes, np.ones(100))
+    assert 0.5 < ratio < 0.95

@@ -70,6 +70,7 @@ def fitted():
         "classifier_blend": (
             Blend([Logistic(names), LightGBM("classification", names)], [0.4, 0.6]).fit(cls)
         ),
+        "facies_well_ties": WellTies(Logistic(names)).fit(cls),
     }
     return models, X, xy, names
 
@@ -87,6 +88,7 @@ def fitted():
         "lightgbm_classifier",
         "logistic",
         "classifier_blend",
+        "facies_well_ties",
     ],
 )
 def test_local_accuracy_at_every_well(fitted, name):

@@ -233,3 +233,30 @@ def test_a_new_candidate_is_one_class(tmp_path):
     np.testing.assert_array_equal(
         back.predict(data.X, data.xy + 1.0), fitted.predict(data.X, data.xy + 1.0)
     )
+
+
+def test_facies_well_ties_draw_the_probabilities_to_nearby_wells(tmp_path):
+    """Sand in the west, shale in the east, and an attribute that says nothing: the logistic
+    base predicts about the proportions everywhere; kriging its indicator residuals must give
+    sand between the western wells and shale between the eastern ones, with probabilities that
+    stay in [floor, 1], sum to one and survive a save and load."""
+    from predictor.models import PROBABILITY_FLOOR, WellTies
+
+    rng = np.random.default_rng(3)
+    n = 120
+    xy = rng.uniform(0, 2000, (n, 2))
+    codes = (xy[:, 0] > 1000).astype(int)  # 0 sand (west), 1 shale (east)
+    X = pd.DataFrame({"impedance": rng.normal(size=n)})
+    groups = (xy[:, 0] // 400).astype(int) * 10 + (xy[:, 1] // 400).astype(int)
+    data = FitData(X, codes, np.ones(n), xy, groups, ["sand", "shale"], seed=0)
+    base = Logistic(["impedance"]).fit(data)
+    tied = WellTies(Logistic(["impedance"])).fit(data)
+    nodes = np.array([[300.0, 1000.0], [1700.0, 1000.0]])
+    Xq = pd.DataFrame({"impedance": [0.0, 0.0]})
+    assert np.all(np.abs(base.predict(Xq) - 0.5) < 0.15)  # the attribute says nothing
+    p = tied.predict(Xq, nodes)
+    assert p[0, 0] > 0.9 and p[1, 1] > 0.9
+    assert np.allclose(p.sum(axis=1), 1.0) and p.min() >= PROBABILITY_FLOOR / 2
+    assert tied.task == "classification" and tied.name == "logistic+well_ties"
+    desc = tied.save(tmp_path, "facies")
+    np.testing.assert_allclose(load_candidate(desc, tmp_path).predict(Xq, nodes), p, atol=1e-12)
