@@ -8,7 +8,7 @@ __version__ = "0.1.0"
 from .bundle import Bundle, load_bundle, save_bundle  # noqa: E402
 from .checks import check_data, check_files  # noqa: E402
 from .chunked import predict_to_zarr  # noqa: E402
-from .explanations import explain_bundle  # noqa: E402
+from .explanations import contribution_maps, explain_bundle, well_contributions  # noqa: E402
 from .features import FeatureSpec  # noqa: E402
 from .grid import read_grid, read_seismic, sample_at  # noqa: E402
 from .intervals import IntervalCalibration  # noqa: E402
@@ -28,6 +28,7 @@ __all__ = [
     "build_report",
     "check_data",
     "check_files",
+    "contribution_maps",
     "explain_bundle",
     "load_bundle",
     "predict_maps",
@@ -40,6 +41,7 @@ __all__ = [
     "sample_volume",
     "save_bundle",
     "train",
+    "well_contributions",
     "write_maps",
     "__version__",
 ]

@@ -43,6 +43,30 @@ def explain_wells(
     return values, base, wells, features
 
 
+def well_contributions(bundle: Bundle, target: str) -> pd.DataFrame:
+    """Contributions at the training wells as a table: one row per well (``well_id``, ``x``,
+    ``y``), a column per feature and ``kriging_of_wells``, then ``base`` and ``output`` (base
+    plus the contributions: the model's raw output); facies columns are prefixed
+    ``<class>:`` (log-odds)."""
+    values, base, wells, _ = explain_wells(bundle, target)
+    return _contribution_table(bundle, target, values, base, wells)
+
+
+def _contribution_table(bundle: Bundle, target: str, values, base, wells) -> pd.DataFrame:
+    names = bundle.card["features"]["names"]
+    info = bundle.card["targets"][target]
+    table = wells[["well_id", "x", "y"]].copy()
+    for _, k in _class_slices(info):
+        v = values if k is None else values[:, k, :]
+        b = base if k is None else base[:, k]
+        tag = "" if k is None else f"{info['classes'][k]}:"
+        for j, name in enumerate(list(names) + [KRIGING]):
+            table[f"{tag}{name}"] = v[:, j]
+        table[f"{tag}base"] = b
+        table[f"{tag}output"] = b + v.sum(axis=1)
+    return table
+
+
 def contribution_maps(
     bundle: Bundle, grid: xr.Dataset, target: str, chunk: int = CHUNK, z: float | None = None
 ) -> xr.Dataset:
@@ -120,15 +144,9 @@ def explain_bundle(
             plots.importance_chart(
                 imp, target, tmp / f"{target}_importance.png", output_unit(target, info)
             )
-            table = wells[["well_id", "x", "y"]].copy()
+            table = _contribution_table(bundle, target, values, base, wells)
             for label, k in _class_slices(info):
                 v = values if k is None else values[:, k, :]
-                b = base if k is None else base[:, k]
-                tag = "" if k is None else f"{info['classes'][k]}:"
-                for j, name in enumerate(list(names) + [KRIGING]):
-                    table[f"{tag}{name}"] = v[:, j]
-                table[f"{tag}base"] = b
-                table[f"{tag}output"] = b + v.sum(axis=1)
                 stem = target if k is None else f"{target}_{info['classes'][k]}"
                 cols = [n for n in names if np.any(v[:, names.index(n)])]
                 if cols:

@@ -248,3 +248,25 @@ def test_applicability_index_and_flags_equal_a_plain_nearest_neighbour_search(n_
     np.testing.assert_allclose(aoa.index(X), reference, rtol=1e-12)
     np.testing.assert_array_equal(aoa.inside(X), reference <= threshold)
     assert 0.05 < aoa.inside(X).mean() < 0.95
+
+
+def test_well_contributions_in_memory_match_the_written_table_and_the_model(
+    porosity_bundle, tmp_path
+):
+    """The public in-memory table is the one ``explain`` writes, and each well's base plus its
+    contributions is the porosity the bundle's model predicts there (local accuracy)."""
+    from predictor import explain_bundle, load_bundle, well_contributions
+
+    bundle = load_bundle(porosity_bundle)
+    table = well_contributions(bundle, "porosity")
+    wells, features = bundle.training_wells()
+    names = bundle.card["features"]["names"]
+    assert list(table.columns) == ["well_id", "x", "y", *names, KRIGING, "base", "output"]
+    predicted = bundle.models["porosity"].predict(features, wells[["x", "y"]].to_numpy(float))
+    np.testing.assert_allclose(table["output"], predicted, atol=1e-9)
+    np.testing.assert_allclose(table[[*names, KRIGING]].sum(axis=1) + table["base"], predicted)
+    explain_bundle(porosity_bundle, tmp_path / "explained")
+    written = pd.read_csv(
+        tmp_path / "explained" / "porosity_shap_at_wells.csv", dtype={"well_id": str}
+    )
+    pd.testing.assert_frame_equal(written, table.astype({"well_id": str}), check_exact=False)
