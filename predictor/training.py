@@ -1109,6 +1109,9 @@ def _train_target(prep: _Prepared, target: str, options: TrainOptions) -> Target
         )
         if keep:
             chosen = tied.name
+    for row in board:
+        row["chosen"] = row["candidate"] == chosen
+    chosen_row = next(r for r in board if r["chosen"])
     model, oof = oofs[chosen]
     calibration, spread_model, notes = None, None, list(table.notes)
     if vario["pure_nugget"]:
@@ -1119,8 +1122,7 @@ def _train_target(prep: _Prepared, target: str, options: TrainOptions) -> Target
         )
     map_error = None
     if task == "regression":
-        cv = next(r for r in board if r["candidate"] == chosen)["cv"]
-        map_error = _map_error(vario, table, design, prep.map_xy, cv)
+        map_error = _map_error(vario, table, design, prep.map_xy, chosen_row["cv"])
         ratio = map_error["kriging_variance_ratio"]
         calibration, spread_model = _calibrate(
             model, data, oof, ratio, design, attrs, options, target, notes
@@ -1132,16 +1134,12 @@ def _train_target(prep: _Prepared, target: str, options: TrainOptions) -> Target
     map_factors = None
     if task == "classification":
         # no prior shift: drilling chose places by what the seismic sees, so p(facies | seismic)
-        # holds on the
-        # map (covariate shift); shifting the priors raised the map's Brier score in
-        # experiments/field_wide.py
+        # holds on the map (covariate shift); shifting the priors raised the map's Brier score
+        # in experiments/field_wide.py
         proportions = np.array(
             [wide.estimates[wide.recommended]["proportions"][c] for c in classes]
         )
         map_factors = rule_factors(options.facies_map, on_map, proportions)
-    for row in board:
-        row["chosen"] = row["candidate"] == chosen
-    chosen_row = next(r for r in board if r["chosen"])
     folds = design.fold_of(len(y))
     values, _ = contributions(
         final, data.X, data.xy, prep.names, background=data.X, seed=options.seed
