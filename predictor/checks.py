@@ -23,7 +23,7 @@ from .errors import InputError, PredictorWarning
 from .grid import read_seismic, sample_at
 from .io.jsonfile import write_json
 from .io.tables import read_wells
-from .qc import QCReport, numeric_properties, run_qc
+from .qc import QCReport, attribute_label, numeric_properties, run_qc
 from .volume import (
     is_volume,
     map_view,
@@ -119,6 +119,7 @@ def write_check(
         folder.mkdir(parents=True, exist_ok=True)
         wells, grid = check.wells, check.grid
         attribute = next(iter(grid.data_vars))
+        label = attribute_label(grid, attribute)
         props = [
             c for c in ("facies", "porosity", "permeability") if c in wells
         ] or numeric_properties(wells)[:3]
@@ -131,11 +132,14 @@ def write_check(
                     attribute,
                     props,
                     folder / "wells_on_map.png",
+                    label,
                 )
             )
         else:
             written.append(
-                plots.location_maps(wells, grid, attribute, props, folder / "wells_on_map.png")
+                plots.location_maps(
+                    wells, grid, attribute, props, folder / "wells_on_map.png", label
+                )
             )
         for var, bias in check.qc.bias.items():
             at_wells = _at_wells(wells, grid, var)
@@ -143,14 +147,14 @@ def write_check(
                 plots.bias_figure(
                     at_wells,
                     grid[var].to_numpy().ravel(),
-                    var,
+                    attribute_label(grid, var),
                     bias["verdict"],
                     folder / f"bias_{var}.png",
                 )
             )
-        numeric = [c for c in ("porosity", "permeability") if c in wells] + [attribute]
+        numeric = [c for c in ("porosity", "permeability") if c in wells] + [label]
         if "facies" in wells:
-            table = wells.assign(**{attribute: _at_wells(wells, grid, attribute)})
+            table = wells.assign(**{label: _at_wells(wells, grid, attribute)})
             written.append(
                 plots.facies_distributions(table, numeric, folder / "facies_distributions.png")
             )
@@ -161,7 +165,7 @@ def write_check(
             written.append(
                 plots.crossplot(
                     wells,
-                    attribute,
+                    label,
                     _at_wells(wells, grid, attribute),
                     measured,
                     folder / "crossplot.png",

@@ -157,6 +157,7 @@ def explain_bundle(
                         cols,
                         f"{target} {label}".strip(),
                         tmp / f"{stem}_summary.png",
+                        unit=output_unit(target, info),
                     )
                     top = sorted(cols, key=lambda c: -imp.get(c, 0))[:2]
                     for feat in top:

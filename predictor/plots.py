@@ -11,6 +11,7 @@ import matplotlib
 from numpy.typing import ArrayLike
 
 matplotlib.use("Agg")
+import matplotlib.patches  # noqa: E402
 import matplotlib.pyplot as plt  # noqa: E402
 import matplotlib.ticker  # noqa: E402
 import numpy as np  # noqa: E402
@@ -77,15 +78,23 @@ def _category_colours(labels) -> dict:
 
 
 def location_maps(
-    wells: pd.DataFrame, grid: xr.Dataset, attribute: str, properties: list[str], path: str | Path
+    wells: pd.DataFrame,
+    grid: xr.Dataset,
+    attribute: str,
+    properties: list[str],
+    path: str | Path,
+    label: str | None = None,
 ) -> Path:
-    """One panel per well property, wells coloured by it over the attribute map."""
+    """One panel per well property, wells coloured by it over the attribute map (its colour bar
+    named ``label``: the attribute with its units)."""
     n = max(len(properties), 1)
     fig, axes = plt.subplots(1, n, figsize=(5.0 * n, 4.4), squeeze=False, layout="constrained")
     for i, (ax, prop) in enumerate(zip(axes[0], properties, strict=False)):
         im = _background(ax, grid, attribute)
         if i == 0:
-            fig.colorbar(im, ax=ax, shrink=0.7, label=f"{attribute} (background)", location="left")
+            fig.colorbar(
+                im, ax=ax, shrink=0.7, label=f"{label or attribute}, background", location="left"
+            )
         if prop == "facies" or not pd.api.types.is_numeric_dtype(wells[prop]):
             colours = _category_colours(wells[prop].dropna())
             for label, c in colours.items():
@@ -97,6 +106,8 @@ def location_maps(
             if prop == "permeability":
                 values = np.log10(np.where(values > 0, values, np.nan))
                 prop = "log10 permeability (mD)"
+            elif prop == "porosity":
+                prop = "porosity (fraction)"
             sc = ax.scatter(wells.x, wells.y, c=values, cmap="viridis", edgecolor="k", s=36)
             fig.colorbar(sc, ax=ax, shrink=0.7, label=prop, location="bottom")
         ax.set_title(f"wells: {prop}", fontsize=10)
@@ -246,6 +257,11 @@ def _wells_on(
     ax.scatter(wells["x"], wells["y"], s=18, c=fill, edgecolor="k", linewidths=0.8, label="wells")
 
 
+def _factor(value: float, _position=None) -> str:
+    """A ratio as a tick label: 3x, 12x, 150x."""
+    return f"{value:.2g}x" if value < 10 else f"{value:.0f}x"
+
+
 def _fill(values: pd.Series, image=None, colours: dict | None = None, log: bool = False) -> list:
     """Logged values as colours: a class's colour, or the value on an image's colour scale
     (log10 with ``log``); white where there is none."""
@@ -304,14 +320,19 @@ def property_maps(
         q50 = np.log10(q50)
         width = np.log10(maps[f"{target}_q90"]) - np.log10(maps[f"{target}_q10"])
     shown = maps.assign(_q50=q50, _width=width)
-    unit = " (log10 mD)" if log else ""
+    unit = " (log10 mD)" if log else " (fraction)" if target == "porosity" else ""
     im = _background(axes[0], shown, "_q50", cmap="viridis")
     fig.colorbar(im, ax=axes[0], shrink=0.7, location="bottom", label=f"{target} q50{unit}")
     _wells_on(
         axes[0], wells, target, image=im, log=log
     )  # the wells' logged values on the map's scale
     im = _background(axes[1], shown, "_width", cmap="cividis")
-    fig.colorbar(im, ax=axes[1], shrink=0.7, location="bottom", label=f"q90 - q10{unit}")
+    bar = fig.colorbar(im, ax=axes[1], shrink=0.7, location="bottom", label=f"q90 - q10{unit}")
+    if log:  # a width in log10 mD reads as a factor: 1.7 means q90 is about 50 times q10
+        factors = bar.ax.secondary_xaxis("top", functions=(lambda w: 10**w, np.log10))
+        factors.set_xlabel("q90 / q10 (factor)", fontsize=8)
+        factors.xaxis.set_major_formatter(matplotlib.ticker.FuncFormatter(_factor))
+        factors.tick_params(labelsize=7)
     _wells_on(axes[1], wells)
     for ax, title in zip(
         axes,
@@ -402,20 +423,28 @@ def shap_summary(
     title: str,
     path: str | Path,
     max_display: int = 8,
+    unit: str = "",
 ) -> Path:
-    """Beeswarm summary drawn by the shap package."""
+    """Beeswarm summary drawn by the shap package, features named in words, contributions in
+    ``unit`` (the model's raw output)."""
     import shap
 
     explanation = shap.Explanation(
-        values=values, data=X[names].to_numpy(float), feature_names=names
+        values=values,
+        data=X[names].to_numpy(float),
+        feature_names=[describe_feature(n) for n in names],
     )
     shap.plots.beeswarm(
         explanation,
         max_display=max_display,
         show=False,
-        plot_size=(7, 0.4 * min(len(names), max_display) + 2),
+        plot_size=(8, 0.4 * min(len(names), max_display) + 2),
     )
     fig = plt.gcf()
+    fig.axes[0].set_xlabel(
+        "contribution at each well" + (f" ({unit})" if unit else ""), fontsize=10
+    )
+    fig.axes[0].tick_params(axis="y", labelsize=9)
     fig.suptitle(title, fontsize=10)
     return save(fig, path)
 
@@ -493,7 +522,16 @@ def applicability_map(
         vmax=1.2,
         alpha=0.65,
     )
-    _wells_on(ax, wells)
+    ax.legend(
+        handles=[matplotlib.patches.Patch(color="0.35", label="outside the area of applicability")],
+        loc="upper right",
+        fontsize=7,
+        framealpha=0.85,
+    )
+    if "flag_meanings" in maps[target].attrs:
+        _wells_on(ax, wells)
+    else:
+        _wells_on(ax, wells, target, image=im, log=log)
     ax.set_title(
         f"{target}: outside the area of applicability shaded ({outside.mean():.1%} of nodes)",
         fontsize=9,

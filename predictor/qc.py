@@ -137,6 +137,30 @@ def physical_findings(wells: pd.DataFrame, source: str = "wells") -> list[Findin
     return found
 
 
+def _impedance_units(median: float) -> str | None:
+    """The units an impedance's typical magnitude suggests (common practice: about 2e6-2e7 in SI,
+    2e3-2e4 in m/s x g/cm3), or None when neither fits."""
+    if 1e6 <= median <= 3e7:
+        return "kg/(m2 s) (SI)"
+    if 1e3 <= median <= 3e4:
+        return "m/s x g/cm3 (or ft/s x g/cm3)"
+    return None
+
+
+def attribute_label(grid: xr.Dataset, var: str) -> str:
+    """An attribute's name with its units for figure axes: the file's ``units`` when it gives
+    them; for impedance without them, the units its values suggest (said to be guessed)."""
+    units = grid[var].attrs.get("units")
+    if units:
+        return f"{var} ({units})"
+    if attribute_kind(grid, var) == "impedance":
+        values = grid[var].to_numpy()
+        guess = _impedance_units(float(np.nanmedian(values))) if np.isfinite(values).any() else None
+        if guess:
+            return f"{var} ({guess.split(' (')[0]}, by its values)"
+    return var
+
+
 def grid_findings(grid: xr.Dataset) -> list[Finding]:
     """Attributes that must be positive but are not; units hints for impedance."""
     found = []
@@ -165,12 +189,7 @@ def grid_findings(grid: xr.Dataset) -> list[Finding]:
             )
         if kind == "impedance":
             med = float(np.median(finite))
-            if 1e6 <= med <= 3e7:
-                unit = "kg/(m2 s) (SI)"
-            elif 1e3 <= med <= 3e4:
-                unit = "m/s x g/cm3 (or ft/s x g/cm3)"
-            else:
-                unit = None
+            unit = _impedance_units(med)
             msg = (
                 f"attribute {var!r} median {med:.4g} suggests units of {unit}"
                 if unit

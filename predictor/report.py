@@ -681,7 +681,9 @@ def _why(bundle, grid, wells, fig):
         if cols:
             idx = [names.index(c) for c in cols]
             label = t if values.ndim == 2 else f"{t}: class {info['classes'][0]} (log-odds)"
-            plots.shap_summary(v[:, idx], features, cols, label, fig / f"bee_{t}.png")
+            plots.shap_summary(
+                v[:, idx], features, cols, label, fig / f"bee_{t}.png", unit=output_unit(t, info)
+            )
             body += _img(fig / f"bee_{t}.png", f"{label}: contributions at the wells")
         maps = contribution_maps(bundle, grid, t)
         ranked = sorted(

@@ -7,6 +7,7 @@ import xarray as xr
 from scipy import stats as sps
 
 from predictor.qc import (
+    attribute_label,
     bias_test,
     duplicate_findings,
     outlier_findings,
@@ -150,3 +151,24 @@ def test_constant_attribute_is_an_error():
         coords={"x": [0.0, 1, 2], "y": [0.0, 1, 2]},
     )
     assert any(f.check == "constant attribute" for f in grid_findings(grid))
+
+
+def test_attribute_labels_carry_units():
+    # the file's own units win; an impedance without units is labelled with the units its values
+    # suggest (common practice: ~2e6-2e7 kg/(m2 s) in SI, ~2e3-2e4 in m/s x g/cm3), said so
+    coords = {"y": [0.0, 1.0], "x": [0.0, 1.0]}
+    values = np.full((2, 2), 9000.0)
+    grid = xr.Dataset(
+        {
+            "impedance": (("y", "x"), values),
+            "ai": (("y", "x"), values * 1000, {"units": "kg m-2 s-1"}),
+            "coherence": (("y", "x"), values / 1e4),
+        },
+        coords=coords,
+    )
+    assert attribute_label(grid, "ai") == "ai (kg m-2 s-1)"
+    assert attribute_label(grid, "impedance") == "impedance (m/s x g/cm3, by its values)"
+    assert attribute_label(grid.assign(impedance=grid.impedance * 1000), "impedance") == (
+        "impedance (kg/(m2 s), by its values)"
+    )
+    assert attribute_label(grid, "coherence") == "coherence"

@@ -454,6 +454,10 @@ def test_volume_demo_runs_end_to_end_and_its_report_follows_the_moved_folder(tmp
         "bundle/model_card.json",
     ):
         assert (tmp_path / "demo" / name).exists(), name
+    # like the map demo's, the report says its data are invented and compares with the truth
+    report = (tmp_path / "demo" / "report.html").read_text()
+    assert "The data of this report are invented" in report
+    assert "against the truth of this synthetic volume" in report
     # the bundle recorded its input inside the temporary folder the demo was built in
     assert (
         main(
