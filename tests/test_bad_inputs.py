@@ -340,6 +340,7 @@ def test_bad_bundle_inputs(case, porosity_bundle, tmp_path, capsys, monkeypatch)
         assert (tmp_path / "OUT" / "maps.csv").read_text() == "earlier output"
 
 
+@pytest.mark.slow
 def test_common_variations_work(tmp_path):
     # BOM, CRLF, upper-case X/Y, semicolons with decimal commas, an extra unused column, and 0 mD
     # (below detection) in permeability, which is not a target here and so must not block training

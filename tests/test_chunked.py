@@ -87,6 +87,7 @@ def test_tiles_with_threads_equal_in_memory(bundle, in_memory, tmp_path):
         predict_to_zarr(bundle, GRID_NC, tmp_path / "again.zarr", tile=60)
 
 
+@pytest.mark.slow
 def test_dask_local_cluster_with_two_workers_equals_local(bundle, in_memory, tmp_path):
     out = tmp_path / "maps.zarr"
     assert (
@@ -216,6 +217,7 @@ def _wider_grid(path, times):
     return write_netcdf(wide, path)
 
 
+@pytest.mark.slow
 def test_dask_workers_write_their_own_tiles_and_the_client_stays_flat(bundle, tmp_path):
     import tracemalloc
 

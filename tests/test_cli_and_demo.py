@@ -6,6 +6,7 @@ import sys
 
 import numpy as np
 import pandas as pd
+import pytest
 import xarray as xr
 from conftest import DEMO, write
 
@@ -100,6 +101,7 @@ def test_bad_input_is_one_line_exit_2(tmp_path):
     assert not list(tmp_path.glob(".*part"))
 
 
+@pytest.mark.slow
 def test_demo_runs_and_declusters(tmp_path, capsys):
     assert main(["demo", "--out", str(tmp_path / "out")]) == 0
     out = capsys.readouterr().out

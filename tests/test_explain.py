@@ -157,6 +157,7 @@ def test_lightgbm_contributions_equal_brute_force_shapley_values():
         assert base[i] == pytest.approx(_path_value(tree, x, set()))
 
 
+@pytest.mark.slow
 def test_permutation_values_equal_shap_exact_explainer_for_two_features():
     # reference library: shap's exact explainer with the same independent background
     rng = np.random.default_rng(5)

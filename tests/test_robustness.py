@@ -81,6 +81,7 @@ def _files(folder):
     }
 
 
+@pytest.mark.slow
 def test_same_inputs_and_seed_give_identical_files_at_1_and_2_threads(tmp_path):
     outputs = []
     for run, threads in enumerate((1, 2, 1)):

@@ -104,6 +104,7 @@ def test_maps_csv_columns_and_ordering(bundle, tmp_path):
     assert {"sand", "shale"} <= set(maps.facies) <= {"sand", "shale", "silt"}
 
 
+@pytest.mark.slow
 def test_saved_bundle_predicts_what_was_trained(bundle, tmp_path):
     grid = read_grid(GRID)
     wells = read_wells(WELLS)

@@ -191,6 +191,7 @@ def test_volume_model_maps_closer_to_the_truth_than_the_linear_baseline(bundle, 
     assert b.card["targets"]["porosity"]["n_wells"] == 25
 
 
+@pytest.mark.slow
 def test_volume_outputs_round_trip_through_netcdf_zarr_segy_and_csv(bundle, files, tmp_path):
     vol = read_seismic(files["impedance.nc"])
     with pytest.warns(Warning):
@@ -220,6 +221,7 @@ def test_volume_outputs_round_trip_through_netcdf_zarr_segy_and_csv(bundle, file
     assert row["facies"] == ["sand", "shale", "silt"][int(maps.facies[k, i, j])]
 
 
+@pytest.mark.slow
 def test_tiled_volume_equals_in_memory_locally_and_on_two_dask_workers(bundle, files, tmp_path):
     vol = read_seismic(
         files["impedance.sgy"], z_domain="depth", name="impedance"
@@ -383,6 +385,7 @@ def test_bad_volume_predictions(case, files, bundle, tmp_path, capsys, monkeypat
     _check(tmp_path, capsys, monkeypatch, argv, PREDICT_CASES[case][1])
 
 
+@pytest.mark.slow
 def test_explain_and_report_show_a_volume_at_the_wells_middle_depth(
     bundle, files, tmp_path, capsys
 ):
@@ -434,6 +437,7 @@ def test_explain_and_report_show_a_volume_at_the_wells_middle_depth(
     )
 
 
+@pytest.mark.slow
 def test_volume_demo_runs_end_to_end_and_its_report_follows_the_moved_folder(tmp_path):
     import warnings
 
