@@ -136,6 +136,7 @@ def smooth_store(
         8, min(512, block_values // (depth * max(shape[a1], shape[a2])))
     )  # rows or columns per block
     root = zarr.open_group(str(store), mode="w", zarr_format=2)
+    root.attrs["radii"] = [float(r) for r in radii]  # tiles leave these out of their halo
     chunks = tuple(
         min(n, step) if d in (first, second) else n for d, n in zip(dims, shape, strict=True)
     )
@@ -311,10 +312,11 @@ def halo_cells(
     return hy, hx
 
 
-def wide_radii(spec: FeatureSpec, dx: float, dy: float) -> list[float]:
-    """Context radii whose halo would exceed ``WIDE_HALO`` nodes: a tiled map smooths them
-    beforehand."""
-    return [r for r in spec.context_radii if TRUNCATE * r / min(dx, dy) > WIDE_HALO]
+def wide_radii(spec: FeatureSpec, dx: float, dy: float, max_halo: int | None = None) -> list[float]:
+    """Context radii whose halo would exceed ``max_halo`` nodes (at most ``WIDE_HALO``): a tiled
+    map or volume smooths them beforehand."""
+    limit = WIDE_HALO if max_halo is None else min(max_halo, WIDE_HALO)
+    return [r for r in spec.context_radii if TRUNCATE * r / min(dx, dy) > limit]
 
 
 def location_features(names: list[str]) -> list[str]:

@@ -289,7 +289,7 @@ def test_wide_context_radius_is_smoothed_beforehand_and_tiles_still_match(tmp_pa
     spec = load_bundle_spec(folder)
     monkeypatch.setattr(features, "WIDE_HALO", 50)
     assert features.wide_radii(spec, 25.0, 25.0) == [1500.0]
-    assert max(halo(grid, spec, presmoothed=True)) < 50 < max(halo(grid, spec))
+    assert max(halo(grid, spec, [1500.0])) < 50 < max(halo(grid, spec))
     with pytest.warns(PredictorWarning):
         predict_to_zarr(folder, GRID_NC, tmp_path / "maps.zarr", tile=32)
     tiled = xr.open_zarr(tmp_path / "maps.zarr").load()

@@ -271,7 +271,7 @@ def test_wide_lateral_radius_of_a_volume_is_smoothed_beforehand_and_tiles_still_
         ref = predict_maps(bundle, vol)
     spec = load_bundle(bundle).feature_spec
     monkeypatch.setattr(features, "WIDE_HALO", 10)
-    assert max(halo(vol, spec, presmoothed=True)) < 10 < max(halo(vol, spec))
+    assert max(halo(vol, spec, features.wide_radii(spec, 25.0, 25.0))) < 10 < max(halo(vol, spec))
     with pytest.warns(Warning):
         predict_to_zarr(bundle, files["impedance.nc"], tmp_path / "v.zarr", tile=12)
     tiled = xr.open_zarr(tmp_path / "v.zarr").load()
@@ -280,6 +280,19 @@ def test_wide_lateral_radius_of_a_volume_is_smoothed_beforehand_and_tiles_still_
             tiled[var].to_numpy(), ref[var].to_numpy(), rtol=1e-10, atol=1e-12, err_msg=var
         )
     assert not list(tmp_path.glob(".v.zarr.smoothed.*"))
+
+
+def test_radii_whose_halo_exceeds_half_a_volume_tile_are_smoothed_beforehand(files):
+    # the plain command's radii on 25 m traces (halo = 4 sd + 1 traces, TRUNCATE of
+    # scipy.ndimage): 75 m needs 13 traces, 405 m 66, 1621 m 260; a volume tile of 57 traces
+    # keeps only the first in its halo, a map tile of 512 nodes the first two
+    from predictor.chunked import _wide
+    from predictor.features import FeatureSpec
+
+    vol = read_seismic(files["impedance.nc"])
+    spec = FeatureSpec(["impedance"], context_radii=[75.0, 405.0, 1621.0])
+    assert _wide(vol, spec, 57) == [405.0, 1621.0]
+    assert _wide(vol, spec, 512) == [1621.0]
 
 
 def _samples(files, tmp_path, edit, name="w.csv"):
