@@ -580,6 +580,43 @@ def field_wide_cdfs(summary: dict, target: str, path: str | Path, log: bool = Fa
     return save(fig, path)
 
 
+def observed_vs_predicted(
+    oof: pd.DataFrame, target: str, path: str | Path, log: bool = False
+) -> Path:
+    """Each well's out-of-fold prediction against its logged value (permeability in log10 mD),
+    coloured by fold, with the 1:1 line and the declustering-weighted RMSE."""
+    observed = oof[f"{target}_observed"].to_numpy(float)
+    predicted = oof[f"{target}_predicted"].to_numpy(float)
+    if log:
+        with np.errstate(divide="ignore", invalid="ignore"):
+            observed = np.where(observed > 0, np.log10(observed), np.nan)
+            predicted = np.where(predicted > 0, np.log10(predicted), np.nan)
+    ok = np.isfinite(observed) & np.isfinite(predicted)
+    unit = " (log10 mD)" if log else " (fraction)" if target == "porosity" else ""
+    rmse = np.sqrt(np.average((predicted - observed)[ok] ** 2, weights=oof["weight"][ok]))
+    fig, ax = plt.subplots(figsize=(4.8, 4.4), layout="constrained")
+    lo, hi = np.nanmin([observed[ok], predicted[ok]]), np.nanmax([observed[ok], predicted[ok]])
+    ax.plot([lo, hi], [lo, hi], color="black", lw=0.8, ls="--", label="1:1")
+    folds = oof["fold"].to_numpy()
+    for k, fold in enumerate(np.unique(folds)):
+        sel = ok & (folds == fold)
+        ax.scatter(
+            observed[sel],
+            predicted[sel],
+            s=20,
+            color=matplotlib.colormaps["tab10"](k % 10),
+            edgecolor="k",
+            linewidths=0.4,
+            label=f"fold {fold}",
+        )
+    ax.set_xlabel(f"logged {target}{unit}")
+    ax.set_ylabel(f"predicted out of fold{unit}")
+    ax.set_aspect("equal", adjustable="datalim")
+    ax.set_title(f"{target}: wells held out, rmse {rmse:.3g} (declustered)", fontsize=10)
+    ax.legend(fontsize=7, loc="upper left")
+    return save(fig, path)
+
+
 def reliability_diagram(
     observed: np.ndarray,
     proba: np.ndarray,

@@ -386,6 +386,13 @@ def _leaderboard(bundle, fig):
             )
             chosen = i if r["chosen"] else chosen
         plots.leaderboard_chart(info["leaderboard"], key, t, fig / f"board_{t}.png")
+        if info["task"] == "regression" and (bundle.folder / t / "out_of_fold.csv").exists():
+            plots.observed_vs_predicted(
+                bundle.out_of_fold(t),
+                t,
+                fig / f"observed_{t}.png",
+                log=info.get("transform") == "log10",
+            )
         if info["task"] == "classification" and (bundle.folder / t / "out_of_fold.csv").exists():
             oof = bundle.out_of_fold(t)
             proba = oof[[f"{t}_prob_{c}" for c in info["classes"]]].to_numpy()
@@ -401,11 +408,18 @@ def _leaderboard(bundle, fig):
             f"<h3>{html.escape(t)}</h3><p class='small'>{html.escape(info['cv_method'])}."
             " Selection: the blend is kept unless a single candidate's mean per-well loss (squared"
             " error, or log-loss for classes) is lower by more than two standard errors of the"
-            " paired difference; well ties are added when they beat the chosen model by one. The"
-            " standard error column is that of each candidate's mean loss.</p>"
+            " paired difference; well ties are added when they beat the chosen model by one (for"
+            " classes: when their log-loss is lower at all). The standard error column is that of"
+            " each candidate's mean loss.</p>"
             + _table(pd.DataFrame(rows), chosen)
             + _img(fig / f"board_{t}.png", f"{t}: matched vs random CV")
         )
+        if (fig / f"observed_{t}.png").exists():
+            body += _img(
+                fig / f"observed_{t}.png",
+                f"{t}: logged against predicted at each well, held out in the chosen model's"
+                f" matched CV (the table per well: bundle/{t}/out_of_fold.csv)",
+            )
         if (fig / f"reliability_{t}.png").exists():
             body += _img(
                 fig / f"reliability_{t}.png",

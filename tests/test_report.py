@@ -99,3 +99,28 @@ def test_report_has_the_practitioners_plots_and_tables(report):
     assert "least-squares line per facies" in text  # the attribute-property cross-plot
     assert "experimental semivariograms at the wells" in text
     assert "against the best baseline" in text and "median width of [q10, q90] on the map" in text
+    assert "logged against predicted at each well" in text  # the out-of-fold cross-plot
+
+
+def test_observed_vs_predicted_states_the_declustered_rmse(tmp_path, monkeypatch):
+    # the plot's RMSE is the declustering-weighted one of the out-of-fold table: hand-worked,
+    # residuals 0.1 and 0.3 with weights 3 and 1 give sqrt((3 * 0.01 + 0.09) / 4) = 0.1732
+    import pandas as pd
+
+    from predictor import plots
+
+    oof = pd.DataFrame(
+        {
+            "porosity_observed": [0.2, 0.1],
+            "porosity_predicted": [0.3, 0.4],
+            "fold": [1, 2],
+            "weight": [3.0, 1.0],
+        }
+    )
+    titles = []
+    save = plots.save
+    monkeypatch.setattr(
+        plots, "save", lambda fig, path: titles.append(fig.axes[0].get_title()) or save(fig, path)
+    )
+    plots.observed_vs_predicted(oof, "porosity", tmp_path / "o.png")
+    assert "rmse 0.173 " in titles[0] and (tmp_path / "o.png").stat().st_size > 0
