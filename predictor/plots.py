@@ -83,17 +83,21 @@ def location_maps(
     attribute: str,
     properties: list[str],
     path: str | Path,
-    label: str | None = None,
+    background_label: str | None = None,
 ) -> Path:
     """One panel per well property, wells coloured by it over the attribute map (its colour bar
-    named ``label``: the attribute with its units)."""
+    named ``background_label``: the attribute with its units)."""
     n = max(len(properties), 1)
     fig, axes = plt.subplots(1, n, figsize=(5.0 * n, 4.4), squeeze=False, layout="constrained")
     for i, (ax, prop) in enumerate(zip(axes[0], properties, strict=False)):
         im = _background(ax, grid, attribute)
         if i == 0:
             fig.colorbar(
-                im, ax=ax, shrink=0.7, label=f"{label or attribute}, background", location="left"
+                im,
+                ax=ax,
+                shrink=0.7,
+                label=f"{background_label or attribute}, background",
+                location="left",
             )
         if prop == "facies" or not pd.api.types.is_numeric_dtype(wells[prop]):
             colours = _category_colours(wells[prop].dropna())
@@ -257,6 +261,11 @@ def _wells_on(
     ax.scatter(wells["x"], wells["y"], s=18, c=fill, edgecolor="k", linewidths=0.8, label="wells")
 
 
+def _unit(target: str, log: bool = False) -> str:
+    """The unit a target is drawn in, for axis and colour-bar labels."""
+    return " (log10 mD)" if log else " (fraction)" if target == "porosity" else ""
+
+
 def _factor(value: float, _position=None) -> str:
     """A ratio as a tick label: 3x, 12x, 150x."""
     return f"{value:.2g}x" if value < 10 else f"{value:.0f}x"
@@ -320,7 +329,7 @@ def property_maps(
         q50 = np.log10(q50)
         width = np.log10(maps[f"{target}_q90"]) - np.log10(maps[f"{target}_q10"])
     shown = maps.assign(_q50=q50, _width=width)
-    unit = " (log10 mD)" if log else " (fraction)" if target == "porosity" else ""
+    unit = _unit(target, log)
     im = _background(axes[0], shown, "_q50", cmap="viridis")
     fig.colorbar(im, ax=axes[0], shrink=0.7, location="bottom", label=f"{target} q50{unit}")
     _wells_on(
@@ -592,7 +601,7 @@ def observed_vs_predicted(
             observed = np.where(observed > 0, np.log10(observed), np.nan)
             predicted = np.where(predicted > 0, np.log10(predicted), np.nan)
     ok = np.isfinite(observed) & np.isfinite(predicted)
-    unit = " (log10 mD)" if log else " (fraction)" if target == "porosity" else ""
+    unit = _unit(target, log)
     rmse = np.sqrt(np.average((predicted - observed)[ok] ** 2, weights=oof["weight"][ok]))
     fig, ax = plt.subplots(figsize=(4.8, 4.4), layout="constrained")
     lo, hi = np.nanmin([observed[ok], predicted[ok]]), np.nanmax([observed[ok], predicted[ok]])
@@ -819,7 +828,7 @@ def _shown(maps: xr.Dataset, target: str, log: bool) -> tuple[xr.DataArray, dict
         return codes, {"cmap": cmap, "vmin": -0.5, "vmax": len(classes) - 0.5}, target, colours
     if log:
         values = np.log10(values)
-    unit = " (log10 mD)" if log else " (fraction)" if target == "porosity" else ""
+    unit = _unit(target, log)
     lo, hi = np.nanquantile(values.to_numpy(), [0.01, 0.99])
     return values, {"cmap": "viridis", "vmin": lo, "vmax": hi}, f"{target} q50{unit}", None
 

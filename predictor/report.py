@@ -418,7 +418,7 @@ def _leaderboard(bundle, fig):
             body += _img(
                 fig / f"observed_{t}.png",
                 f"{t}: logged against predicted at each well, held out in the chosen model's"
-                f" matched CV (the table per well: bundle/{t}/out_of_fold.csv)",
+                f" matched CV (the table per well: {bundle.folder.name}/{t}/out_of_fold.csv)",
             )
         if (fig / f"reliability_{t}.png").exists():
             body += _img(
