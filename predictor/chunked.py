@@ -15,6 +15,8 @@ bundle and the grid and write beside the output store (one shared file system).
 
 from __future__ import annotations
 
+import ctypes
+import ctypes.util
 import functools
 import os
 import tempfile
@@ -142,6 +144,7 @@ def write_tile(
     the client never holds map data.  Tiles match the store's chunks: writers never overlap."""
     tile, part, outside = predict_tile(folder, grid_path, tile, z_domain, exceed, smoothed)
     if part is None:
+        _release_freed_memory()
         return tile, False, False
     grid = _open(grid_path, z_domain)
     ay, ax = lateral_axes(grid)
@@ -154,7 +157,28 @@ def write_tile(
     if "z" in grid.dims:
         region["z"] = slice(0, grid.sizes["z"])
     part.to_zarr(store, region=region, zarr_format=2)
+    del part
+    _release_freed_memory()
     return tile, True, outside
+
+
+def _release_freed_memory() -> None:
+    """Give the memory a finished tile freed back to the OS.  glibc keeps freed blocks for reuse,
+    and with tiles on several threads they fragment: on the 48 M-sample volume the resident size
+    crept up by 0.25 GB over the first ten tiles."""
+    if _LIBC is not None:
+        _LIBC.malloc_trim(0)
+
+
+def _glibc():
+    try:
+        libc = ctypes.CDLL(ctypes.util.find_library("c") or "libc.so.6")
+        return libc if hasattr(libc, "malloc_trim") else None
+    except OSError:  # not glibc (macOS, Windows, musl): nothing to trim
+        return None
+
+
+_LIBC = _glibc()
 
 
 def _open(grid_path: str, z_domain: str | None):

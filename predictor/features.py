@@ -387,7 +387,10 @@ def features_at_samples(
 def feature_matrix(features: xr.Dataset, names: list[str]) -> tuple[np.ndarray, np.ndarray]:
     """Flattened features at every node: (matrix of shape (n_valid, n_features), valid mask of the
     grid)."""
-    stack = np.stack([features[n].to_numpy().ravel() for n in names], axis=1)
+    first = features[names[0]]
+    stack = np.empty((first.size, len(names)))
+    for j, name in enumerate(names):  # column by column: no second copy of every feature at once
+        stack.reshape(*first.shape, len(names))[..., j] = features[name].to_numpy()
     valid = np.all(np.isfinite(stack), axis=1)
     return (stack if valid.all() else stack[valid]), valid
 

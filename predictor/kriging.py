@@ -24,7 +24,9 @@ from scipy.spatial.distance import cdist
 from .errors import ModelError
 from .variogram import KINDS, VariogramModel, auto_variogram
 
-CELLS_PER_CHUNK = 4_000_000  # nodes x wells of covariances held at once (32 MB)
+# nodes x wells of covariances held at once (2 MB): the covariance's few passes over it stay in
+# cache (a 2000 x 2000 map's kriging ran a fifth faster than with 32 MB chunks)
+CELLS_PER_CHUNK = 250_000
 GLOBAL_WELLS = (
     1500  # above this many wells, a moving neighbourhood (the global system grows as n^3)
 )

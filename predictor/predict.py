@@ -150,11 +150,13 @@ def predict_maps(
         features, grid = features.isel(interior), grid.isel(interior)
     names = card["features"]["names"]
     matrix, valid = feature_matrix(features, names)
+    dims, shape = features[names[0]].dims, features[names[0]].shape
+    del features  # the matrix holds what the models need; a large map should not keep both
     if not valid.any():
         raise NoValidNodes(
             f"grid {grid.attrs.get('source', '')}: no node has every feature the model needs"
         )
-    X = pd.DataFrame(matrix, columns=names)
+    X = pd.DataFrame(matrix, columns=names, copy=False)  # no second copy of the matrix
     xx, yy = node_xy(grid)
     xy = np.column_stack([xx[valid], yy[valid]])
     outside = np.zeros(len(X), bool)
@@ -175,9 +177,6 @@ def predict_maps(
             PredictorWarning,
             stacklevel=2,
         )
-    dims = features[names[0]].dims
-    shape = features[names[0]].shape
-    del features  # the matrix holds what the models need; a large map should not keep both
 
     chunks = [slice(s, s + chunk_rows) for s in range(0, len(X), chunk_rows)]
     work = lambda rows: _node_values(bundle, X.iloc[rows].reset_index(drop=True), xy[rows], exceed)  # noqa: E731

@@ -52,14 +52,17 @@ class VariogramModel:
         wells, plus the nugget at distance 0.
         """
         h = np.asarray(h, dtype=float)
-        c = h / self.range
         if self.kind == "spherical":  # 1 - 1.5 r + 0.5 r^3 for r < 1, else 0
+            c = h / self.range
             np.minimum(c, 1.0, out=c)
             c *= c * c * 0.5 - 1.5
             c += 1.0
-        elif self.kind in ("exponential", "gaussian"):
-            if self.kind == "gaussian":
-                c *= c
+        elif self.kind == "exponential":
+            c = h * (-3.0 / self.range)
+            np.exp(c, out=c)
+        elif self.kind == "gaussian":
+            c = h / self.range
+            c *= c
             c *= -3.0
             np.exp(c, out=c)
         else:
