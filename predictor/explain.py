@@ -7,6 +7,8 @@ accuracy, Lundberg & Lee 2017).  Each part of a model is explained in its own ex
   output (the property itself, or per-class log-odds for facies);
 - linear and logistic models: exact interventional SHAP with the training mean as background,
   ``coef * (x - mean)`` (per-class logits for logistic regression);
+- the spline logistic (one smooth curve per feature, added in log-odds): each feature's curve
+  at the node minus its weighted mean over the training wells, exact for an additive model;
 - kriging (of the wells, or of residuals in regression kriging and well ties): one column,
   ``kriging_of_wells``: the part of the map that comes from well values by location;
 - blends and well ties: the sum of their parts' contributions, weighted as in the model;

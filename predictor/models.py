@@ -36,6 +36,7 @@ from numpy.typing import ArrayLike
 from sklearn.base import BaseEstimator, clone
 from sklearn.linear_model import LogisticRegression
 from sklearn.model_selection import GroupKFold
+from sklearn.preprocessing import SplineTransformer
 
 from .kriging import OrdinaryKriging
 from .shapley import permutation_contributions, place
@@ -126,6 +127,27 @@ def _standardise(model, data: FitData) -> np.ndarray:
     model.mean_ = X.mean(axis=0)
     model.scale_ = np.where(X.std(axis=0) > 0, X.std(axis=0), 1.0)
     return (X - model.mean_) / model.scale_
+
+
+def _multinomial(Z: np.ndarray, data: FitData) -> tuple[np.ndarray, np.ndarray]:
+    """Weighted multinomial logistic regression of the class codes on the columns of ``Z``:
+    coefficients (n_classes, n_columns) and intercepts, with a row for every class of the
+    target, so a class absent from these wells (a CV fold, say) gets about zero probability."""
+    k = len(data.classes)
+    present = np.unique(data.y)
+    coef, intercept = np.zeros((k, Z.shape[1])), np.full(k, -30.0)
+    if present.size == 1:
+        intercept[present[0]] = 0.0
+        return coef, intercept
+    model = LogisticRegression(C=1.0, max_iter=2000)
+    model.fit(Z, data.y, sample_weight=data.weights)
+    if present.size == 2:  # scikit-learn keeps one row for two classes
+        coef[present[1]] = model.coef_[0]
+        intercept[present] = [0.0, model.intercept_[0]]
+    else:
+        coef[present] = model.coef_
+        intercept[present] = model.intercept_
+    return coef, intercept
 
 
 LOADERS: dict[str, type] = {}  # kind -> candidate class, filled as the classes are defined
@@ -238,22 +260,7 @@ class Logistic(Candidate):
         self.name = name
 
     def fit(self, data: FitData) -> Logistic:
-        Z = _standardise(self, data)
-        k = len(data.classes)
-        present = np.unique(data.y)
-        self.coef_ = np.zeros((k, Z.shape[1]))
-        self.intercept_ = np.full(k, -30.0)  # classes absent from training get ~zero probability
-        if present.size == 1:
-            self.intercept_[present[0]] = 0.0
-            return self
-        model = LogisticRegression(C=1.0, max_iter=2000)
-        model.fit(Z, data.y, sample_weight=data.weights)
-        if present.size == 2:  # scikit-learn keeps one row for two classes
-            self.coef_[present[1]] = model.coef_[0]
-            self.intercept_[present] = [0.0, model.intercept_[0]]
-        else:
-            self.coef_[present] = model.coef_
-            self.intercept_[present] = model.intercept_
+        self.coef_, self.intercept_ = _multinomial(_standardise(self, data), data)
         return self
 
     def _z(self, X) -> np.ndarray:
@@ -291,6 +298,96 @@ class Logistic(Candidate):
     def load(cls, desc: dict, folder: Path) -> Logistic:
         model = cls(desc["features"], desc["name"])
         for key in ("mean", "scale", "coef", "intercept"):
+            setattr(model, f"{key}_", np.array(desc[key]))
+        return model
+
+
+class SplineLogistic(Candidate):
+    """Additive logistic regression: each standardised feature through a cubic B-spline basis
+    (scikit-learn's SplineTransformer, knots evenly spread over the training range, linear beyond
+    it), then the weighted multinomial fit of :class:`Logistic` on the basis.  Each class's
+    log-odds is a sum of one smooth curve per feature (a generalised additive model; Hastie &
+    Tibshirani 1990), so it bends where facies change faster than linearly with the seismic yet
+    keeps the logistic's steady extrapolation, and its contributions are exact.
+
+    Five knots with the default penalty (C = 1) were chosen on the tuning fields of
+    experiments/field_wide.py (facies trained alone, each variant fitted on all wells and
+    scored on the map): 0.90 x the logistic's Brier score on average, against 0.93 with 3
+    knots, 0.91 with 7, 0.95 with C = 10, 1.15 with C = 0.1 and 0.98 for the linear logistic on
+    the same features.
+    """
+
+    kind = "spline_logistic"
+    task = "classification"
+    KNOTS, DEGREE = 5, 3
+
+    def __init__(self, features: list[str], name: str = "logistic_splines"):
+        self.features = features
+        self.name = name
+
+    def fit(self, data: FitData) -> SplineLogistic:
+        Z = _standardise(self, data)
+        low, high = Z.min(axis=0), Z.max(axis=0)
+        high = np.where(high > low, high, low + 1.0)  # a constant feature: knots must differ
+        self.knots_, self.splines_ = np.linspace(low, high, self.KNOTS), None
+        B = self._basis(Z)
+        self.coef_, self.intercept_ = _multinomial(B, data)
+        # each feature's curve is centred on its weighted training mean, so the contributions
+        # say how far a node's value moves the log-odds from that of an average well
+        terms = self._terms(B)
+        self.centre_ = np.average(terms, axis=0, weights=data.weights)
+        return self
+
+    def _basis(self, Z: np.ndarray) -> np.ndarray:
+        if getattr(self, "splines_", None) is None:  # built from the stored knots once
+            self.splines_ = SplineTransformer(
+                knots=self.knots_, degree=self.DEGREE, extrapolation="linear"
+            ).fit(self.knots_)
+        return self.splines_.transform(Z)
+
+    def _terms(self, B: np.ndarray) -> np.ndarray:
+        """Per-class log-odds of each feature's curve: shape (n, n_classes, n_features)."""
+        per = B.shape[1] // len(self.features)
+        parts = B.reshape(len(B), len(self.features), per)
+        coef = self.coef_.reshape(len(self.coef_), len(self.features), per)
+        return np.einsum("nfb,kfb->nkf", parts, coef)
+
+    def _z(self, X) -> np.ndarray:
+        return (np.asarray(X[self.features], float) - self.mean_) / self.scale_
+
+    def raw_output(self, X: ArrayLike, xy: ArrayLike | None = None) -> np.ndarray:
+        return self._basis(self._z(X)) @ self.coef_.T + self.intercept_
+
+    def predict(self, X: ArrayLike, xy: ArrayLike | None = None) -> np.ndarray:
+        return _softmax(self.raw_output(X))
+
+    def contributions(
+        self,
+        X: ArrayLike,
+        xy: ArrayLike,
+        names: list[str],
+        background: np.ndarray | None = None,
+        seed: int = 0,
+    ) -> tuple[np.ndarray, np.ndarray]:
+        terms = self._terms(self._basis(self._z(X))) - self.centre_  # exact: the model is additive
+        base = self.intercept_ + self.centre_.sum(axis=1)
+        return place(terms, self.features, names), np.tile(base, (len(X), 1))
+
+    def save(self, folder: Path, stem: str) -> dict:
+        return {
+            "type": self.kind,
+            "name": self.name,
+            "features": self.features,
+            **{
+                key: getattr(self, f"{key}_").tolist()
+                for key in ("mean", "scale", "knots", "coef", "intercept", "centre")
+            },
+        }
+
+    @classmethod
+    def load(cls, desc: dict, folder: Path) -> SplineLogistic:
+        model = cls(desc["features"], desc["name"])
+        for key in ("mean", "scale", "knots", "coef", "intercept", "centre"):
             setattr(model, f"{key}_", np.array(desc[key]))
         return model
 
@@ -896,10 +993,13 @@ def out_of_fold(
 
 
 BASELINES = ("linear", "logistic", "ordinary_kriging", "regression_kriging")
-MAP_ONLY = (
-    "ordinary_kriging",
-    "regression_kriging",
-)  # kriging of a 2-D map; not offered for volumes
+# not offered for volumes: kriging of a 2-D map; the spline logistic was measured on maps only
+MAP_ONLY = ("ordinary_kriging", "regression_kriging", "logistic_splines")
+# not offered for maps: the spline logistic on every feature holds the linear one within it
+# and replaced it there.  On the tuning fields of experiments/field_wide.py the linear one on
+# every feature took the blend on strongly preferential drilling (90 % sand at the wells, 4 % on
+# the map) and mapped 1.44 x the logistic's Brier score; without it the worst was 1.18 x
+VOLUME_ONLY = ("logistic_all_features",)
 
 
 def leaderboard_candidates(
@@ -918,7 +1018,7 @@ def leaderboard_candidates(
     facies); ``monotone``: per-feature directions for a constrained LightGBM beside the free one.
     """
     if task == "classification":
-        out = [Logistic(attrs), LightGBM("classification", names)]
+        out = [Logistic(attrs), LightGBM("classification", names), SplineLogistic(names)]
         if names != attrs:
             out += [
                 Logistic(names, "logistic_all_features"),
@@ -932,7 +1032,7 @@ def leaderboard_candidates(
             out.append(LightGBM("regression", names, "lightgbm_monotone", monotone=monotone))
         if facies_mixture:
             out.append(FaciesMixture(names, member_features=attrs))
-    return [c for c in out if not (volume and c.name in MAP_ONLY)]
+    return [c for c in out if c.name not in (MAP_ONLY if volume else VOLUME_ONLY)]
 
 
 def load_candidate(desc: dict, folder: Path) -> Candidate:

@@ -27,6 +27,7 @@ from predictor.models import (
     Linear,
     Logistic,
     RegressionKriging,
+    SplineLogistic,
     WellTies,
 )
 
@@ -67,6 +68,7 @@ def fitted():
         "well_ties": WellTies(LightGBM("regression", names)).fit(reg),
         "lightgbm_classifier": LightGBM("classification", names).fit(cls),
         "logistic": Logistic(names).fit(cls),
+        "spline_logistic": SplineLogistic(names).fit(cls),
         "classifier_blend": (
             Blend([Logistic(names), LightGBM("classification", names)], [0.4, 0.6]).fit(cls)
         ),
@@ -87,6 +89,7 @@ def fitted():
         "well_ties",
         "lightgbm_classifier",
         "logistic",
+        "spline_logistic",
         "classifier_blend",
         "facies_well_ties",
     ],

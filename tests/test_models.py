@@ -12,6 +12,7 @@ from predictor.models import (
     LightGBM,
     Linear,
     Logistic,
+    SplineLogistic,
     blend_weights,
     load_candidate,
 )
@@ -76,6 +77,7 @@ def test_save_and_load_predict_identically(tmp_path):
         Linear(["impedance"]).fit(data),
         LightGBM("regression", ["impedance", "other"]).fit(data),
         Logistic(["impedance"]).fit(cls),
+        SplineLogistic(["impedance", "other"]).fit(cls),
         LightGBM("classification", ["impedance"]).fit(cls),
         FaciesMixture(["impedance"]).fit(mixture_data),
         Blend([Linear(["impedance"]), LightGBM("regression", ["impedance"])], [0.3, 0.7]).fit(data),
@@ -95,6 +97,62 @@ def test_logistic_handles_classes_missing_from_a_fold():
     proba = model.predict(data.X)
     assert proba.shape == (80, 3) and np.all(proba[:, 2] < 1e-6)
     np.testing.assert_allclose(proba.sum(axis=1), 1)
+
+
+def test_spline_logistic_matches_scikit_learn_pipeline():
+    """Reference library: scikit-learn's StandardScaler -> SplineTransformer (5 uniform knots
+    over the training range, cubic, linear beyond it) -> LogisticRegression(C=1) on the same
+    weighted wells gives the same probabilities, inside and beyond the training range."""
+    from sklearn.linear_model import LogisticRegression
+    from sklearn.pipeline import make_pipeline
+    from sklearn.preprocessing import SplineTransformer, StandardScaler
+
+    data = _data(150, seed=5)
+    imp = data.X["impedance"].to_numpy()
+    codes = (imp > 8000).astype(int) + (imp > 10500)
+    weights = np.random.default_rng(5).uniform(0.5, 2.0, 150)
+    cls = FitData(data.X, codes, weights, data.xy, data.groups, ["a", "b", "c"])
+    ours = SplineLogistic(["impedance", "other"]).fit(cls)
+    reference = make_pipeline(
+        StandardScaler(),
+        SplineTransformer(n_knots=5, degree=3, extrapolation="linear"),
+        LogisticRegression(C=1.0, max_iter=2000),
+    ).fit(data.X.to_numpy(), codes, logisticregression__sample_weight=weights)
+    beyond = pd.DataFrame({"impedance": [4000.0, 9000.0, 14000.0], "other": [-4.0, 0.0, 4.0]})
+    for X in (data.X, beyond):
+        np.testing.assert_allclose(
+            ours.predict(X), reference.predict_proba(X.to_numpy()), atol=1e-8
+        )
+
+
+def test_facies_candidates_on_maps_and_volumes():
+    """On maps the spline logistic on every feature stands in for the linear one (which took
+    the blend on preferential drilling and mapped worse); volumes keep what was measured there."""
+    from predictor.models import leaderboard_candidates
+
+    attrs, names = ["impedance"], ["impedance", "impedance_smooth100m"]
+    on_map = [c.name for c in leaderboard_candidates("classification", attrs, names)]
+    in_volume = [c.name for c in leaderboard_candidates("classification", attrs, names, True)]
+    assert "logistic_splines" in on_map and "logistic_all_features" not in on_map
+    assert "logistic_all_features" in in_volume and "logistic_splines" not in in_volume
+
+
+def test_spline_logistic_draws_a_class_the_linear_logistic_cannot():
+    """A facies found only in a middle band of impedance (a bump in its probability): the
+    additive spline model follows it; a linear logistic's log-odds cannot turn back."""
+    data = _data(300, seed=6)
+    band = lambda X: (np.abs(X["impedance"].to_numpy() - 9000) < 1200).astype(int)  # noqa: E731
+    cls = FitData(data.X, band(data.X), data.weights, data.xy, data.groups, ["out", "in"])
+    fresh = _data(2000, seed=7).X
+    truth = np.eye(2)[band(fresh)]
+    brier = {
+        name: np.mean(np.sum((model.fit(cls).predict(fresh) - truth) ** 2, axis=1))
+        for name, model in (
+            ("linear", Logistic(["impedance"])),
+            ("splines", SplineLogistic(["impedance"])),
+        )
+    }
+    assert brier["splines"] < 0.5 * brier["linear"]
 
 
 def test_spread_model_widens_where_errors_are_larger():
@@ -129,6 +187,7 @@ def test_candidates_follow_scikit_learn_conventions_and_clone_unfitted():
     candidates = [
         Linear(["impedance"]),
         Logistic(["impedance"]),
+        SplineLogistic(["impedance", "other"]),
         Kriging(),
         LightGBM("regression", ["impedance"], monotone={"impedance": -1}, max_rounds=50),
         RegressionKriging(["impedance"]),
@@ -139,6 +198,7 @@ def test_candidates_follow_scikit_learn_conventions_and_clone_unfitted():
     assert set(LOADERS) >= {
         "linear",
         "logistic",
+        "spline_logistic",
         "kriging",
         "lightgbm",
         "regression_kriging",
