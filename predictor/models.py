@@ -311,8 +311,8 @@ class SplineLogistic(Candidate):
     keeps the logistic's steady extrapolation, and its contributions are exact.
 
     Five knots with the default penalty (C = 1) were chosen on the tuning fields of
-    experiments/field_wide.py (facies trained alone, each variant fitted on all wells and
-    scored on the map): 0.90 x the logistic's Brier score on average, against 0.93 with 3
+    experiments/facies_candidates.py (facies trained alone, each variant fitted on all wells
+    and scored on the map): 0.90 x the logistic's Brier score on average, against 0.93 with 3
     knots, 0.91 with 7, 0.95 with C = 10, 1.15 with C = 0.1 and 0.98 for the linear logistic on
     the same features.
     """
