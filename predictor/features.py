@@ -389,8 +389,9 @@ def feature_matrix(features: xr.Dataset, names: list[str]) -> tuple[np.ndarray, 
     grid)."""
     first = features[names[0]]
     stack = np.empty((first.size, len(names)))
+    on_grid = stack.reshape(*first.shape, len(names))  # a view: filling it fills the matrix
     for j, name in enumerate(names):  # column by column: no second copy of every feature at once
-        stack.reshape(*first.shape, len(names))[..., j] = features[name].to_numpy()
+        on_grid[..., j] = features[name].to_numpy()
     valid = np.all(np.isfinite(stack), axis=1)
     return (stack if valid.all() else stack[valid]), valid
 

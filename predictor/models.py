@@ -254,6 +254,7 @@ class Logistic(Candidate):
 
     kind = "logistic"
     task = "classification"
+    STATE = ("mean", "scale", "coef", "intercept")  # fitted arrays saved in the bundle
 
     def __init__(self, features: list[str], name: str = "logistic"):
         self.features = features
@@ -266,8 +267,12 @@ class Logistic(Candidate):
     def _z(self, X) -> np.ndarray:
         return (np.asarray(X[self.features], float) - self.mean_) / self.scale_
 
+    def _design(self, X) -> np.ndarray:
+        """The columns the coefficients multiply: the standardised features."""
+        return self._z(X)
+
     def raw_output(self, X: ArrayLike, xy: ArrayLike | None = None) -> np.ndarray:
-        return self._z(X) @ self.coef_.T + self.intercept_
+        return self._design(X) @ self.coef_.T + self.intercept_
 
     def predict(self, X: ArrayLike, xy: ArrayLike | None = None) -> np.ndarray:
         return _softmax(self.raw_output(X))
@@ -284,25 +289,18 @@ class Logistic(Candidate):
         return place(per_class, self.features, names), np.tile(self.intercept_, (len(X), 1))
 
     def save(self, folder: Path, stem: str) -> dict:
-        return {
-            "type": self.kind,
-            "name": self.name,
-            "features": self.features,
-            "mean": self.mean_.tolist(),
-            "scale": self.scale_.tolist(),
-            "coef": self.coef_.tolist(),
-            "intercept": self.intercept_.tolist(),
-        }
+        state = {key: getattr(self, f"{key}_").tolist() for key in self.STATE}
+        return {"type": self.kind, "name": self.name, "features": self.features, **state}
 
     @classmethod
     def load(cls, desc: dict, folder: Path) -> Logistic:
         model = cls(desc["features"], desc["name"])
-        for key in ("mean", "scale", "coef", "intercept"):
+        for key in cls.STATE:
             setattr(model, f"{key}_", np.array(desc[key]))
         return model
 
 
-class SplineLogistic(Candidate):
+class SplineLogistic(Logistic):
     """Additive logistic regression: each standardised feature through a cubic B-spline basis
     (scikit-learn's SplineTransformer, knots evenly spread over the training range, linear beyond
     it), then the weighted multinomial fit of :class:`Logistic` on the basis.  Each class's
@@ -318,7 +316,7 @@ class SplineLogistic(Candidate):
     """
 
     kind = "spline_logistic"
-    task = "classification"
+    STATE = (*Logistic.STATE, "knots", "centre")
     KNOTS, DEGREE = 5, 3
 
     def __init__(self, features: list[str], name: str = "logistic_splines"):
@@ -352,14 +350,8 @@ class SplineLogistic(Candidate):
         coef = self.coef_.reshape(len(self.coef_), len(self.features), per)
         return np.einsum("nfb,kfb->nkf", parts, coef)
 
-    def _z(self, X) -> np.ndarray:
-        return (np.asarray(X[self.features], float) - self.mean_) / self.scale_
-
-    def raw_output(self, X: ArrayLike, xy: ArrayLike | None = None) -> np.ndarray:
-        return self._basis(self._z(X)) @ self.coef_.T + self.intercept_
-
-    def predict(self, X: ArrayLike, xy: ArrayLike | None = None) -> np.ndarray:
-        return _softmax(self.raw_output(X))
+    def _design(self, X) -> np.ndarray:
+        return self._basis(self._z(X))
 
     def contributions(
         self,
@@ -369,27 +361,9 @@ class SplineLogistic(Candidate):
         background: np.ndarray | None = None,
         seed: int = 0,
     ) -> tuple[np.ndarray, np.ndarray]:
-        terms = self._terms(self._basis(self._z(X))) - self.centre_  # exact: the model is additive
+        terms = self._terms(self._design(X)) - self.centre_  # exact: the model is additive
         base = self.intercept_ + self.centre_.sum(axis=1)
         return place(terms, self.features, names), np.tile(base, (len(X), 1))
-
-    def save(self, folder: Path, stem: str) -> dict:
-        return {
-            "type": self.kind,
-            "name": self.name,
-            "features": self.features,
-            **{
-                key: getattr(self, f"{key}_").tolist()
-                for key in ("mean", "scale", "knots", "coef", "intercept", "centre")
-            },
-        }
-
-    @classmethod
-    def load(cls, desc: dict, folder: Path) -> SplineLogistic:
-        model = cls(desc["features"], desc["name"])
-        for key in ("mean", "scale", "knots", "coef", "intercept", "centre"):
-            setattr(model, f"{key}_", np.array(desc[key]))
-        return model
 
 
 def lightgbm_params(
