@@ -294,7 +294,10 @@ def _node_values(
 ) -> dict[str, np.ndarray]:
     """Every output variable's values at these rows of valid nodes, by variable name."""
     values: dict[str, np.ndarray] = {}
-    for target, info in bundle.card["targets"].items():
+    probabilities: dict[str, dict[str, np.ndarray]] = {}  # classes first: exceedance mixes them
+    targets = bundle.card["targets"]
+    for target in sorted(targets, key=lambda t: targets[t]["task"] != "classification"):
+        info = targets[target]
         model = bundle.models[target]
         raw = model.predict(X, xy)
         aoa = bundle.applicability.get(target)
@@ -309,6 +312,7 @@ def _node_values(
                 else np.ones(len(classes))
             )
             values[target] = np.argmax(raw * factors, axis=1).astype(np.int16)
+            probabilities[target] = dict(zip(classes, raw.T, strict=True))
             for i, cls in enumerate(classes):
                 values[f"{target}_prob_{cls}"] = raw[:, i]
             continue
@@ -322,7 +326,9 @@ def _node_values(
             values[f"{target}{suffix}"] = back(v)
         for cutoff in (exceed or {}).get(target, []):
             model_cutoff = np.log10(cutoff) if log else cutoff
-            values[exceedance_name(target, cutoff)] = cal.exceedance(raw, model_cutoff, spread)
+            values[exceedance_name(target, cutoff)] = cal.exceedance(
+                raw, model_cutoff, spread, probabilities.get(cal.class_target)
+            )
     return values
 
 

@@ -1328,6 +1328,12 @@ def _calibrate(
             )
         oof_spread, spread_model = _feature_spread(attrs, data, residuals, design.splits)
     bounds = PHYSICAL_BOUNDS.get(target)
+    # the facies map's probabilities mix each facies' residuals for exceedance
+    classes = (
+        ("facies", data.facies, data.facies_classes)
+        if "facies" in options.targets and data.facies is not None
+        else None
+    )
     calibration = calibrate(
         residuals,
         data.weights,
@@ -1335,6 +1341,7 @@ def _calibrate(
         units=data.units,
         bounds=bounds,
         predicted=oof,
+        classes=classes,
     )
     # checked on the residuals the calibration used (scaled to the map's expected error)
     calibration.held_out_coverage = held_out_coverage(

@@ -4,6 +4,7 @@ import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
+from scipy import stats
 
 from predictor.intervals import calibrate
 
@@ -121,3 +122,28 @@ def test_exceedance_follows_the_residuals_of_wells_predicted_alike():
     # far above or below every residual: certain
     assert cal.exceedance(np.array([0.12, 0.12]), 0.5).tolist() == [0.0, 0.0]
     assert cal.exceedance(np.array([0.25]), 0.0)[0] == 1.0
+
+
+def test_exceedance_mixes_each_facies_residuals_by_the_facies_probabilities():
+    # sand wells err N(+0.03, 0.01), shale wells N(-0.01, 0.01); a node predicted at 0.12 with
+    # P(sand) = 0.3: P(value > 0.12) = 0.3 (1 - Phi(-3)) + 0.7 (1 - Phi(1)), by hand with
+    # scipy.stats.norm; a facies with fewer than CLASS_WELLS wells takes the pooled residuals
+    levels = np.linspace(0.0005, 0.9995, 1000)
+    sand, shale = stats.norm.ppf(levels, 0.03, 0.01), stats.norm.ppf(levels, -0.01, 0.01)
+    residuals = np.concatenate([sand, shale, [0.5, 0.5, 0.5]])
+    codes = np.repeat([0, 1, 2], [1000, 1000, 3])
+    cal = calibrate(residuals, classes=("facies", codes, ["sand", "shale", "silt"]))
+    assert cal.class_target == "facies" and set(cal.class_quantiles) == {"sand", "shale"}
+    p = {"sand": np.array([0.3, 1.0]), "shale": np.array([0.7, 0.0]), "silt": np.zeros(2)}
+    expected = 0.3 * stats.norm.sf(-3.0) + 0.7 * stats.norm.sf(1.0)
+    mixed = cal.exceedance(np.array([0.12, 0.12]), 0.12, class_probabilities=p)
+    assert mixed[0] == pytest.approx(expected, abs=0.005)
+    assert mixed[1] == pytest.approx(stats.norm.sf(-3.0), abs=0.005)
+    # without the probabilities: the pooled distribution (the share of residuals above zero)
+    pooled = np.mean(residuals > 0.0)
+    assert cal.exceedance(np.array([0.12]), 0.12)[0] == pytest.approx(pooled, abs=0.005)
+    # silt (three wells, residual +0.5) falls back to the pooled distribution
+    silt = cal.exceedance(
+        np.array([0.12]), 0.12, class_probabilities={"silt": np.ones(1), "sand": np.zeros(1)}
+    )
+    assert silt[0] == pytest.approx(pooled, abs=0.005)

@@ -337,6 +337,16 @@ def test_exceedance_maps_and_facies_shares(bundle, tmp_path):
     # nodes whose q10 is above the cutoff are above it with probability about 0.9 or more
     sure = maps["porosity_q10"].to_numpy() > 0.15
     assert np.nanmin(low[sure]) >= 0.85
+    # the facies probabilities mix each facies' residuals: give shale residuals far above any
+    # cutoff and every node's P(porosity > 0.25) becomes at least its P(shale)
+    loaded = load_bundle(bundle)
+    cal = loaded.calibrations["porosity"]
+    assert cal.class_target == "facies" and "shale" in cal.class_quantiles
+    cal.class_quantiles["shale"] = [v + 1e6 for v in cal.residual_quantiles]
+    shifted = predict_maps(loaded, read_grid(GRID), exceed={"porosity": [0.25]}, warn=False)
+    p_shale = shifted["facies_prob_shale"].to_numpy()[ok]
+    p_high = shifted["porosity_prob_above_0p25"].to_numpy()[ok]
+    assert np.all(p_high >= p_shale - 1e-9) and np.mean(p_high - high[ok]) > 0.5 * np.mean(p_shale)
     card = json.loads((bundle / "model_card.json").read_text())
     codes = maps["facies"].to_numpy()
     classes = maps["facies"].attrs["flag_meanings"].split(" ")
