@@ -246,9 +246,9 @@ def build_parser() -> argparse.ArgumentParser:
         metavar="TARGET:CUTOFF",
         help=(
             "also map the probability that a target exceeds a cutoff, in the target's units, from"
-            " the out-of-fold residual distribution around the map (a ranking more than calibrated"
-            " odds: see the README), e.g. --exceed porosity:0.15 --exceed permeability:100 (written"
-            " as porosity_prob_above_0p15); repeatable"
+            " the out-of-fold residual distribution of each facies mixed by the facies"
+            " probabilities (how well calibrated: see the README), e.g. --exceed porosity:0.15"
+            " --exceed permeability:100 (written as porosity_prob_above_0p15); repeatable"
         ),
     )
     pr.add_argument("--overwrite", action="store_true", help="replace an existing maps file")

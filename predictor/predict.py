@@ -130,7 +130,8 @@ def predict_maps(
     ``train`` held in memory) on every valid node of ``grid``.
 
     ``exceed`` (target -> cutoffs, in the target's units) adds P(target > cutoff) per node,
-    from the matched CV's out-of-fold residuals around the map's prediction.  Chunks of
+    from the matched CV's out-of-fold residuals around the map's prediction (each facies'
+    residuals mixed by the node's facies probabilities when the bundle holds facies).  Chunks of
     ``chunk_rows`` nodes run on ``threads`` threads (default: every core); the values do not
     depend on the thread count.
 
@@ -267,9 +268,11 @@ def predict_maps(
                 long_name=f"probability that {target} exceeds {cutoff:g}{' mD' if log else ''}",
                 cutoff=float(cutoff),
                 comment=(
-                    "from the matched CV's out-of-fold residuals of the wells predicted near this"
-                    " node's value; in experiments/field_wide.py values in the lower middle ran up"
-                    " to about 0.1 above the observed frequency"
+                    "from the matched CV's out-of-fold residuals of each facies' wells, mixed by"
+                    " this node's facies probabilities"
+                    if bundle.calibrations[target].class_target
+                    else "from the matched CV's out-of-fold residuals of the wells predicted near"
+                    " this node's value"
                 ),
             )
         if applicable is not None:
