@@ -318,6 +318,13 @@ def facies_maps(
     return save(fig, path)
 
 
+def _quiet_log10(values: np.ndarray) -> np.ndarray:
+    """log10 for an axis transform: matplotlib also maps 0 through it while laying out the
+    figure, which is -inf there, not an error worth a warning on the user's screen."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.log10(values)
+
+
 def property_maps(
     maps: xr.Dataset, target: str, wells: pd.DataFrame | None, path: str | Path, log: bool = False
 ) -> Path:
@@ -338,7 +345,7 @@ def property_maps(
     im = _background(axes[1], shown, "_width", cmap="cividis")
     bar = fig.colorbar(im, ax=axes[1], shrink=0.7, location="bottom", label=f"q90 - q10{unit}")
     if log:  # a width in log10 mD reads as a factor: 1.7 means q90 is about 50 times q10
-        factors = bar.ax.secondary_xaxis("top", functions=(lambda w: 10**w, np.log10))
+        factors = bar.ax.secondary_xaxis("top", functions=(lambda w: 10**w, _quiet_log10))
         factors.set_xlabel("q90 / q10 (factor)", fontsize=8)
         factors.xaxis.set_major_formatter(matplotlib.ticker.FuncFormatter(_factor))
         factors.tick_params(labelsize=7)

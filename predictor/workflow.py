@@ -134,7 +134,7 @@ def leaderboard_lines(trained: TrainedModels) -> list[str]:
             kind = "baseline" if row["baseline"] else "candidate"
             random = f"{row['cv_random'][key]:.4f}" if row["cv_random"] else "(not run)"
             lines.append(
-                f"  {mark} {row['candidate']:<28} {kind:<9} {tm.distances['chosen']}"
+                f"  {mark} {row['candidate']:<32} {kind:<9} {tm.distances['chosen']}"
                 f" {row['cv'][key]:.4f}   random {random}"
             )
         map_error = tm.distances.get("map_error")

@@ -137,6 +137,21 @@ def test_facies_candidates_on_maps_and_volumes():
     assert "logistic_all_features" in in_volume and "logistic_splines" not in in_volume
 
 
+def test_regression_candidates_on_maps_and_volumes():
+    """Maps krige the residuals of a linear drift on the attributes and on every feature;
+    volumes have no kriging candidates. On the attributes alone the two drifts would be one."""
+    from predictor.models import leaderboard_candidates
+
+    attrs, names = ["impedance"], ["impedance", "impedance_smooth100m"]
+    on_map = {c.name: c for c in leaderboard_candidates("regression", attrs, names)}
+    in_volume = [c.name for c in leaderboard_candidates("regression", attrs, names, True)]
+    assert on_map["regression_kriging_all_features"].features == names
+    assert on_map["regression_kriging"].features == attrs
+    assert not any("kriging" in name for name in in_volume)
+    alone = [c.name for c in leaderboard_candidates("regression", attrs, attrs)]
+    assert "regression_kriging_all_features" not in alone
+
+
 def test_spline_logistic_draws_a_class_the_linear_logistic_cannot():
     """A facies found only in a middle band of impedance (a bump in its probability): the
     additive spline model follows it; a linear logistic's log-odds cannot turn back."""

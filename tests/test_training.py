@@ -61,6 +61,7 @@ def test_card_has_the_documented_keys(bundle):
         "linear",
         "ordinary_kriging",
         "regression_kriging",
+        "regression_kriging_all_features",
         "lightgbm",
         "facies_mixture",
     } <= board
