@@ -31,6 +31,7 @@ GLOBAL_WELLS = (
     1500  # above this many wells, a moving neighbourhood (the global system grows as n^3)
 )
 NEIGHBOURS = 100  # wells per moving neighbourhood
+COMPACT_MIN_WELLS = 50  # from this many wells a short spherical range is kriged from near wells
 # a tile's side holds about this many wells' share of the area: well inside its neighbourhood
 WELLS_PER_TILE = 10
 VARIOGRAM_WELLS = 3000  # the semivariogram of more wells is estimated from a seeded sample of them
@@ -134,6 +135,8 @@ class OrdinaryKriging:
         c0 = self.variogram_.nugget + self.variogram_.sill
         if self.local_:
             groups = self._local_groups(q, return_variance)
+        elif not return_variance and self._compact_reach() is not None:
+            return self._compact_estimate(q)
         else:
             groups = [(np.arange(len(q)), self.points_, self.lu_, self.dual_)]
         for index, points, lu, dual in groups:
@@ -145,6 +148,41 @@ class OrdinaryKriging:
                 if return_variance:
                     var[rows] = _variance(lu, cov, c0)
         return (est, np.maximum(var, 0.0)) if return_variance else est
+
+    def _compact_reach(self) -> int | None:
+        """With a spherical semivariogram a well beyond the range adds nothing to an estimate:
+        the most wells any location can have within the range (those wells lie within twice
+        the range of each other), when few enough to pay for a nearest-wells query instead of
+        every node-well covariance; None otherwise."""
+        if not hasattr(self, "reach_"):  # once; threads may race here, each setting the same
+            reach, tree, n = None, None, len(self.points_)
+            if self.variogram_.kind == "spherical" and n >= COMPACT_MIN_WELLS:
+                tree = cKDTree(self.points_)
+                most = tree.query_ball_point(
+                    self.points_, 2.0 * self.variogram_.range, return_length=True
+                ).max()
+                reach = int(most) if most <= n // 4 else None
+            self.compact_tree_ = tree  # before reach_: a thread that sees reach_ finds the tree
+            self.reach_ = reach
+        return self.reach_
+
+    def _compact_estimate(self, q: np.ndarray) -> np.ndarray:
+        """The dual-form estimate from the wells within the range only: the same sums as the
+        dense form without its zero terms."""
+        est = np.empty(len(q))
+        step = max(1, CELLS_PER_CHUNK // self.reach_)
+        for start in range(0, len(q), step):
+            rows = slice(start, start + step)
+            h, near = self.compact_tree_.query(
+                q[rows], k=self.reach_, distance_upper_bound=self.variogram_.range
+            )
+            h, near = h.reshape(len(h), -1), near.reshape(len(near), -1)
+            missing = near == len(self.points_)  # no further well within the range
+            cov = self.variogram_.covariance(np.where(missing, self.variogram_.range, h))
+            cov[missing] = 0.0
+            est[rows] = np.einsum("ij,ij->i", cov, self.dual_[np.where(missing, 0, near)])
+            est[rows] += self.dual_[-1]
+        return est
 
     def _local_groups(self, q: np.ndarray, with_lu: bool):
         """Per tile of query points: (rows, neighbourhood points, LU or None, dual weights)."""

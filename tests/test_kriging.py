@@ -135,6 +135,35 @@ def test_ordinary_kriging_equals_pykrige_with_the_same_variogram():
     np.testing.assert_allclose(var, ref_var, atol=1e-8)
 
 
+def test_short_spherical_range_is_kriged_from_the_wells_within_it_and_equals_pykrige():
+    # a spherical range far shorter than the well spacing: the estimate sums only the wells
+    # within the range, and must equal the dense form and pykrige.ok.OrdinaryKriging (PyPI
+    # "pykrige") with the same variogram, off the wells and at them (nugget at distance 0)
+    from pykrige.ok import OrdinaryKriging as PyKrigeOK
+
+    rng = np.random.default_rng(12)
+    pts = rng.uniform(0, 20000, (200, 2))
+    values = rng.normal(0, 1, 200)
+    ours = OrdinaryKriging(VariogramModel("spherical", 0.1, 1.0, 900.0)).fit(
+        pts[:, 0], pts[:, 1], values
+    )
+    assert ours._compact_reach() is not None and ours.reach_ <= 50
+    q = np.vstack([rng.uniform(0, 20000, (3000, 2)), pts[:20]])
+    est = ours.predict(q[:, 0], q[:, 1])
+    near = ours.predict(q[:, 0], q[:, 1], return_variance=True)[0]  # the dense form
+    np.testing.assert_allclose(est, near, atol=1e-12)
+    ref = PyKrigeOK(
+        pts[:, 0],
+        pts[:, 1],
+        values,
+        variogram_model="spherical",
+        variogram_parameters={"psill": 1.0, "range": 900.0, "nugget": 0.1},
+    )
+    off = slice(0, 3000)  # pykrige returns the datum itself at a well; ours does too (below)
+    np.testing.assert_allclose(est[off], ref.execute("points", q[off, 0], q[off, 1])[0], atol=1e-8)
+    np.testing.assert_allclose(est[3000:3020], values[:20], atol=1e-8)
+
+
 def test_experimental_semivariogram_and_fitted_range_equal_gstools():
     # reference library: gstools.vario_estimate on the same bin edges, and
     # gstools.Spherical.fit_variogram on the same lags; gstools weights residuals by w^2 (curve_fit
