@@ -123,6 +123,11 @@ def test_spline_logistic_matches_scikit_learn_pipeline():
         np.testing.assert_allclose(
             ours.predict(X), reference.predict_proba(X.to_numpy()), atol=1e-8
         )
+        # the map's log-odds, summed from the four non-zero basis functions of each value,
+        # equal the basis matrix (SplineTransformer's) times the coefficients
+        np.testing.assert_allclose(
+            ours.raw_output(X), ours._design(X) @ ours.coef_.T + ours.intercept_, atol=1e-12
+        )
 
 
 def test_facies_candidates_on_maps_and_volumes():
