@@ -113,24 +113,28 @@ def _wells(seed=8, n=60):
     return pts, values
 
 
-def test_ordinary_kriging_equals_pykrige_with_the_same_variogram():
-    # reference library: pykrige.ok.OrdinaryKriging (PyPI "pykrige"), spherical model given by
-    # partial sill, range and nugget, points off the wells
+def _pykrige(pts: np.ndarray, values: np.ndarray, model: VariogramModel):
+    """Reference library: pykrige.ok.OrdinaryKriging (PyPI "pykrige") with the same spherical
+    semivariogram, given by partial sill, range and nugget."""
     from pykrige.ok import OrdinaryKriging as PyKrigeOK
 
+    return PyKrigeOK(
+        pts[:, 0],
+        pts[:, 1],
+        values,
+        variogram_model="spherical",
+        variogram_parameters={"psill": model.sill, "range": model.range, "nugget": model.nugget},
+    )
+
+
+def test_ordinary_kriging_equals_pykrige_with_the_same_variogram():
+    # reference library: pykrige (see _pykrige), points off the wells
     pts, values = _wells()
     model = VariogramModel("spherical", 0.05, 0.8, 700.0)
     ours = OrdinaryKriging(model).fit(pts[:, 0], pts[:, 1], values)
     q = np.random.default_rng(9).uniform(0, 2000, (200, 2)) + 0.37
     est, var = ours.predict(q[:, 0], q[:, 1], return_variance=True)
-    ref = PyKrigeOK(
-        pts[:, 0],
-        pts[:, 1],
-        values,
-        variogram_model="spherical",
-        variogram_parameters={"psill": 0.8, "range": 700.0, "nugget": 0.05},
-    )
-    ref_est, ref_var = ref.execute("points", q[:, 0], q[:, 1])
+    ref_est, ref_var = _pykrige(pts, values, model).execute("points", q[:, 0], q[:, 1])
     np.testing.assert_allclose(est, ref_est, atol=1e-8)
     np.testing.assert_allclose(var, ref_var, atol=1e-8)
 
@@ -139,26 +143,17 @@ def test_short_spherical_range_is_kriged_from_the_wells_within_it_and_equals_pyk
     # a spherical range far shorter than the well spacing: the estimate sums only the wells
     # within the range, and must equal the dense form and pykrige.ok.OrdinaryKriging (PyPI
     # "pykrige") with the same variogram, off the wells and at them (nugget at distance 0)
-    from pykrige.ok import OrdinaryKriging as PyKrigeOK
-
     rng = np.random.default_rng(12)
     pts = rng.uniform(0, 20000, (200, 2))
     values = rng.normal(0, 1, 200)
-    ours = OrdinaryKriging(VariogramModel("spherical", 0.1, 1.0, 900.0)).fit(
-        pts[:, 0], pts[:, 1], values
-    )
+    model = VariogramModel("spherical", 0.1, 1.0, 900.0)
+    ours = OrdinaryKriging(model).fit(pts[:, 0], pts[:, 1], values)
     assert ours._compact_reach() is not None and ours.reach_ <= 50
     q = np.vstack([rng.uniform(0, 20000, (3000, 2)), pts[:20]])
     est = ours.predict(q[:, 0], q[:, 1])
     near = ours.predict(q[:, 0], q[:, 1], return_variance=True)[0]  # the dense form
     np.testing.assert_allclose(est, near, atol=1e-12)
-    ref = PyKrigeOK(
-        pts[:, 0],
-        pts[:, 1],
-        values,
-        variogram_model="spherical",
-        variogram_parameters={"psill": 1.0, "range": 900.0, "nugget": 0.1},
-    )
+    ref = _pykrige(pts, values, model)
     off = slice(0, 3000)  # pykrige returns the datum itself at a well; ours does too (below)
     np.testing.assert_allclose(est[off], ref.execute("points", q[off, 0], q[off, 1])[0], atol=1e-8)
     np.testing.assert_allclose(est[3000:3020], values[:20], atol=1e-8)
