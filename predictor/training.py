@@ -22,7 +22,6 @@ from .cv_design import (
     FoldDesign,
     design_folds,
     distance_summary,
-    kriging_variance_ratio,
     map_distances,
     representative_weights,
     sample_locations,
@@ -63,6 +62,7 @@ from .intervals import (
 )
 from .io.tables import ROLE_NAMES
 from .kriging import GLOBAL_WELLS, NEIGHBOURS
+from .map_error import expected_map_error, training_size_factor
 from .models import (
     BASELINES,
     Blend,
@@ -1122,10 +1122,18 @@ def _train_target(prep: _Prepared, target: str, options: TrainOptions) -> Target
         )
     map_error = None
     if task == "regression":
-        map_error = _map_error(vario, table, design, prep.map_xy, chosen_row["cv"])
-        ratio = map_error["kriging_variance_ratio"]
+        map_error = expected_map_error(
+            chosen_row["cv"]["rmse"],
+            VariogramModel(**vario),
+            table.heads,
+            table.head_of,
+            design.splits,
+            prep.map_xy,
+            data.weights,
+            training_size_factor(model, data, design.splits, oof, options.seed),
+        )
         calibration, spread_model = _calibrate(
-            model, data, oof, ratio, design, attrs, options, target, notes
+            model, data, oof, map_error["scale"], design, attrs, options, target, notes
         )
     final = clone(model).fit(data)
     on_map = final.predict(prep.map_X, prep.map_X_xy)
@@ -1230,29 +1238,6 @@ def _train_target(prep: _Prepared, target: str, options: TrainOptions) -> Target
     )
 
 
-def _map_error(vario: dict, table: _TargetTable, design, map_xy, cv: dict) -> dict:
-    """The CV's RMSE carried over to the map's prediction situation: times the square root of
-    the ratio of kriging variances (map nodes vs held-out wells) under the residual
-    variogram."""
-    model = VariogramModel(**vario)
-    ratio = 1.0
-    if not model.pure_nugget:  # no spatial structure: position does not change the error
-        ratio = kriging_variance_ratio(
-            model, table.heads, table.head_of, design.splits, map_xy, table.data.weights
-        )
-    return {
-        "rmse": float(cv["rmse"] * np.sqrt(ratio)),
-        "kriging_variance_ratio": round(ratio, 4),
-        "what": (
-            "the chosen model's CV RMSE times the square root of the mean kriging variance of the"
-            " map's nodes (from every well) over that of the held-out wells (from their fold's"
-            " wells), under the linear baseline's residual semivariogram: no fold design holds a"
-            " well out as close to its training wells as dense drilling puts the map's nodes,"
-            " and each fold trains on fewer wells than the map"
-        ),
-    }
-
-
 def _field_wide(
     prep: _Prepared,
     table: _TargetTable,
@@ -1302,7 +1287,7 @@ def _calibrate(
     model,
     data: FitData,
     oof: np.ndarray,
-    variance_ratio: float,
+    scale: float,
     design,
     attrs: list[str],
     options: TrainOptions,
@@ -1311,12 +1296,12 @@ def _calibrate(
 ):
     """q10/q90 offsets from the design's out-of-fold residuals, scaled by a local spread.
 
-    The residuals are first multiplied by the square root of the kriging-variance ratio of map
-    nodes to held-out wells (see :func:`_map_error`), so the intervals are as wide as the map's
-    expected error, not the held-out wells' (on the tuning fields of experiments/matched_cv.py:
-    coverage within 0.80 +- 0.05 on 75 % of fields instead of 62 %).
+    The residuals are first multiplied by the expected map error's ``scale`` (the square root of
+    the kriging-variance ratio of map nodes to held-out wells times the training-size factor,
+    see :mod:`predictor.map_error`), so the intervals are as wide as the map's expected error,
+    not the held-out wells'.
     """
-    residuals = (data.y - oof) * np.sqrt(variance_ratio)
+    residuals = (data.y - oof) * scale
     oof_spread, spread_model = None, None
     if options.interval_spread == "kriging" and isinstance(model, WellTies):
         oof_spread, spread_model = _oof_spread(model, data, design.splits), "kriging"

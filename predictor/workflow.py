@@ -142,7 +142,9 @@ def leaderboard_lines(trained: TrainedModels) -> list[str]:
             lines.append(
                 f"  expected map RMSE {map_error['rmse']:.4f}: the chosen model's"
                 f" {tm.distances['chosen']} CV times the square root of the kriging-variance ratio"
-                f" {map_error['kriging_variance_ratio']:.3f} of map nodes to held-out wells"
+                f" {map_error['kriging_variance_ratio']:.3f} of map nodes to held-out wells and"
+                f" times {map_error['training_size']['factor']:.3f} for training on every well,"
+                " not a fold's"
             )
         coverage = tm.calibration.held_out_coverage if tm.calibration else None
         if coverage is not None:
