@@ -10,8 +10,8 @@ no feature flags) and mapped; per field it reports:
 - the chosen model's CV RMSE under the matched, blocked and random designs / the true map RMSE
   (all with declustering weights, as reported; ``adjusted``: the card's expected map RMSE, the
   matched CV times the square root of the kriging-variance ratio of map nodes to held-out wells
-  and the training-size factor; ``representative``: the matched folds scored with the weights raked to the map's
-  distance and attribute quartiles);
+  and the training-size factor; ``representative``: the matched folds scored with the weights
+  raked to the map's distance and attribute quartiles);
 - the share of truth cells inside [q10, q90], beside the card's held-out-wells coverage;
 - porosity map RMSE / regression kriging's (refitted on the same wells in the same run);
 - facies balanced accuracy on the map, chosen vs logistic regression on the attributes.

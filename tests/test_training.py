@@ -15,7 +15,7 @@ from predictor.errors import BundleError, InputError, ModelError, PredictorWarni
 from predictor.grid import read_grid
 from predictor.io.tables import read_wells
 from predictor.predict import predict_maps
-from predictor.training import TrainOptions, train
+from predictor.training import TIES_MARGIN, TrainOptions, _clearly_better, train
 
 WELLS, GRID = str(DEMO / "wells.csv"), str(DEMO / "seismic.csv")
 
@@ -375,3 +375,20 @@ def test_bad_exceedance_cutoffs_exit_2_and_write_nothing(bundle, tmp_path, capsy
     out = tmp_path / "maps.nc"
     assert main(["predict", str(bundle), "--grid", GRID, "--out", str(out), "--exceed", spec]) == 2
     assert message in capsys.readouterr().err and not out.exists()
+
+
+def test_facies_ties_are_kept_unless_clearly_worse():
+    # paired per-well loss differences with mean +0.5 or +2 standard errors (hand-made: 50 wells,
+    # differences +-1 around the mean, so the standard error is 1 / 7): facies ties that are
+    # slightly worse in the CV stay (the CV understates what they add near wells), clearly worse
+    # ones go; value ties must win by one standard error
+    se = 1.0 / 7.0
+    spread = np.tile([1.0, -1.0], 25)
+    for worse_by, kept in ((0.5, True), (2.0, False)):
+        tied = 1.0 + spread + worse_by * se
+        untied = np.ones(50)
+        keep = _clearly_better(tied, untied, np.ones(50), margin=TIES_MARGIN["classification"])
+        assert keep is kept
+    assert not _clearly_better(
+        1.0 + spread - 0.5 * se, np.ones(50), np.ones(50), margin=TIES_MARGIN["regression"]
+    )
