@@ -21,6 +21,7 @@ THINNED = 0.75  # share of each training fold's wells kept for the learning curv
 REPEATS = 2  # random thinnings averaged
 MAX_ERROR_RATIO = 1.5  # bounds the extrapolation when a thinning happens to drop key wells
 MIN_THINNED_WELLS = 20  # fewer wells than this per thinned fold: no factor (1)
+NEARLY_ALL = 0.95  # folds training on this share of the wells or more: no factor (1)
 
 
 def _weighted_mse(y: np.ndarray, predicted: np.ndarray, weights: np.ndarray) -> float:
@@ -37,8 +38,9 @@ def training_size_factor(model, data: FitData, splits, oof: np.ndarray, seed: in
     (REPEATS thinnings, their mean squared errors averaged).  Extrapolated to the N wells of
     the map the error shrinks by (n1 / N)^b.  A thinned error below the CV's is noise (fewer
     wells do not help on average), so the ratio is floored at 1 (factor 1) and capped at
-    MAX_ERROR_RATIO.  On the tuning fields of experiments/matched_cv.py it brought the
-    matched CV's mean ratio to the true map RMSE from 1.07 to 1.01.
+    MAX_ERROR_RATIO.  On the tuning fields of experiments/matched_cv.py it brought the expected
+    map error's mean ratio to the true map RMSE from 1.05 to 1.00 (held-out fields: 1.09 to
+    1.02).  Leave-one-out designs (NNDM, buffered) train on nearly every well: no factor.
     """
     units = np.asarray(data.units)
     n_all = np.unique(units).size
@@ -51,7 +53,7 @@ def training_size_factor(model, data: FitData, splits, oof: np.ndarray, seed: in
         "training_wells_per_fold": round(n_train, 1),
         "wells": int(n_all),
     }
-    if min(kept) < MIN_THINNED_WELLS or n_train >= n_all:
+    if min(kept) < MIN_THINNED_WELLS or n_train >= NEARLY_ALL * n_all:
         return out
     rng = np.random.default_rng(seed)
     errors = []

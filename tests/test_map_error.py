@@ -65,3 +65,10 @@ def test_training_size_factor_needs_enough_wells_to_thin():
     # 20 wells: 16 per fold, 12 when thinned, too few to say anything: factor 1, not computed
     out = training_size_factor(PowerLawError(), _data(20), _splits(20), np.ones(20), seed=0)
     assert out["factor"] == 1.0 and out["error_ratio"] is None
+
+
+def test_training_size_factor_is_one_for_leave_one_out():
+    # 99 of 100 wells in every fold: the CV already trains on nearly every well
+    splits = [(np.delete(np.arange(100), i), np.array([i])) for i in range(100)]
+    out = training_size_factor(PowerLawError(), _data(), splits, np.ones(100), seed=0)
+    assert out["factor"] == 1.0 and out["error_ratio"] is None
