@@ -15,6 +15,7 @@ import numpy as np
 
 from .cv_design import kriging_variance_ratio
 from .models import FitData, out_of_fold
+from .stats import weighted_mean
 from .variogram import VariogramModel
 
 THINNED = 0.75  # share of each training fold's wells kept for the learning curve's second point
@@ -24,16 +25,13 @@ MIN_THINNED_WELLS = 20  # fewer wells than this per thinned fold: no factor (1)
 NEARLY_ALL = 0.95  # folds training on this share of the wells or more: no factor (1)
 
 
-def _weighted_mse(y: np.ndarray, predicted: np.ndarray, weights: np.ndarray) -> float:
-    return float(np.average((y - predicted) ** 2, weights=weights))
-
-
-def training_size_factor(model, data: FitData, splits, oof: np.ndarray, seed: int) -> dict:
+def training_size_factor(model, data: FitData, splits, cv_rmse: float, seed: int) -> dict:
     """How much smaller the chosen model's error is when trained on every well than on a fold's.
 
     Two points of the learning curve, RMSE(n) proportional to n^-b (a power law, common
     practice for learning curves; Cortes, Jackel, Solla, Vapnik & Denker 1994, NeurIPS 6,
-    recalled from memory): the CV's RMSE with the folds' n1 training wells, and the RMSE on the
+    recalled from memory): the CV's RMSE ``cv_rmse`` (declustering-weighted, as on the
+    leaderboard) with the folds' n1 training wells, and the RMSE on the
     same held-out wells with each training fold randomly thinned to THINNED of its wells
     (REPEATS thinnings, their mean squared errors averaged).  Extrapolated to the N wells of
     the map the error shrinks by (n1 / N)^b.  A thinned error below the CV's is noise (fewer
@@ -62,9 +60,9 @@ def training_size_factor(model, data: FitData, splits, oof: np.ndarray, seed: in
             (train[np.isin(units[train], rng.choice(u, k, replace=False))], test)
             for (train, test), u, k in zip(splits, train_wells, kept, strict=True)
         ]
-        errors.append(_weighted_mse(data.y, out_of_fold(model, data, thinned), data.weights))
-    cv_mse = _weighted_mse(data.y, oof, data.weights)
-    ratio = float(np.sqrt(np.mean(errors) / cv_mse)) if cv_mse > 0 else 1.0
+        thinned_oof = out_of_fold(model, data, thinned)
+        errors.append(weighted_mean((data.y - thinned_oof) ** 2, data.weights))
+    ratio = float(np.sqrt(np.mean(errors)) / cv_rmse) if cv_rmse > 0 else 1.0
     exponent = np.log(np.clip(ratio, 1.0, MAX_ERROR_RATIO)) / np.log(1.0 / THINNED)
     out["factor"] = round(float((n_train / n_all) ** exponent), 4)
     out["error_ratio"] = round(ratio, 4)

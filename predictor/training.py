@@ -1130,7 +1130,9 @@ def _train_target(prep: _Prepared, target: str, options: TrainOptions) -> Target
             design.splits,
             prep.map_xy,
             data.weights,
-            training_size_factor(model, data, design.splits, oof, options.seed),
+            training_size_factor(
+                model, data, design.splits, chosen_row["cv"]["rmse"], options.seed
+            ),
         )
         calibration, spread_model = _calibrate(
             model, data, oof, map_error["scale"], design, attrs, options, target, notes

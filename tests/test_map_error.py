@@ -54,8 +54,8 @@ def _splits(n_wells: int = 100, k: int = 5):
 def test_training_size_factor_follows_a_power_law_learning_curve(exponent, expected):
     data, splits = _data(), _splits()
     model = PowerLawError(exponent)
-    oof = np.full(100, 2.0 * 80.0**-exponent)  # the CV: every fold trained on 80 wells
-    out = training_size_factor(model, data, splits, oof, seed=0)
+    cv_rmse = 2.0 * 80.0**-exponent  # the CV: every fold trained on 80 wells
+    out = training_size_factor(model, data, splits, cv_rmse, seed=0)
     assert out["training_wells_per_fold"] == 80.0 and out["wells"] == 100
     assert out["error_ratio"] == pytest.approx((60 / 80) ** -exponent, rel=1e-4)
     assert out["factor"] == pytest.approx(expected, abs=1e-4)
@@ -63,12 +63,12 @@ def test_training_size_factor_follows_a_power_law_learning_curve(exponent, expec
 
 def test_training_size_factor_needs_enough_wells_to_thin():
     # 20 wells: 16 per fold, 12 when thinned, too few to say anything: factor 1, not computed
-    out = training_size_factor(PowerLawError(), _data(20), _splits(20), np.ones(20), seed=0)
+    out = training_size_factor(PowerLawError(), _data(20), _splits(20), 1.0, seed=0)
     assert out["factor"] == 1.0 and out["error_ratio"] is None
 
 
 def test_training_size_factor_is_one_for_leave_one_out():
     # 99 of 100 wells in every fold: the CV already trains on nearly every well
     splits = [(np.delete(np.arange(100), i), np.array([i])) for i in range(100)]
-    out = training_size_factor(PowerLawError(), _data(), splits, np.ones(100), seed=0)
+    out = training_size_factor(PowerLawError(), _data(), splits, 1.0, seed=0)
     assert out["factor"] == 1.0 and out["error_ratio"] is None
