@@ -12,8 +12,9 @@ from predictor.intervals import calibrate
 @pytest.mark.parametrize("n", [60, 300])
 def test_conformal_coverage_on_exchangeable_data(n):
     # Lei et al. 2018 (JASA): split-conformal intervals cover at least the nominal level on
-    # exchangeable data; averaged over many calibration sets the coverage is close to 0.80
-    # (expected 0.80 to 0.80 + 2/(n+1); 0.01 allows for the Monte Carlo noise of 200 repetitions)
+    # exchangeable data, the smoothed form (Vovk et al. 2005) the nominal level itself; averaged
+    # over many calibration sets the coverage is close to 0.80 (the conservative form: up to
+    # 0.80 + 2/(n+1); 0.01 allows for the Monte Carlo noise of 200 repetitions)
     rng = np.random.default_rng(n)
     cover = []
     for _ in range(200):
@@ -59,6 +60,23 @@ def test_conformal_quantile_puts_the_test_points_mass_at_infinity():
     weights = np.ones(19)
     weights[18] = 3.0  # the largest residual carries 3 of 22 units
     assert conformal_quantile(scores, weights, 0.8, 1.0) == 18.0  # 17/22 < 0.8 <= 18/22
+
+
+@pytest.mark.parametrize("n", [10, 19, 33])
+def test_smoothed_conformal_quantile_covers_exactly_the_level(n):
+    # Vovk, Gammerman & Shafer (2005): with the test point's share of its own mass uniform on
+    # [0, 1] the coverage is exactly the level. For exchangeable continuous scores the k-th
+    # smallest of n covers a new one with probability k / (n + 1) (order statistics), so
+    # averaging k / (n + 1) over the share gives the coverage without Monte Carlo noise; the
+    # whole mass (share 1) covers ceil(0.9 (n + 1)) / (n + 1), above 0.9 unless 0.9 (n + 1) is whole
+    from predictor.intervals import conformal_quantile
+
+    scores = np.arange(1.0, n + 1.0)  # the k-th smallest score is k
+    shares = (np.arange(10_000) + 0.5) / 10_000
+    smoothed = np.mean([conformal_quantile(scores, np.ones(n), 0.9, 1.0, u) for u in shares])
+    assert smoothed / (n + 1) == pytest.approx(0.9, abs=1e-3)
+    conservative = conformal_quantile(scores, np.ones(n), 0.9, 1.0)
+    assert conservative == np.ceil(0.9 * (n + 1))
 
 
 def test_porosity_intervals_stay_inside_zero_and_one():
