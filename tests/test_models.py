@@ -82,6 +82,11 @@ def test_save_and_load_predict_identically(tmp_path):
         FaciesMixture(["impedance"]).fit(mixture_data),
         Blend([Linear(["impedance"]), LightGBM("regression", ["impedance"])], [0.3, 0.7]).fit(data),
     ]
+    # a facies mixture saved by an earlier version, whose classifier was LightGBM, still loads
+    earlier = FaciesMixture(["impedance"]).fit(mixture_data)
+    earlier.classifier_ = LightGBM("classification", ["impedance"], "facies_classifier").fit(cls)
+    assert isinstance(models[5].classifier_, SplineLogistic)
+    models.append(earlier)
     for i, model in enumerate(models):
         desc = model.save(tmp_path, f"m{i}")
         back = load_candidate(desc, tmp_path)
