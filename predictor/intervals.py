@@ -12,8 +12,8 @@ point, one node or one volume sample, counts as one.  Its tie with itself counts
 share of that mass, as in the smoothed conformal predictor, whose coverage is the nominal one
 rather than at least it; the bounds are averaged over the share (:func:`smoothed_bound`).
 With ``spread`` the residuals are first divided by a local spread, so intervals are wider
-where the model errs more.  ``bounds`` keeps
-a target in its physical range (porosity in [0, 1]).
+where the model errs more.  ``bounds`` keeps a target in its physical range (porosity in
+[0, 1]).
 """
 
 from __future__ import annotations

@@ -639,17 +639,20 @@ class FaciesMixture(Candidate):
     """Per-facies linear regressors mixed by facies probabilities from a spline logistic.
 
     The porosity of a node is sum over facies c of P(c | seismic) * f_c(seismic).  The
-    classifier sees every feature.  It is the spline logistic rather than LightGBM: on the
-    tuning fields of experiments/facies_candidates.py LightGBM's facies probabilities scored
-    worse on the map than the logistic's (trees hold the last leaf's sand-rich probability
-    beyond the wells' attribute range), and with the spline logistic inside the mixture the
-    porosity map went from 0.885 to 0.878 x regression kriging's RMSE on average (worst field
-    1.074 to 1.046; tuning seeds of experiments/matched_cv.py).  Bundles with a LightGBM
-    classifier still load.  A facies' regressor uses every feature when the facies has
-    ``MIN_PER_FEATURE`` wells per coefficient, else only ``member_features`` (the attributes)
-    if it has that many for them, else the facies' weighted mean; its output is held within the
-    facies' observed range widened by a quarter, so a regressor fitted on a handful of wells
-    cannot extrapolate to absurd values.  Explained by permutation Shapley values (a product of
+    classifier sees every feature.  It is the spline logistic rather than LightGBM: refitted on
+    all wells of the tuning fields of experiments/matched_cv.py, LightGBM's facies probabilities
+    scored 1.15 x the logistic's Brier score on the map, the spline logistic's 0.90 (trees hold
+    the last leaf's sand-rich probability beyond the wells' attribute range; the candidates are
+    scored this way by experiments/facies_candidates.py), and with the spline logistic inside
+    the mixture the porosity map went from 0.885 to 0.878 x regression kriging's RMSE on
+    average (worst field 1.074 to 1.046; tuning seeds of experiments/matched_cv.py).  Bundles
+    with a LightGBM classifier still load.
+
+    A facies' regressor uses every feature when the facies has ``MIN_PER_FEATURE`` wells per
+    coefficient, else only ``member_features`` (the attributes) if it has that many for them,
+    else the facies' weighted mean; its output is held within the facies' observed range
+    widened by a quarter, so a regressor fitted on a handful of wells cannot extrapolate to
+    absurd values.  Explained by permutation Shapley values (a product of
     probabilities and regressions has no exact additive form).
     """
 
