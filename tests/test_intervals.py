@@ -108,7 +108,7 @@ def test_held_out_coverage_sees_folds_that_do_not_describe_each_other():
     ours = held_out_coverage(predicted + residuals, predicted, np.ones(2 * n), splits)
     assert ours == pytest.approx(expected, abs=0.015)
     assert expected < 0.7
-    # exchangeable residuals: the nominal 80 % (slightly above, by the conformal test-point mass)
+    # exchangeable residuals: the nominal 80 % (the smoothed conformal bound targets it exactly)
     same = held_out_coverage(predicted + rng.normal(size=2 * n), predicted, np.ones(2 * n), splits)
     assert 0.785 <= same <= 0.815
 
