@@ -896,7 +896,7 @@ class Blend(Candidate):
     def fit(self, data: FitData) -> Blend:
         if self.member_oof is not None:
             self.weights_ = blend_weights(
-                self.member_oof[data.rows], self.y_all[data.rows], data.weights
+                self.member_oof[data.rows], self.y_all[data.rows], data.weights, data.units
             )
         else:
             self.weights_ = np.asarray(self.weights, float)
@@ -953,25 +953,85 @@ def combine(predictions: np.ndarray, weights: np.ndarray) -> np.ndarray:
     )
 
 
-def blend_weights(predictions: np.ndarray, y: np.ndarray, sample_weight: np.ndarray) -> np.ndarray:
+BLEND_BAGS = 40  # bootstrap resamples of the wells whose value-blend weights are averaged
+
+
+def blend_weights(
+    predictions: np.ndarray,
+    y: np.ndarray,
+    sample_weight: np.ndarray,
+    units: np.ndarray | None = None,
+    bags: int = BLEND_BAGS,
+) -> np.ndarray:
     """Non-negative weights summing to one that minimise the weighted squared error (values of
-    shape (n, m)) or the weighted log-loss (class probabilities of shape (n, m, k), y codes)."""
+    shape (n, m)) or the weighted log-loss (class probabilities of shape (n, m, k), y codes).
+
+    Value weights are averaged over ``bags`` bootstrap resamples of the wells (``units``: the
+    well of each row; bagging, Breiman 1996): with a few dozen wells one fit's weights follow
+    the noise of a few wells.  On the tuning fields of experiments/matched_cv.py the bagged
+    weights mapped porosity better than one fit on 12 of 15 fields (0.866 against 0.874 times
+    regression kriging's RMSE on average); for facies probabilities the gain was 0.005 in the
+    Brier ratio and the worst field worse, so class weights are one fit.  The resamples come
+    from a fixed seed: the same wells give the same weights.
+    """
+    y = np.asarray(y)
+    sw = np.asarray(sample_weight, float)
+    if predictions.ndim == 3:
+        return _log_loss_weights(predictions[np.arange(len(y)), :, y.astype(int)], sw)
+    units = np.arange(len(y)) if units is None else np.asarray(units)
+    _, unit_of_row = np.unique(units, return_inverse=True)
+    n_units = unit_of_row.max() + 1
+    if bags > 1:
+        draws = np.random.default_rng(0).integers(0, n_units, (bags, n_units))
+        counts = np.stack([np.bincount(d, minlength=n_units) for d in draws])
+    else:
+        counts = np.ones((1, n_units))
+    bag_weights = sw * counts[:, unit_of_row]  # (bags, n)
+    # the squared error of each bag is w'Gw - 2h'w + const
+    gram = np.einsum("bn,nm,nk->bmk", bag_weights, predictions, predictions)
+    linear = (bag_weights * y) @ predictions
+    w = _simplex_quadratic_minimum(gram, linear).mean(axis=0)
+    w[w < 1e-3] = 0.0
+    return w / w.sum()
+
+
+def _simplex_quadratic_minimum(gram: np.ndarray, linear: np.ndarray) -> np.ndarray:
+    """argmin over the simplex of w'Gw - 2h'w for each of a stack of (G, h), exactly: as
+    non-negative least squares (Lawson & Hanson's active set, scipy's ``nnls``) of ||Aw - b||^2
+    with A'A = G and A'b = h (from G's eigenvectors, so members that predict alike are no
+    trouble), plus a heavily weighted row that holds sum(w) = 1."""
+    from scipy.optimize import nnls
+
+    m = linear.shape[1]
+    out = np.full_like(linear, 1.0 / m)
+    for k, (g, h) in enumerate(zip(gram, linear, strict=True)):
+        values, vectors = np.linalg.eigh(g)
+        kept = values > 1e-12 * max(values[-1], 0.0)
+        if not kept.any():  # every member predicts zero on these wells: nothing to choose
+            continue
+        root = np.sqrt(values[kept])
+        A, b = root[:, None] * vectors[:, kept].T, (vectors[:, kept].T @ h) / root
+        pull = 1e4 * np.sqrt(values[-1])  # sum(w) - 1 costs pull^2 per unit squared
+        w, _ = nnls(np.vstack([A, np.full(m, pull)]), np.append(b, pull))
+        out[k] = w / w.sum()
+    return out
+
+
+def _log_loss_weights(own: np.ndarray, sw: np.ndarray) -> np.ndarray:
+    """One constrained fit of the weights minimising the weighted log-loss; ``own`` holds each
+    member's probability of each row's observed class, shape (n, m)."""
     from scipy.optimize import minimize
 
-    m = predictions.shape[1]
-    sw = np.asarray(sample_weight, float)
-    rows = np.arange(len(y))
+    def loss_and_gradient(w: np.ndarray):
+        p = np.clip(own @ w, 1e-12, None)
+        return float(-np.sum(sw * np.log(p))), -own.T @ (sw / p)
 
-    def loss(w: ArrayLike):
-        if predictions.ndim == 2:
-            return float(np.sum(sw * (predictions @ w - y) ** 2))
-        p = np.clip(combine(predictions, w)[rows, y.astype(int)], 1e-12, None)
-        return float(-np.sum(sw * np.log(p)))
-
+    m = own.shape[1]
     start = np.full(m, 1.0 / m)
     result = minimize(
-        loss,
+        loss_and_gradient,
         start,
+        jac=True,
         method="SLSQP",
         bounds=[(0.0, 1.0)] * m,
         constraints=[{"type": "eq", "fun": lambda w: np.sum(w) - 1.0}],

@@ -965,13 +965,22 @@ def _cross_validate_all(candidates: list, data: FitData, splits) -> dict:
     if len(candidates) >= 2:
         P = np.stack([oofs[c.name][1] for c in candidates], axis=1)
         blend = Blend(
-            list(candidates), blend_weights(P, data.y, data.weights), member_oof=P, y_all=data.y
+            list(candidates),
+            blend_weights(P, data.y, data.weights, data.units),
+            member_oof=P,
+            y_all=data.y,
         )
         # the blend's own score: weights fitted without the scored fold
         oof = np.zeros((len(data.y),) + P.shape[2:])
         for train_rows, test in splits:
             oof[test] = combine(
-                P[test], blend_weights(P[train_rows], data.y[train_rows], data.weights[train_rows])
+                P[test],
+                blend_weights(
+                    P[train_rows],
+                    data.y[train_rows],
+                    data.weights[train_rows],
+                    data.units[train_rows],
+                ),
             )
         oofs[blend.name] = (blend, oof)
     return oofs

@@ -41,6 +41,49 @@ def test_blend_weights_find_the_exact_member():
     )  # the less noisy member weighs more
 
 
+def test_value_blend_weights_match_scipy_slsqp():
+    """One fit (bags=1) is the exact constrained least-squares minimum: checked against scipy's
+    SLSQP on the same objective, with correlated members as cross-validated models give."""
+    from scipy.optimize import minimize
+
+    rng = np.random.default_rng(5)
+    y = rng.normal(size=120)
+    common = y + rng.normal(0, 0.5, 120)
+    P = np.column_stack([common + rng.normal(0, s, 120) for s in (0.1, 0.2, 0.4, 0.8)] + [y * 0])
+    sw = rng.uniform(0.2, 2.0, 120)
+
+    def loss(w):
+        return float(np.sum(sw * (P @ w - y) ** 2))
+
+    reference = minimize(
+        loss,
+        np.full(5, 0.2),
+        method="SLSQP",
+        bounds=[(0, 1)] * 5,
+        constraints=[{"type": "eq", "fun": lambda w: w.sum() - 1}],
+        options={"ftol": 1e-14, "maxiter": 1000},
+    ).x
+    w = blend_weights(P, y, sw, bags=1)
+    assert w.sum() == pytest.approx(1) and np.all(w >= 0)
+    assert loss(w) == pytest.approx(loss(reference), rel=1e-7)
+    np.testing.assert_allclose(w, np.clip(reference, 0, None), atol=2e-3)
+
+
+def test_value_blend_weights_resample_whole_wells():
+    """Bagging draws wells, not rows: a well logged as three identical rows gets the weights of
+    the same well logged once."""
+    rng = np.random.default_rng(6)
+    y = rng.normal(size=40)
+    P = np.column_stack([y + rng.normal(0, s, 40) for s in (0.3, 0.5, 0.6)])
+    once = blend_weights(P, y, np.ones(40))
+    thrice = blend_weights(
+        np.repeat(P, 3, axis=0), np.repeat(y, 3), np.ones(120), units=np.repeat(np.arange(40), 3)
+    )
+    np.testing.assert_allclose(thrice, once, atol=1e-9)
+    single = blend_weights(P, y, np.ones(40), bags=1)
+    assert np.abs(once - single).max() > 0.01  # the bags do move the weights
+
+
 def test_one_standard_error_rule():
     rng = np.random.default_rng(2)
     y = rng.normal(size=300)
