@@ -150,6 +150,24 @@ def reliability(rel: pd.DataFrame, column: str = "p") -> pd.DataFrame:
     return out
 
 
+def reliability_noise(rel: pd.DataFrame, column: str = "p", resamples: int = 400) -> tuple:
+    """How much of the reliability diagram is field-to-field noise: the fields are resampled
+    with replacement (nodes of one field share its wells, so the field is the unit) and the
+    diagram redrawn.  Returns the median over bins of the standard error of a bin's observed
+    frequency, and the q10-q90 over resamples of the worst |observed - bin centre|."""
+    rel = rel.assign(
+        bin=np.clip(np.digitize(rel[column], BINS) - 1, 0, 9),
+        field=rel.layout + rel.seed.astype(str),
+    )
+    sums = rel.groupby(["field", "bin"]).hit.agg(["sum", "size"]).unstack(fill_value=0)
+    hits, nodes = sums["sum"].to_numpy(float), sums["size"].to_numpy(float)
+    centre = (BINS[:-1] + BINS[1:])[sums["sum"].columns.to_numpy()] / 2
+    draws = np.random.default_rng(0).integers(0, len(hits), (resamples, len(hits)))
+    observed = hits[draws].sum(axis=1) / np.maximum(nodes[draws].sum(axis=1), 1)
+    worst = np.abs(observed - centre).max(axis=1)
+    return float(np.median(observed.std(axis=0))), np.quantile(worst, [0.1, 0.9])
+
+
 def summary(table: pd.DataFrame, rel: pd.DataFrame, label: str) -> None:
     print(f"\n{label}: {len(table)} fields")
     for what, floor in (("phi", BIASED_PHI), ("sand", BIASED_SAND)):
@@ -203,6 +221,12 @@ def summary(table: pd.DataFrame, rel: pd.DataFrame, label: str) -> None:
             f"worst |observed - mean predicted| {(r.observed - r.predicted).abs().max():.3f}"
         )
         print("    " + r.round(3).to_string().replace("\n", "\n    "))
+    se, (low, high) = reliability_noise(rel)
+    print(
+        f"  field-to-field noise of the default (p), resampling the {len(table)} fields: standard"
+        f" error of a bin's observed frequency, median {se:.3f}; worst |observed - bin centre|"
+        f" q10-q90 {low:.3f}-{high:.3f}"
+    )
 
 
 def main() -> None:
