@@ -1142,6 +1142,7 @@ def _train_target(prep: _Prepared, target: str, options: TrainOptions) -> Target
             training_size_factor(
                 model, data, design.splits, chosen_row["cv"]["rmse"], options.seed
             ),
+            chosen_row["cv_se"],
         )
         calibration, spread_model = _calibrate(
             model, data, oof, map_error["scale"], design, attrs, options, target, notes

@@ -139,8 +139,15 @@ def leaderboard_lines(trained: TrainedModels) -> list[str]:
             )
         map_error = tm.distances.get("map_error")
         if map_error:
+            interval = map_error.get("interval")
+            noise = (
+                f" (q10-q90 {interval['q10']:.4f}-{interval['q90']:.4f}: the CV's own sampling"
+                " noise over the wells)"
+                if interval
+                else ""
+            )
             lines.append(
-                f"  expected map RMSE {map_error['rmse']:.4f}: the chosen model's"
+                f"  expected map RMSE {map_error['rmse']:.4f}{noise}: the chosen model's"
                 f" {tm.distances['chosen']} CV times the square root of the kriging-variance ratio"
                 f" {map_error['kriging_variance_ratio']:.3f} of map nodes to held-out wells and"
                 f" times {map_error['training_size']['factor']:.3f} for training on every well,"

@@ -81,6 +81,15 @@ def test_card_has_the_documented_keys(bundle):
     factor = error["training_size"]["factor"]
     assert 0.7 <= factor <= 1.0 and error["scale"] == factor
     assert error["rmse"] == pytest.approx(card["targets"]["porosity"]["cv"]["rmse"] * factor)
+    # its q10-q90 from the CV's sampling noise: the delta method on the chosen row's standard
+    # error of the mean squared error, z(0.9) = 1.2816 (normal tables), on a log scale
+    chosen = next(r for r in card["targets"]["porosity"]["leaderboard"] if r["chosen"])
+    relative = chosen["cv_se"] / (2 * chosen["cv"]["rmse"] ** 2)
+    assert error["relative_standard_error"] == pytest.approx(relative, abs=1e-4)
+    assert 0.02 < relative < 0.5
+    interval = error["interval"]
+    assert interval["q90"] / error["rmse"] == pytest.approx(np.exp(1.2816 * relative), rel=1e-4)
+    assert interval["q10"] * interval["q90"] == pytest.approx(error["rmse"] ** 2)
 
 
 def test_maps_csv_columns_and_ordering(bundle, tmp_path):
