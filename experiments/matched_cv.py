@@ -172,6 +172,8 @@ def one(layout: str, seed: int, options: dict | None = None) -> dict:
     row["cv_random"] = chosen_row["cv_random"]["rmse"] / true_rmse
     map_error = phi.distances["map_error"]  # the matched CV carried over to the map's distances
     row["cv_adjusted"] = map_error["rmse"] / true_rmse
+    interval = map_error["interval"]  # the card's q10-q90 of the expected map RMSE
+    row["truth_in_expected_range"] = bool(interval["q10"] <= true_rmse <= interval["q90"])
     row["kv_ratio"] = map_error["kriging_variance_ratio"]
     blocks = phi.distances["designs"]["blocks"]
     design = design_folds(
@@ -253,7 +255,9 @@ def summary(table: pd.DataFrame, label: str) -> None:
         f" {noise.median():.3f}, range {noise.min():.3f}-{noise.max():.3f}; expected map RMSE"
         f" within +-15 % or two of these standard errors of the truth on {near:.0%} of fields;"
         f" an unbiased estimate with this noise lands within +-15 % on"
-        f" {table.rmse_chance.mean():.0%} of fields (expected share at best)"
+        f" {table.rmse_chance.mean():.0%} of fields (expected share at best); the true map RMSE"
+        f" inside the card's q10-q90 of the expected map RMSE on"
+        f" {table.truth_in_expected_range.sum()} of {len(table)} fields"
     )
     for label, cov in (
         ("", table.coverage),
