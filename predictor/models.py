@@ -954,6 +954,7 @@ def combine(predictions: np.ndarray, weights: np.ndarray) -> np.ndarray:
 
 
 BLEND_BAGS = 40  # bootstrap resamples of the wells whose value-blend weights are averaged
+BLEND_FLOOR = 0.01  # bagged weights below this are dropped
 
 
 def blend_weights(
@@ -991,7 +992,9 @@ def blend_weights(
     gram = np.einsum("bn,nm,nk->bmk", bag_weights, predictions, predictions)
     linear = (bag_weights * y) @ predictions
     w = _simplex_quadratic_minimum(gram, linear).mean(axis=0)
-    w[w < 1e-3] = 0.0
+    # the bags leave small weights on most members, and every kept member is predicted at
+    # every node: those under 1 % are dropped
+    w[w < BLEND_FLOOR] = 0.0
     return w / w.sum()
 
 
