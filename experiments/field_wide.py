@@ -141,8 +141,13 @@ def one(layout: str, seed: int) -> tuple[dict, pd.DataFrame]:
     return row, rel
 
 
+def probability_bin(p) -> np.ndarray:
+    """The reliability diagram's bin (0-9) of each predicted probability."""
+    return np.clip(np.digitize(p, BINS) - 1, 0, len(BINS) - 2)
+
+
 def reliability(rel: pd.DataFrame, column: str = "p") -> pd.DataFrame:
-    rel = rel.assign(bin=np.clip(np.digitize(rel[column], BINS) - 1, 0, 9))
+    rel = rel.assign(bin=probability_bin(rel[column]))
     out = rel.groupby("bin").agg(
         predicted=(column, "mean"), observed=("hit", "mean"), nodes=(column, "size")
     )
@@ -156,7 +161,7 @@ def reliability_noise(rel: pd.DataFrame, column: str = "p", resamples: int = 400
     diagram redrawn.  Returns the median over bins of the standard error of a bin's observed
     frequency, and the q10-q90 over resamples of the worst |observed - bin centre|."""
     rel = rel.assign(
-        bin=np.clip(np.digitize(rel[column], BINS) - 1, 0, 9),
+        bin=probability_bin(rel[column]),
         field=rel.layout + rel.seed.astype(str),
     )
     sums = rel.groupby(["field", "bin"]).hit.agg(["sum", "size"]).unstack(fill_value=0)
