@@ -1046,11 +1046,130 @@ def _select(board: list[dict], oofs: dict, table: _TargetTable, task: Task) -> s
     return best
 
 
+@dataclass
+class _Folds:
+    """The fold designs of one target, what sized them and the score weights they imply."""
+
+    block: float
+    block_source: str
+    variogram: dict
+    designs: dict  # every design the card compares, by name
+    design: FoldDesign  # the chosen one: it scores, selects, ties and calibrates
+    representative: np.ndarray  # declustering weights raked to the map (cv_representative)
+    unsupported: float  # share of the map in bins no held-out well falls into
+
+
 def _train_target(prep: _Prepared, target: str, options: TrainOptions) -> TargetModel:
+    """One target through the stages: folds -> cross-validate every candidate -> select -> well
+    ties -> calibrate -> final fit and field-wide numbers -> explain."""
     task = task_of(prep.wells, target)
     table = _target_table(prep, target, options)
-    data, y, classes = table.data, table.y, table.classes
-    attrs = list(prep.spec.attributes)
+    folds = _fold_setup(prep, table, options, task, target)
+    candidates = _candidates(prep, task, target, options)
+    board, oofs = _cross_validate(candidates, table, folds, options, task, target)
+    chosen = _select(board, oofs, table, task)
+    if (
+        options.well_ties != "never"
+        and not prep.volume
+        and not isinstance(oofs[chosen][0], Kriging | RegressionKriging)
+    ):
+        chosen = _with_well_ties(chosen, board, oofs, table, folds, options, task)
+    for row in board:
+        row["chosen"] = row["candidate"] == chosen
+    chosen_row = next(r for r in board if r["chosen"])
+    model, oof = oofs[chosen]
+    notes = list(table.notes)
+    if folds.variogram["pure_nugget"]:
+        notes.append(
+            f"{target}: the residuals of the linear baseline show no spatial correlation (pure"
+            " nugget semivariogram): kriging and well ties are unlikely to add much, and the CV"
+            " blocks are sized by the well spacing instead"
+        )
+    map_error, calibration, spread_model = None, None, None
+    if task == "regression":
+        map_error = _expected_map_error(model, chosen_row, table, folds, prep, options)
+        calibration, spread_model = _calibrate(
+            model,
+            table.data,
+            oof,
+            map_error["scale"],
+            folds.design,
+            list(prep.spec.attributes),
+            options,
+            target,
+            notes,
+        )
+    final = clone(model).fit(table.data)
+    on_map = final.predict(prep.map_X, prep.map_X_xy)
+    wide = _field_wide(prep, table, target, task, oof, on_map, calibration, options.seed)
+    notes += _field_wide_notes(target, wide)
+    map_factors = None
+    if task == "classification":
+        # no prior shift: drilling chose places by what the seismic sees, so p(facies | seismic)
+        # holds on the map (covariate shift); shifting the priors raised the map's Brier score
+        # in experiments/field_wide.py
+        proportions = np.array(
+            [wide.estimates[wide.recommended]["proportions"][c] for c in table.classes]
+        )
+        map_factors = rule_factors(options.facies_map, on_map, proportions)
+    fold_of = folds.design.fold_of(len(table.y))
+    imp, aoa, aoa_cv, facts = _explain(
+        final, oof, chosen_row, table, fold_of, prep, task, target, options.seed
+    )
+    distance = distance_summary(table.data.map_distances, folds.designs, options.cv)
+    if map_error is not None:
+        distance["map_error"] = map_error
+    distance["score_weights"] = {
+        "what": (
+            "declustering weights raked so the held-out wells match the map's nearest-well distance"
+            " and attribute quartiles (target-weighted CV); the leaderboard's cv_representative"
+            " uses them, while the reported scores, models, selection and intervals use the"
+            " declustering weights"
+        ),
+        "unsupported_map_share": round(folds.unsupported, 3),
+        "effective_wells": round(effective_size(folds.representative, table.units), 1),
+    }
+    facts["warnings"] += _design_warnings(folds, distance, options.cv, target)
+    return TargetModel(
+        name=target,
+        task=task,
+        transform=table.transform,
+        classes=table.classes,
+        model=final,
+        calibration=calibration,
+        block_size=folds.block,
+        block_size_source=folds.block_source,
+        leaderboard=board,
+        chosen=chosen,
+        oof=oof,
+        observed=table.y,
+        weights=table.data.weights,
+        variogram=folds.variogram,
+        data=table.data,
+        candidates={k: v[0] for k, v in oofs.items()},
+        spread=spread_model,
+        importance=imp,
+        applicability=aoa,
+        applicability_cv=aoa_cv,
+        trust=facts,
+        units=table.units,
+        design=folds.design,
+        distances=distance,
+        folds=fold_of,
+        notes=notes,
+        representative_weights=folds.representative,
+        field_wide=wide,
+        map_factors=map_factors,
+        rows=table.rows,
+    )
+
+
+def _fold_setup(
+    prep: _Prepared, table: _TargetTable, options: TrainOptions, task: Task, target: str
+) -> _Folds:
+    """Blocks sized by the linear baseline's residual variogram, the fold designs, and the score
+    weights that make the held-out wells stand for the map."""
+    data, attrs = table.data, list(prep.spec.attributes)
     block, block_source, vario = _block_size(
         data, options, attrs, table.baseline_y, table.heads[table.head_of], table.units
     )
@@ -1058,11 +1177,17 @@ def _train_target(prep: _Prepared, target: str, options: TrainOptions) -> Target
         table.heads[table.head_of, 0], table.heads[table.head_of, 1], block, options.block_angle
     )
     designs = _designs(table, block, options, task, target)
-    design, random_design = designs[options.cv], designs["random"]
+    design = designs[options.cv]
     margins = [(design.distances, data.map_distances)]
     if prep.map_attrs is not None:
         margins += [(data.X[a].to_numpy(float), prep.map_attrs[a].to_numpy(float)) for a in attrs]
     representative, unsupported = representative_weights(data.weights, margins)
+    return _Folds(block, block_source, vario, designs, design, representative, unsupported)
+
+
+def _candidates(prep: _Prepared, task: Task, target: str, options: TrainOptions) -> list:
+    """The leaderboard's candidates for ``target``, narrowed to the user's ``--candidate``s."""
+    attrs = list(prep.spec.attributes)
     facies = (
         prep.wells["facies"].dropna().astype(str)
         if "facies" in prep.wells
@@ -1086,87 +1211,100 @@ def _train_target(prep: _Prepared, target: str, options: TrainOptions) -> Target
                 f"none of the candidates {', '.join(options.candidates)} applies to {target!r}; "
                 f"choose from {', '.join(known)}"
             )
+    return candidates
+
+
+def _cross_validate(
+    candidates: list,
+    table: _TargetTable,
+    folds: _Folds,
+    options: TrainOptions,
+    task: Task,
+    target: str,
+) -> tuple[list[dict], dict]:
+    """Every candidate and their blend on the chosen design (and on random folds, for contrast):
+    the leaderboard's rows and name -> (model, out-of-fold prediction) on the chosen design."""
     runs = {}
     for name in progress(
         [options.cv, "random"], f"{target}: cross-validating {len(candidates)} candidates"
     ):
-        runs[name] = _cross_validate_all(candidates, data, designs[name].splits)
+        runs[name] = _cross_validate_all(candidates, table.data, folds.designs[name].splits)
     oofs, random_oofs = runs[options.cv], runs["random"]
     board = [
-        _board_row(name, model, task, table, oof, random_oofs[name][1], representative)
+        _board_row(name, model, task, table, oof, random_oofs[name][1], folds.representative)
         for name, (model, oof) in oofs.items()
     ]
-    chosen = _select(board, oofs, table, task)
-    if (
-        options.well_ties != "never"
-        and not prep.volume
-        and not isinstance(oofs[chosen][0], Kriging | RegressionKriging)
-    ):
-        tied = WellTies(clone(oofs[chosen][0]))
-        oofs[tied.name] = (tied, out_of_fold(tied, data, design.splits))
-        keep = options.well_ties == "always" or _clearly_better(
-            _losses(y, oofs[tied.name][1]),
-            _losses(y, oofs[chosen][1]),
-            data.weights,
-            table.units,
-            margin=TIES_MARGIN[task],
-        )
-        # the random-CV contrast costs another nested CV: only for ties that are kept
-        random_oof = out_of_fold(tied, data, random_design.splits) if keep else None
-        board.append(
-            _board_row(tied.name, tied, task, table, oofs[tied.name][1], random_oof, representative)
-        )
-        if keep:
-            chosen = tied.name
-    for row in board:
-        row["chosen"] = row["candidate"] == chosen
-    chosen_row = next(r for r in board if r["chosen"])
-    model, oof = oofs[chosen]
-    calibration, spread_model, notes = None, None, list(table.notes)
-    if vario["pure_nugget"]:
-        notes.append(
-            f"{target}: the residuals of the linear baseline show no spatial correlation (pure"
-            " nugget semivariogram): kriging and well ties are unlikely to add much, and the CV"
-            " blocks are sized by the well spacing instead"
-        )
-    map_error = None
-    if task == "regression":
-        map_error = expected_map_error(
-            chosen_row["cv"]["rmse"],
-            VariogramModel(**vario),
-            table.heads,
-            table.head_of,
-            design.splits,
-            prep.map_xy,
-            data.weights,
-            training_size_factor(
-                model, data, design.splits, chosen_row["cv"]["rmse"], options.seed
-            ),
-            chosen_row["cv_se"],
-        )
-        calibration, spread_model = _calibrate(
-            model, data, oof, map_error["scale"], design, attrs, options, target, notes
-        )
-    final = clone(model).fit(data)
-    on_map = final.predict(prep.map_X, prep.map_X_xy)
-    wide = _field_wide(prep, table, target, task, oof, on_map, calibration, options.seed)
-    notes += _field_wide_notes(target, wide)
-    map_factors = None
-    if task == "classification":
-        # no prior shift: drilling chose places by what the seismic sees, so p(facies | seismic)
-        # holds on the map (covariate shift); shifting the priors raised the map's Brier score
-        # in experiments/field_wide.py
-        proportions = np.array(
-            [wide.estimates[wide.recommended]["proportions"][c] for c in classes]
-        )
-        map_factors = rule_factors(options.facies_map, on_map, proportions)
-    folds = design.fold_of(len(y))
-    values, _ = contributions(
-        final, data.X, data.xy, prep.names, background=data.X, seed=options.seed
+    return board, oofs
+
+
+def _with_well_ties(
+    chosen: str,
+    board: list[dict],
+    oofs: dict,
+    table: _TargetTable,
+    folds: _Folds,
+    options: TrainOptions,
+    task: Task,
+) -> str:
+    """Cross-validate the chosen model with well ties, add them to the leaderboard and return the
+    name kept: the tied model when the ties pass their margin (or ``--well-ties always``)."""
+    data = table.data
+    tied = WellTies(clone(oofs[chosen][0]))
+    oofs[tied.name] = (tied, out_of_fold(tied, data, folds.design.splits))
+    keep = options.well_ties == "always" or _clearly_better(
+        _losses(table.y, oofs[tied.name][1]),
+        _losses(table.y, oofs[chosen][1]),
+        data.weights,
+        table.units,
+        margin=TIES_MARGIN[task],
     )
+    # the random-CV contrast costs another nested CV: only for ties that are kept
+    random_oof = out_of_fold(tied, data, folds.designs["random"].splits) if keep else None
+    board.append(
+        _board_row(
+            tied.name, tied, task, table, oofs[tied.name][1], random_oof, folds.representative
+        )
+    )
+    return tied.name if keep else chosen
+
+
+def _expected_map_error(
+    model, chosen_row: dict, table: _TargetTable, folds: _Folds, prep: _Prepared, options
+) -> dict:
+    """The chosen model's CV error carried over to the map's prediction distances and to
+    training on every well (see :mod:`predictor.map_error`)."""
+    rmse = chosen_row["cv"]["rmse"]
+    return expected_map_error(
+        rmse,
+        VariogramModel(**folds.variogram),
+        table.heads,
+        table.head_of,
+        folds.design.splits,
+        prep.map_xy,
+        table.data.weights,
+        training_size_factor(model, table.data, folds.design.splits, rmse, options.seed),
+        chosen_row["cv_se"],
+    )
+
+
+def _explain(
+    final,
+    oof: np.ndarray,
+    chosen_row: dict,
+    table: _TargetTable,
+    fold_of: np.ndarray,
+    prep: _Prepared,
+    task: Task,
+    target: str,
+    seed: int,
+):
+    """Feature importance, the area of applicability and the trust checks (``facts``, with
+    their ``warnings``) of the final model."""
+    data = table.data
+    values, _ = contributions(final, data.X, data.xy, prep.names, background=data.X, seed=seed)
     imp = importance(values, data.weights, prep.names)
-    aoa, di = fit_applicability(data.X[prep.names], imp.drop(KRIGING), folds)
-    aoa_cv = _inside_outside(task, y, oof, data.weights, classes, di <= aoa.threshold)
+    aoa, di = fit_applicability(data.X[prep.names], imp.drop(KRIGING), fold_of)
+    aoa_cv = _inside_outside(task, table.y, oof, data.weights, table.classes, di <= aoa.threshold)
     warned, facts = trust_warnings(
         target,
         task,
@@ -1175,36 +1313,32 @@ def _train_target(prep: _Prepared, target: str, options: TrainOptions) -> Target
         values[..., :-1] if values.ndim == 2 else values,
         chosen_row["cv"],
         chosen_row["cv_random"],
-        len(classes),
-        pd.Series(table.units).groupby(folds).nunique().tolist(),
+        len(table.classes),
+        pd.Series(table.units).groupby(fold_of).nunique().tolist(),
         impedance=[a for a, kind in prep.attribute_kinds.items() if kind == "impedance"],
     )
-    distance = distance_summary(data.map_distances, designs, options.cv)
-    if map_error is not None:
-        distance["map_error"] = map_error
-    distance["score_weights"] = {
-        "what": (
-            "declustering weights raked so the held-out wells match the map's nearest-well distance"
-            " and attribute quartiles (target-weighted CV); the leaderboard's cv_representative"
-            " uses them, while the reported scores, models, selection and intervals use the"
-            " declustering weights"
-        ),
-        "unsupported_map_share": round(unsupported, 3),
-        "effective_wells": round(effective_size(representative, table.units), 1),
-    }
-    if unsupported > 0:
+    facts["warnings"] = warned
+    return imp, aoa, aoa_cv, facts
+
+
+def _design_warnings(folds: _Folds, distance: dict, cv: str, target: str) -> list[str]:
+    """Where the CV cannot stand for the map: map bins no held-out well represents, and a map
+    that no fold design's prediction distances reproduce."""
+    warned = []
+    if folds.unsupported > 0:
         warned.append(
-            f"{target}: {unsupported:.0%} of the map lies in nearest-well-distance or attribute"
-            " quartiles that no held-out well falls into, so the CV scores cannot stand for that"
-            " part of the map"
+            f"{target}: {folds.unsupported:.0%} of the map lies in nearest-well-distance or"
+            " attribute quartiles that no held-out well falls into, so the CV scores cannot stand"
+            " for that part of the map"
         )
-    if design.w > 0.5 * distance["map_median_distance"] and design.w > 0:
-        cv_median = distance["designs"][options.cv]["median_cv_distance"]
-        farther = cv_median > distance["map_median_distance"]
+    w, map_median = folds.design.w, distance["map_median_distance"]
+    if w > 0.5 * map_median and w > 0:
+        cv_median = distance["designs"][cv]["median_cv_distance"]
+        farther = cv_median > map_median
         warned.append(
-            f"{target}: no CV design reproduces the map's prediction distances (W = {design.w:.0f}"
+            f"{target}: no CV design reproduces the map's prediction distances (W = {w:.0f}"
             f" m; held-out wells a median {cv_median:.0f} m from training wells, map nodes"
-            f" {distance['map_median_distance']:.0f} m from a well): "
+            f" {map_median:.0f} m from a well): "
             + (
                 "the held-out wells are farther from their training wells than the map is from its "
                 "wells (regular or sparse drilling), so the CV error is likely pessimistic"
@@ -1215,39 +1349,7 @@ def _train_target(prep: _Prepared, target: str, options: TrainOptions) -> Target
                 )
             )
         )
-    facts["warnings"] = warned
-    return TargetModel(
-        name=target,
-        task=task,
-        transform=table.transform,
-        classes=classes,
-        model=final,
-        calibration=calibration,
-        block_size=block,
-        block_size_source=block_source,
-        leaderboard=board,
-        chosen=chosen,
-        oof=oof,
-        observed=y,
-        weights=data.weights,
-        variogram=vario,
-        data=data,
-        candidates={k: v[0] for k, v in oofs.items()},
-        spread=spread_model,
-        importance=imp,
-        applicability=aoa,
-        applicability_cv=aoa_cv,
-        trust=facts,
-        units=table.units,
-        design=design,
-        distances=distance,
-        folds=folds,
-        notes=notes,
-        representative_weights=representative,
-        field_wide=wide,
-        map_factors=map_factors,
-        rows=table.rows,
-    )
+    return warned
 
 
 def _field_wide(
