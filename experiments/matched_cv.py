@@ -163,6 +163,9 @@ def one(layout: str, seed: int, options: dict | None = None) -> dict:
     else:
         row["rk_ratio_blend"] = row["rk_ratio"]
     chosen_row = next(r for r in phi.leaderboard if r["chosen"])
+    # the blend's weight on kriging members: with any, well ties are not tried on it
+    members = next(r for r in phi.leaderboard if r["candidate"] == "blend")["members"]
+    row["kriging_weight"] = sum(w for m, w in members.items() if "kriging" in m)
     row["cv_matched"] = chosen_row["cv"]["rmse"] / true_rmse  # as reported: declustering weights
     # the CV RMSE's own sampling noise (delta method: se(RMSE) / RMSE = se(MSE) / (2 MSE))
     row["cv_rel_se"] = chosen_row["cv_se"] / (2 * chosen_row["cv"]["rmse"] ** 2)

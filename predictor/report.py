@@ -371,6 +371,17 @@ def _bias(check, card, fig):
     return _section("bias", "Drilling bias and declustering", body)
 
 
+SELECTION = {  # the rules of training._select and training._ties_offered, in words
+    "regression": "the blend of the candidates (on the experiment fields every single candidate"
+    " that beat it in the CV mapped worse, see the README); well ties are tried only on a model"
+    " that does not already krige residuals, and kept when they beat it by one standard error of"
+    " the paired per-well difference.",
+    "classification": "the blend is kept unless a single classifier's mean per-well log-loss is"
+    " lower by more than two standard errors of the paired difference; well ties are kept unless"
+    " their log-loss is worse by more than one.",
+}
+
+
 def _leaderboard(bundle, fig):
     from . import plots  # matplotlib loads when a figure is drawn, not on import
 
@@ -414,11 +425,8 @@ def _leaderboard(bundle, fig):
             )
         body += (
             f"<h3>{html.escape(t)}</h3><p class='small'>{html.escape(info['cv_method'])}."
-            " Selection: the blend is kept unless a single candidate's mean per-well loss (squared"
-            " error, or log-loss for classes) is lower by more than two standard errors of the"
-            " paired difference; well ties are added when they beat the chosen model by one (for"
-            " classes: when their log-loss is lower at all). The standard error column is that of"
-            " each candidate's mean loss.</p>"
+            f" Selection: {SELECTION[info['task']]} The standard error column is that of each"
+            " candidate's mean per-well loss.</p>"
             + _table(pd.DataFrame(rows), chosen)
             + _img(fig / f"board_{t}.png", f"{t}: matched vs random CV")
         )

@@ -14,8 +14,15 @@ from predictor.cli import main
 from predictor.errors import BundleError, InputError, ModelError, PredictorWarning
 from predictor.grid import read_grid
 from predictor.io.tables import read_wells
+from predictor.models import Blend, Linear, Logistic, RegressionKriging
 from predictor.predict import predict_maps
-from predictor.training import TIES_MARGIN, TrainOptions, _clearly_better, train
+from predictor.training import (
+    TIES_MARGIN,
+    TrainOptions,
+    _clearly_better,
+    _ties_offered,
+    train,
+)
 
 WELLS, GRID = str(DEMO / "wells.csv"), str(DEMO / "seismic.csv")
 
@@ -404,3 +411,31 @@ def test_facies_ties_are_kept_unless_clearly_worse():
     assert not _clearly_better(
         1.0 + spread - 0.5 * se, np.ones(50), np.ones(50), margin=TIES_MARGIN["regression"]
     )
+
+
+def test_ties_are_not_tried_on_a_model_that_already_kriges(bundle):
+    # the demo's porosity blend holds regression kriging: the blend is chosen and no well ties are
+    # tried; its facies blend holds none, so facies ties are tried
+    card = json.loads((bundle / "model_card.json").read_text())
+    porosity = card["targets"]["porosity"]
+    assert porosity["chosen"] == "blend"
+    kriging = ("ordinary_kriging", "regression_kriging", "regression_kriging_all_features")
+    blend_row = next(r for r in porosity["leaderboard"] if r["candidate"] == "blend")
+    assert sum(blend_row["members"].get(k, 0) for k in kriging) > 0
+    assert not any(r["candidate"].endswith("+well_ties") for r in porosity["leaderboard"])
+    facies = {r["candidate"] for r in card["targets"]["facies"]["leaderboard"]}
+    assert any(name.endswith("+well_ties") for name in facies)
+    attrs = ["impedance"]
+    with_kriging = Blend([Linear(attrs), RegressionKriging(attrs)], np.array([0.6, 0.4]))
+    kriging_unweighted = Blend([Linear(attrs), RegressionKriging(attrs)], np.array([1.0, 0.0]))
+    for rule, task, volume, model, offered in (
+        ("auto", "regression", False, with_kriging, False),
+        ("auto", "regression", False, kriging_unweighted, True),
+        ("always", "regression", False, with_kriging, True),
+        ("auto", "classification", False, Logistic(attrs), True),
+        ("never", "classification", False, Logistic(attrs), False),
+        ("always", "regression", True, kriging_unweighted, False),
+        ("always", "regression", False, RegressionKriging(attrs), False),
+    ):
+        options = TrainOptions(["porosity"], well_ties=rule)
+        assert _ties_offered(options, task, volume, model) is offered
