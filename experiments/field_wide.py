@@ -132,8 +132,11 @@ def one(layout: str, seed: int) -> tuple[dict, pd.DataFrame]:
             labels, fac.refit(untied["candidate"]).predict(X, xy), classes
         ) / brier(labels, logistic, classes)
     for name, p in (("", proba), ("shifted_", shifted)):
-        for rule in MAP_RULES:
-            drawn = np.argmax(p * rule_factors(rule, p, target), axis=1)
+        factors = {rule: rule_factors(rule, p, target) for rule in MAP_RULES}
+        # the last release's balanced rule: relative to the debiased shares
+        factors["balanced_debiased"] = 1.0 / np.maximum(target, 1e-6)
+        for rule, f in factors.items():
+            drawn = np.argmax(p * f, axis=1)
             row[f"{name}{rule}_sand_error"] = float(np.mean(drawn == sand)) - true_share["sand"]
             row[f"{name}{rule}_bacc_gain"] = (
                 balanced_accuracy_score(labels, np.array(classes)[drawn]) - row["bacc_logistic"]
@@ -198,7 +201,7 @@ def summary(table: pd.DataFrame, rel: pd.DataFrame, label: str) -> None:
         f"  true mean porosity inside the bootstrap [q10, q90]: {table.phi_in_interval.mean():.0%}"
     )
     for name in ("", "shifted_"):
-        for rule in MAP_RULES:
+        for rule in (*MAP_RULES, "balanced_debiased"):
             e = table[f"{name}{rule}_sand_error"].dropna()
             g = table[f"{name}{rule}_bacc_gain"].dropna()
             print(

@@ -42,7 +42,7 @@ FORMAT_LIBRARIES = {
 }
 RULE_LABELS = {
     "most-probable": "most probable class",
-    "balanced": "largest probability relative to the class's field-wide share",
+    "balanced": "largest probability relative to the class's mean probability over the map",
     "proportions": "class thresholds that reproduce the field-wide proportions",
 }
 

@@ -187,9 +187,9 @@ class TrainOptions:
         "balanced",
         "--facies-map",
         "how the facies map draws one class per node from the "
-        "probabilities: balanced (largest probability relative to the class's field-wide "
-        "share; default, see the README), proportions (class thresholds that reproduce the "
-        "field-wide proportions) or most-probable",
+        "probabilities: balanced (largest probability relative to the class's mean "
+        "probability over the map; default, see the README), proportions (class thresholds "
+        "that reproduce the field-wide proportions) or most-probable",
     )
     kriging_neighbours: int | None = option(
         None,

@@ -180,14 +180,42 @@ def test_spline_logistic_matches_scikit_learn_pipeline():
 
 def test_facies_candidates_on_maps_and_volumes():
     """On maps the spline logistic on every feature stands in for the linear one (which took
-    the blend on preferential drilling and mapped worse); volumes keep what was measured there."""
+    the blend on preferential drilling and mapped worse) and LightGBM classifiers are left out
+    (their probabilities stay flat beyond the wells' range, below); volumes keep what was
+    measured there."""
     from predictor.models import leaderboard_candidates
 
     attrs, names = ["impedance"], ["impedance", "impedance_smooth100m"]
     on_map = [c.name for c in leaderboard_candidates("classification", attrs, names)]
     in_volume = [c.name for c in leaderboard_candidates("classification", attrs, names, True)]
-    assert "logistic_splines" in on_map and "logistic_all_features" not in on_map
+    assert on_map == ["logistic", "logistic_splines"]
     assert "logistic_all_features" in in_volume and "logistic_splines" not in in_volume
+    assert {"lightgbm", "lightgbm_attributes_only"} <= set(in_volume)
+    porosity = [c.name for c in leaderboard_candidates("regression", attrs, names)]
+    assert {"lightgbm", "lightgbm_attributes_only"} <= set(porosity)
+
+
+def test_tree_facies_probabilities_stay_flat_beyond_the_wells_range():
+    """Why LightGBM classifiers are not offered for facies maps: sand falls off with impedance;
+    wells sample impedance 8000-10000 only.  At 11000-12000, beyond the wells, the logistic's
+    sand probability keeps falling (as the truth does) while the trees hold their last leaf's."""
+    from predictor.models import LightGBM, Logistic
+
+    rng = np.random.default_rng(3)
+    n = 400
+    imp = rng.uniform(8000, 10000, n)
+    sand = (rng.uniform(size=n) < 1 / (1 + np.exp((imp - 9000) / 400))).astype(int)
+    X = pd.DataFrame({"impedance": imp})
+    data = FitData(
+        X, sand, np.ones(n), np.column_stack([imp, imp]), np.arange(n) % 5, ["other", "sand"]
+    )
+    far = pd.DataFrame({"impedance": [10000.0, 11000.0, 12000.0]})
+    trees = LightGBM("classification", ["impedance"]).fit(data).predict(far)[:, 1]
+    linear = Logistic(["impedance"]).fit(data).predict(far)[:, 1]
+    truth = 1 / (1 + np.exp((far["impedance"].to_numpy() - 9000) / 400))
+    assert np.ptp(trees) < 1e-9  # one leaf for everything beyond the range
+    assert linear[0] > linear[1] > linear[2] and abs(linear[2] - truth[2]) < 0.01
+    assert trees[2] - truth[2] > 0.05  # the trees keep sand at 0.11 where it is 0.0006
 
 
 def test_regression_candidates_on_maps_and_volumes():
