@@ -1232,9 +1232,15 @@ def _candidates(prep: _Prepared, task: Task, target: str, options: TrainOptions)
         known = [c.name for c in candidates]
         candidates = [c for c in candidates if c.name in options.candidates]
         if not candidates:
+            why = (
+                " (LightGBM classifiers are offered for facies in volumes only: on maps their"
+                " probabilities stay flat beyond the wells' attribute range, see the README)"
+                if task == "classification" and not prep.volume
+                else ""
+            )
             raise InputError(
                 f"none of the candidates {', '.join(options.candidates)} applies to {target!r}; "
-                f"choose from {', '.join(known)}"
+                f"choose from {', '.join(known)}{why}"
             )
     return candidates
 

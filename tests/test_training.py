@@ -439,3 +439,9 @@ def test_ties_are_not_tried_on_a_model_that_already_kriges(bundle):
     ):
         options = TrainOptions(["porosity"], well_ties=rule)
         assert _ties_offered(options, task, volume, model) is offered
+
+
+def test_facies_on_a_map_refuse_lightgbm_alone_and_say_why():
+    wells, grid = read_wells(WELLS), read_grid(GRID)
+    with pytest.raises(InputError, match="LightGBM classifiers are offered for facies in volumes"):
+        train(wells, grid, TrainOptions(["facies"], candidates=["lightgbm"]))
