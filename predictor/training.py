@@ -1454,8 +1454,8 @@ def _calibrate(
     elif options.interval_spread in ("features", "kriging"):
         if options.interval_spread == "kriging":
             notes.append(
-                f"{target}: kriging spread needs a well-tied model; intervals use the feature"
-                " spread"
+                f"{target}: kriging spread needs a well-tied model (add --well-ties always);"
+                " intervals use the feature spread"
             )
         oof_spread, spread_model = _feature_spread(attrs, data, residuals, design.splits)
     bounds = PHYSICAL_BOUNDS.get(target)

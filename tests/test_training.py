@@ -445,3 +445,17 @@ def test_facies_on_a_map_refuse_lightgbm_alone_and_say_why():
     wells, grid = read_wells(WELLS), read_grid(GRID)
     with pytest.raises(InputError, match="LightGBM classifiers are offered for facies in volumes"):
         train(wells, grid, TrainOptions(["facies"], candidates=["lightgbm"]))
+
+
+def test_kriging_spread_needs_well_ties_and_says_so():
+    # porosity blends take no ties by default, so the kriging spread falls back with a note
+    # naming the fix; with --well-ties always the intervals use the ties' kriging spread
+    wells, grid = read_wells(WELLS), read_grid(GRID)
+    plain = train(wells, grid, TrainOptions(["porosity"], interval_spread="kriging"))
+    assert plain.targets["porosity"].spread != "kriging"
+    assert any("--well-ties always" in n for n in plain.targets["porosity"].notes)
+    tied = train(
+        wells, grid, TrainOptions(["porosity"], interval_spread="kriging", well_ties="always")
+    )
+    assert tied.targets["porosity"].chosen.endswith("+well_ties")
+    assert tied.targets["porosity"].spread == "kriging"
