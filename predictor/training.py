@@ -1033,20 +1033,17 @@ def _select(board: list[dict], oofs: dict, table: _TargetTable, task: Task) -> s
     noise, not the model, picks the winner, while the bagged blend weights already lean on the
     members that keep winning.
     """
-    if "blend" in oofs and task == "regression":
+    if "blend" not in oofs:  # a single candidate (the user's --candidate): nothing to choose
+        return board[0]["candidate"]
+    if task == "regression":
         return "blend"
-    key = "rmse" if task == "regression" else "log_loss"
-    best = min(board, key=lambda r: r["cv"][key])["candidate"]
-    if (
-        "blend" in oofs
-        and best != "blend"
-        and not _clearly_better(
-            _losses(table.y, oofs[best][1]),
-            _losses(table.y, oofs["blend"][1]),
-            table.data.weights,
-            table.units,
-            margin=BLEND_MARGIN,
-        )
+    best = min(board, key=lambda r: r["cv"]["log_loss"])["candidate"]
+    if best != "blend" and not _clearly_better(
+        _losses(table.y, oofs[best][1]),
+        _losses(table.y, oofs["blend"][1]),
+        table.data.weights,
+        table.units,
+        margin=BLEND_MARGIN,
     ):
         best = "blend"
     return best
