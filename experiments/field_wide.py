@@ -12,6 +12,9 @@ preferential drilling, one and two attributes), trained with the plain command
 - the facies map's sand share under each decision rule, against the truth, with and without
   the prior shift of the probabilities; balanced accuracy of each rule; the map's Brier score
   against a logistic regression on the attributes fitted to the same wells;
+- how far the wells' own noise allows those goals: the chance that an unbiased estimate with the
+  debiased estimate's bootstrap standard error lands within the tolerance, per field and on
+  every field;
 - the reliability of P(porosity > cutoff) at three cutoffs (the truth's 30th, 50th and 70th
   percentiles): observed frequency against predicted probability in ten bins, and its Brier
   score; the default (each facies' residuals mixed by the node's facies probabilities) beside
@@ -31,6 +34,7 @@ from concurrent.futures import ProcessPoolExecutor
 import numpy as np
 import pandas as pd
 from matched_cv import HELD_OUT, LAYOUTS, TUNING, map_rows
+from scipy.special import erf
 from sklearn.metrics import balanced_accuracy_score
 
 from predictor.errors import ModelError, PredictorWarning
@@ -70,6 +74,7 @@ def one(layout: str, seed: int) -> tuple[dict, pd.DataFrame]:
         row[f"phi_{method}"] = abs(value["mean"] - true_phi.mean()) / raw_error
     iv = phi.field_wide.interval
     row["phi_in_interval"] = iv["q10"] <= true_phi.mean() <= iv["q90"]
+    row["phi_debiased_se"] = bootstrap_se(iv)
     # exceedance reliability, pooled over cutoffs
     pred = phi.calibration.clip(phi.model.predict(X, xy))
     spread = local_spread(phi.spread, phi.model, X, xy) if phi.calibration.scaled else None
@@ -107,6 +112,7 @@ def one(layout: str, seed: int) -> tuple[dict, pd.DataFrame]:
     est = fac.field_wide.estimates
     raw_error = abs(est["naive"]["proportions"]["sand"] - true_share["sand"])
     row["sand_raw_error"] = raw_error
+    row["sand_debiased_se"] = bootstrap_se(fac.field_wide.interval["sand"])
     for method, value in est.items():
         row[f"sand_{method}"] = abs(value["proportions"]["sand"] - true_share["sand"]) / raw_error
     proba = fac.model.predict(X, xy)
@@ -142,6 +148,17 @@ def one(layout: str, seed: int) -> tuple[dict, pd.DataFrame]:
                 balanced_accuracy_score(labels, np.array(classes)[drawn]) - row["bacc_logistic"]
             )
     return row, rel
+
+
+def bootstrap_se(interval: dict) -> float:
+    """Standard error of an estimate from its bootstrap q10-q90 (normal: q90 - q10 = 2.563 sd)."""
+    return (interval["q90"] - interval["q10"]) / 2.563
+
+
+def chance_within(tolerance, se) -> np.ndarray:
+    """Chance that an unbiased, normally distributed estimate with standard error ``se`` lands
+    within +-``tolerance`` of the truth: what the wells' own sampling noise allows."""
+    return erf(np.asarray(tolerance) / (np.asarray(se) * np.sqrt(2.0)))
 
 
 def probability_bin(p) -> np.ndarray:
@@ -197,6 +214,25 @@ def summary(table: pd.DataFrame, rel: pd.DataFrame, label: str) -> None:
                 f" {r.max():.3f}, <= 0.20 on {np.mean(r <= 0.2):.0%}; absolute error mean"
                 f" {a.mean():.4f}, worst {a.max():.4f}"
             )
+    for what, floor in (("phi", BIASED_PHI), ("sand", BIASED_SAND)):
+        biased = table[table[f"{what}_raw_error"] > floor].dropna(subset=[f"{what}_debiased_se"])
+        chance = chance_within(0.2 * biased[f"{what}_raw_error"], biased[f"{what}_debiased_se"])
+        z = biased[f"{what}_debiased_seismic"] * biased[f"{what}_raw_error"]
+        z = z / biased[f"{what}_debiased_se"]
+        print(
+            f"  {what} debiased, the best an unbiased estimate with its bootstrap spread can"
+            " expect:"
+            f" chance of error / raw <= 0.20, mean over the biased fields {chance.mean():.0%}, on"
+            f" every one of them {chance.prod():.0%};"
+            f" error / bootstrap standard error: median {z.median():.2f}, worst {z.max():.2f}"
+        )
+    sand_se = table.sand_debiased_se.dropna()
+    print(
+        "  the wells' own uncertainty about the sand share (debiased estimate's bootstrap standard"
+        f" error): median {sand_se.median():.3f}, worst {sand_se.max():.3f}; chance of an unbiased"
+        f" estimate that noisy landing within 0.04: mean {chance_within(0.04, sand_se).mean():.0%},"
+        f" on every field {chance_within(0.04, sand_se).prod():.0%}"
+    )
     print(
         f"  true mean porosity inside the bootstrap [q10, q90]: {table.phi_in_interval.mean():.0%}"
     )
