@@ -35,6 +35,7 @@ import numpy as np
 import pandas as pd
 from matched_cv import HELD_OUT, LAYOUTS, TUNING, map_rows
 from scipy.special import erf
+from scipy.stats import norm
 from sklearn.metrics import balanced_accuracy_score
 
 from predictor.errors import ModelError, PredictorWarning
@@ -151,8 +152,9 @@ def one(layout: str, seed: int) -> tuple[dict, pd.DataFrame]:
 
 
 def bootstrap_se(interval: dict) -> float:
-    """Standard error of an estimate from its bootstrap q10-q90 (normal: q90 - q10 = 2.563 sd)."""
-    return (interval["q90"] - interval["q10"]) / 2.563
+    """Standard error of an estimate from its bootstrap q10-q90 (as if normal: q90 - q10 is
+    2 x 1.2816 standard deviations)."""
+    return (interval["q90"] - interval["q10"]) / (2.0 * norm.ppf(0.9))
 
 
 def chance_within(tolerance, se) -> np.ndarray:
@@ -221,9 +223,8 @@ def summary(table: pd.DataFrame, rel: pd.DataFrame, label: str) -> None:
         z = z / biased[f"{what}_debiased_se"]
         print(
             f"  {what} debiased, the best an unbiased estimate with its bootstrap spread can"
-            " expect:"
-            f" chance of error / raw <= 0.20, mean over the biased fields {chance.mean():.0%}, on"
-            f" every one of them {chance.prod():.0%};"
+            " expect: chance of error / raw <= 0.20, mean over the biased fields"
+            f" {chance.mean():.0%}, on every one of them {chance.prod():.0%};"
             f" error / bootstrap standard error: median {z.median():.2f}, worst {z.max():.2f}"
         )
     sand_se = table.sand_debiased_se.dropna()
